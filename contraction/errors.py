@@ -1,0 +1,88 @@
+"""Typed errors of the engine.
+
+Every error a user can cause by bad input derives from :class:`VerampError`, carries a
+one-line message and, for circuit text, the line and column where the problem is. The
+service maps these to 4xx responses and the CLI prints them as one line on stderr.
+"""
+
+from __future__ import annotations
+
+
+class VerampError(Exception):
+    """Base class of all errors caused by input the engine cannot accept."""
+
+    #: short machine-readable kind, used in API error bodies
+    kind = "invalid_input"
+
+    def __init__(self, message: str):
+        super().__init__(message)
+        self.message = message
+
+    def to_dict(self) -> dict:
+        return {"error": self.kind, "message": str(self)}
+
+
+class CircuitError(VerampError):
+    """A circuit model that is not valid (shapes, unitarity, qubit indices...)."""
+
+    kind = "invalid_circuit"
+
+    def __init__(self, message: str, gate_index: int | None = None):
+        if gate_index is not None:
+            message = f"gate {gate_index}: {message}"
+        super().__init__(message)
+        self.gate_index = gate_index
+
+
+class ParseError(VerampError):
+    """Circuit text that cannot be read; names line and column (1-based)."""
+
+    kind = "parse_error"
+
+    def __init__(self, message: str, line: int | None = None, column: int | None = None,
+                 source: str = "<circuit>"):
+        self.line = line
+        self.column = column
+        self.source = source
+        self.reason = message
+        where = f"{source}:{line}:{column}: " if line is not None else f"{source}: "
+        super().__init__(where + message)
+
+    def to_dict(self) -> dict:
+        out = super().to_dict()
+        out.update({"line": self.line, "column": self.column})
+        return out
+
+
+class UnsupportedError(ParseError):
+    """A valid construct that has no meaning for a pure amplitude (or is not supported)."""
+
+    kind = "unsupported"
+
+
+class BitstringError(VerampError):
+    """A bitstring of the wrong length or alphabet."""
+
+    kind = "invalid_bitstring"
+
+
+class ExportError(VerampError):
+    """A circuit that cannot be written in the requested format."""
+
+    kind = "export_error"
+
+
+class PlanError(VerampError):
+    """A contraction plan that cannot be made, loaded or run within the limits."""
+
+    kind = "plan_error"
+
+
+class MemoryLimitError(PlanError):
+    """The contraction's peak memory exceeds the cap even after slicing."""
+
+    kind = "memory_limit"
+
+
+class Cancelled(Exception):
+    """A running contraction was cancelled cooperatively (not an input error)."""

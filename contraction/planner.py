@@ -1,0 +1,199 @@
+"""Contraction plans: finding them (cotengra) and the plan as plain data.
+
+A :class:`Plan` is a JSON-serialisable record of a contraction order for one network structure:
+the SSA path, the sliced indices (in canonical numbering), cost figures and the options used.
+Finding a plan (:func:`find_plan`) is separate from running it (:mod:`contraction.executor`), and
+cost queries on a plan are cheap: they read stored numbers.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import time
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+
+from .errors import MemoryLimitError, PlanError
+from .network import NetworkStructure
+
+PLAN_FORMAT = "veramp-plan-v1"
+
+
+def kahypar_available() -> bool:
+    try:
+        import kahypar  # noqa: F401
+    except ImportError:
+        return False
+    return True
+
+
+@dataclass(frozen=True)
+class Plan:
+    network_key: str
+    ssa_path: tuple[tuple[int, ...], ...]
+    sliced: tuple[int, ...]          # canonical index numbers
+    madds: float                     # complex multiply-adds, all slices
+    madds_unsliced: float            # the same tree without slicing
+    width: float                     # log2 of the largest intermediate (per slice)
+    peak_elements: float             # peak concurrent elements of one slice
+    nslices: int
+    options: dict = field(default_factory=dict)
+
+    # ---- cheap cost queries
+    @property
+    def flops(self) -> float:
+        """Real floating-point operations: 8 per complex multiply-add."""
+        return 8.0 * self.madds
+
+    @property
+    def slicing_overhead(self) -> float:
+        return self.madds / self.madds_unsliced if self.madds_unsliced else 1.0
+
+    def peak_bytes(self, dtype="complex128") -> int:
+        return int(self.peak_elements * np.dtype(dtype).itemsize)
+
+    # ---- plain data
+    def to_dict(self) -> dict:
+        doc = asdict(self)
+        doc["format"] = PLAN_FORMAT
+        doc["ssa_path"] = [list(p) for p in self.ssa_path]
+        doc["sliced"] = list(self.sliced)
+        doc["checksum"] = _checksum(doc)
+        return doc
+
+    def to_json(self) -> str:
+        return json.dumps(self.to_dict(), sort_keys=True)
+
+    @property
+    def plan_hash(self) -> str:
+        return _checksum(self.to_dict())
+
+    @classmethod
+    def from_dict(cls, doc: dict) -> "Plan":
+        """Load a stored plan; raises :class:`PlanError` if it is malformed or tampered with."""
+        if not isinstance(doc, dict) or doc.get("format") != PLAN_FORMAT:
+            raise PlanError("stored plan has an unknown format")
+        if doc.get("checksum") != _checksum(doc):
+            raise PlanError("stored plan fails its checksum (corrupted or tampered)")
+        try:
+            return cls(
+                network_key=str(doc["network_key"]),
+                ssa_path=tuple(tuple(int(i) for i in p) for p in doc["ssa_path"]),
+                sliced=tuple(int(i) for i in doc["sliced"]),
+                madds=float(doc["madds"]), madds_unsliced=float(doc["madds_unsliced"]),
+                width=float(doc["width"]), peak_elements=float(doc["peak_elements"]),
+                nslices=int(doc["nslices"]), options=dict(doc.get("options") or {}),
+            )
+        except (KeyError, TypeError, ValueError) as exc:
+            raise PlanError(f"stored plan is malformed: {exc}") from None
+
+    @classmethod
+    def from_json(cls, text: str) -> "Plan":
+        try:
+            return cls.from_dict(json.loads(text))
+        except json.JSONDecodeError as exc:
+            raise PlanError(f"stored plan is not valid JSON: {exc}") from None
+
+    # ---- back to a cotengra tree
+    def tree(self, structure: NetworkStructure):
+        """Rebuild the (sliced) contraction tree; checks that the plan fits ``structure``."""
+        import cotengra as ctg
+
+        if structure.key != self.network_key:
+            raise PlanError("plan belongs to another network structure")
+        try:
+            tree = ctg.ContractionTree.from_path(structure.inputs, structure.output, structure.size_dict,
+                                                 ssa_path=[list(p) for p in self.ssa_path], check=True)
+            labels = structure.labels
+            for c in self.sliced:
+                tree.remove_ind_(labels[c])
+        except PlanError:
+            raise
+        except Exception as exc:  # a malformed path makes cotengra raise many kinds of errors
+            raise PlanError(f"stored plan does not fit the network: {exc}") from None
+        if structure.num_tensors > 1 and not math.isclose(tree.contraction_cost(), self.madds, rel_tol=1e-9):
+            raise PlanError("stored plan's cost does not match its tree (corrupted)")
+        return tree
+
+
+def _checksum(doc: dict) -> str:
+    body = {k: v for k, v in doc.items() if k != "checksum"}
+    blob = json.dumps(body, sort_keys=True, separators=(",", ":")).encode()
+    return hashlib.sha256(blob).hexdigest()
+
+
+def plan_from_tree(tree, structure: NetworkStructure, options: dict) -> Plan:
+    canon = structure.canonical
+    sliced = tuple(canon[ix] for ix in tree.sliced_inds)
+    if tree.sliced_inds:
+        unsliced = tree.copy()
+        unsliced.unslice_all_()
+        madds_unsliced = float(unsliced.contraction_cost())
+    else:
+        madds_unsliced = float(tree.contraction_cost())
+    return Plan(
+        network_key=structure.key,
+        ssa_path=tuple(tuple(int(i) for i in p) for p in tree.get_ssa_path()),
+        sliced=sliced,
+        madds=float(tree.contraction_cost()),
+        madds_unsliced=madds_unsliced,
+        width=float(tree.contraction_width()) if structure.num_tensors > 1 else 0.0,
+        peak_elements=float(tree.peak_size()),
+        nslices=int(tree.nslices),
+        options=options,
+    )
+
+
+@dataclass(frozen=True)
+class PlannerOptions:
+    """How hard to search: a time budget, a repeat cap and a memory target per slice."""
+
+    budget_seconds: float = 2.0
+    max_repeats: int = 32
+    max_elements: float | None = None     # largest intermediate allowed (elements); None = no cap
+    minimize: str = "flops"
+    seed: int = 0
+    parallel: bool | int = False          # explicit: never 'auto'
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOptions()) -> Plan:
+    """Search a contraction tree for ``structure`` within ``options``' budget."""
+    import cotengra as ctg
+
+    t0 = time.perf_counter()
+    methods = ["greedy", "kahypar"] if kahypar_available() else ["greedy", "labels"]
+    inputs, output, sizes = structure.inputs, structure.output, structure.size_dict
+    if structure.num_tensors <= 2:
+        tree = ctg.ContractionTree.from_path(inputs, output, sizes, path=[(0, 1)] if structure.num_tensors == 2 else [])
+    else:
+        kwargs = {}
+        if options.max_elements is not None:
+            target = max(2, int(options.max_elements))
+            kwargs["slicing_reconf_opts"] = {"target_size": target, "reconf_opts": {}}
+        opt = ctg.HyperOptimizer(
+            methods=methods, minimize=options.minimize, max_repeats=options.max_repeats,
+            max_time=options.budget_seconds, parallel=options.parallel, progbar=False,
+            on_trial_error="ignore", **kwargs,
+        )
+        import random
+
+        state = random.getstate()
+        random.seed(options.seed)
+        try:
+            tree = opt.search(inputs, output, sizes)
+        finally:
+            random.setstate(state)
+    if options.max_elements is not None and tree.max_size() > options.max_elements:
+        raise MemoryLimitError(
+            f"no plan found whose largest intermediate ({tree.max_size():.3g} elements) fits the cap of "
+            f"{options.max_elements:.3g} elements; raise the memory cap or the planning budget")
+    record = options.to_dict()
+    record["methods"] = methods
+    record["search_seconds"] = round(time.perf_counter() - t0, 3)
+    return plan_from_tree(tree, structure, record)

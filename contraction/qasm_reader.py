@@ -1,0 +1,488 @@
+"""Read OpenQASM 2.0 and the unitary core of OpenQASM 3 into a :class:`Circuit`.
+
+Supported: ``OPENQASM``, ``include`` of the built-in ``qelib1.inc``/``stdgates.inc`` (never a file
+read), ``qreg``/``creg``/``qubit``/``bit`` declarations (several registers), register broadcast,
+``gate`` definitions, ``opaque`` declarations, the modifiers ``ctrl``/``negctrl``/``inv``/``pow``,
+``U``, ``CX`` and ``gphase``, ``const`` numeric declarations, ``barrier`` (ignored),
+``measure`` at the end of a qubit's life (ignored) and ``reset`` of a qubit still in |0> (a no-op).
+
+Rejected with a message: classical control, gates after a measurement, a reset of a used qubit,
+loops, subroutines and other constructs with no meaning for a pure amplitude.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import gates as G
+from .circuit import Circuit, Gate
+from .errors import ParseError, UnsupportedError
+from .qasm_lexer import CONSTANTS, ExpressionParser, Source, evaluate, tokenize
+from .statevector import compose
+
+DEFAULT_MAX_QUBITS = 4096
+
+_UNSUPPORTED = {
+    "if": "classical control ('if') has no meaning for a pure amplitude",
+    "while": "loops ('while') are not supported",
+    "for": "loops ('for') are not supported",
+    "def": "subroutines ('def') are not supported",
+    "defcal": "calibration blocks ('defcal') have no meaning for an amplitude",
+    "cal": "calibration blocks ('cal') have no meaning for an amplitude",
+    "box": "'box' is not supported",
+    "delay": "'delay' has no meaning for an ideal amplitude",
+    "extern": "'extern' is not supported",
+    "input": "'input' parameters are not supported; substitute values before submitting",
+    "output": "'output' declarations are not supported",
+    "let": "'let' aliases are not supported",
+    "switch": "classical control ('switch') has no meaning for a pure amplitude",
+    "return": "'return' is not supported", "break": "'break' is not supported",
+    "continue": "'continue' is not supported", "end": "'end' is not supported",
+}
+_TYPES = {"int", "uint", "float", "angle", "bool", "complex", "duration", "stretch", "array"}
+
+
+@dataclass
+class _GateDef:
+    params: list[str]
+    qargs: list[str]
+    body: list[tuple]  # (mods, name, param exprs, qarg names, offset)
+    offset: int
+
+
+@dataclass
+class _Sink:
+    """Where applied gates go: the circuit (top level) or a local list (composing a matrix)."""
+
+    gates: list
+    phase: float = 0.0
+    top: bool = False
+
+
+class QasmReader(ExpressionParser):
+    def __init__(self, text: str, source: str = "<circuit>", max_qubits: int = DEFAULT_MAX_QUBITS):
+        self.src = Source(text, source)
+        self.toks = tokenize(self.src)
+        self.i = 0
+        self.max_qubits = max_qubits
+        self.qregs: dict[str, tuple[int, int]] = {}
+        self.cregs: dict[str, int] = {}
+        self.num_qubits = 0
+        self.defs: dict[str, _GateDef] = {}
+        self.opaque: set[str] = set()
+        self.available: set[str] = set()
+        self.consts: dict[str, float] = dict(CONSTANTS)
+        self.measured: set[int] = set()
+        self.touched: set[int] = set()
+        self.sink = _Sink([], top=True)
+
+    # ------------------------------------------------------------------ helpers
+    def _err(self, message: str, offset: int, cls=ParseError) -> ParseError:
+        return self.src.error(message, offset, cls)
+
+    def _ident(self, what: str = "a name") -> tuple[str, int]:
+        kind, text, pos = self.toks[self.i]
+        if kind != "id":
+            shown = text if kind != "eof" else "end of file"
+            raise self._err(f"expected {what}, found {shown!r}", pos)
+        self.i += 1
+        return text, pos
+
+    def _int(self, what: str) -> int:
+        kind, text, pos = self.toks[self.i]
+        if kind != "num" or not text.replace("_", "").isdigit():
+            raise self._err(f"expected {what} (a whole number), found {text!r}", pos)
+        self.i += 1
+        return int(text.replace("_", ""))
+
+    # ------------------------------------------------------------------ entry point
+    def read(self) -> Circuit:
+        toks = self.toks
+        if toks[0][0] == "eof":
+            raise self._err("the circuit text is empty", 0)
+        first = True
+        while toks[self.i][0] != "eof":
+            self._statement(first)
+            first = False
+        if self.num_qubits == 0:
+            raise self._err("the program declares no qubits", toks[-1][2])
+        return Circuit(self.num_qubits, self.sink.gates, self.sink.phase, self.src.name, validate=False)
+
+    def _statement(self, first: bool) -> None:
+        kind, word, pos = self.toks[self.i]
+        if kind != "id":
+            if word == "{" or word == "}":
+                raise self._err(f"unexpected {word!r}", pos)
+            if word == "@":
+                raise self._err("annotations ('@...') are not supported", pos, UnsupportedError)
+            raise self._err(f"expected a statement, found {word!r}", pos)
+        if word == "OPENQASM":
+            if not first:
+                raise self._err("'OPENQASM' must be the first statement", pos)
+            self.i += 1
+            kind, text, vpos = self.toks[self.i]
+            if kind != "num" or text.split(".")[0] not in ("2", "3"):
+                raise self._err(f"unsupported OpenQASM version {text!r} (2.x and 3.x are read)", vpos)
+            self.i += 1
+            self.expect(";")
+        elif word == "include":
+            self.i += 1
+            kind, text, spos = self.toks[self.i]
+            if kind != "str":
+                raise self._err("expected a quoted file name after 'include'", spos)
+            name = text[1:-1]
+            if name not in G.INCLUDE_FILES:
+                raise self._err(f"include {text} is not allowed: only the built-in 'qelib1.inc' and "
+                                f"'stdgates.inc' resolve, and no file is ever read", spos)
+            self.available |= G.INCLUDE_FILES[name]
+            self.i += 1
+            self.expect(";")
+        elif word in ("qreg", "creg"):
+            self.i += 1
+            name, npos = self._ident("a register name")
+            self.expect("[")
+            size = self._int("a register size")
+            self.expect("]")
+            self.expect(";")
+            self._declare(word == "qreg", name, size, npos)
+        elif word in ("qubit", "bit"):
+            self.i += 1
+            size = 1
+            if self.accept("["):
+                size = self._int("a register size")
+                self.expect("]")
+            name, npos = self._ident("a register name")
+            if self.toks[self.i][1] == "=":
+                raise self._err("initialised bit registers are not supported", self.toks[self.i][2],
+                                UnsupportedError)
+            self.expect(";")
+            self._declare(word == "qubit", name, size, npos)
+        elif word == "gate":
+            self.i += 1
+            self._gate_definition()
+        elif word == "opaque":
+            self.i += 1
+            name, _ = self._ident("a gate name")
+            while not self.accept(";"):
+                if self.toks[self.i][0] == "eof":
+                    raise self._err("expected ';'", self.toks[self.i][2])
+                self.i += 1
+            self.opaque.add(name)
+        elif word == "barrier":
+            self.i += 1
+            self._arguments()
+            self.expect(";")
+        elif word == "measure":
+            self.i += 1
+            qubits = self._arguments()
+            if self.accept("->"):
+                self._classical_target(pos)
+            self.expect(";")
+            self._mark_measured(qubits)
+        elif word == "reset":
+            self.i += 1
+            for group in self._arguments():
+                for q in group:
+                    if q in self.touched or q in self.measured:
+                        raise self._err("reset of a qubit that is no longer in |0> has no meaning for a "
+                                        "pure amplitude", pos, UnsupportedError)
+            self.expect(";")
+        elif word == "const":
+            self.i += 1
+            self._const_declaration()
+        elif word in _UNSUPPORTED:
+            raise self._err(_UNSUPPORTED[word], pos, UnsupportedError)
+        elif word in _TYPES:
+            raise self._err(f"classical variables ('{word}') are not supported; use 'const'", pos,
+                            UnsupportedError)
+        elif word in self.cregs and self.toks[self.i + 1][1] in ("=", "["):
+            # OpenQASM 3 'c = measure q;' or 'c[0] = measure q[0];'
+            self.i += 1
+            if self.accept("["):
+                self.expression()
+                self.expect("]")
+            self.expect("=")
+            if self.toks[self.i][1] != "measure":
+                raise self._err("classical assignments are not supported", self.toks[self.i][2],
+                                UnsupportedError)
+            self.i += 1
+            qubits = self._arguments()
+            self.expect(";")
+            self._mark_measured(qubits)
+        else:
+            self._gate_call()
+
+    def _declare(self, quantum: bool, name: str, size: int, pos: int) -> None:
+        if name in self.qregs or name in self.cregs or name in self.consts:
+            raise self._err(f"{name!r} is already declared", pos)
+        if size < 1:
+            raise self._err(f"register {name!r} must have at least one element", pos)
+        if quantum:
+            if self.num_qubits + size > self.max_qubits:
+                raise self._err(f"register {name!r} of {size} qubits exceeds the limit of "
+                                f"{self.max_qubits} qubits in total", pos)
+            self.qregs[name] = (self.num_qubits, size)
+            self.num_qubits += size
+        else:
+            self.cregs[name] = size
+
+    def _const_declaration(self) -> None:
+        ty, tpos = self._ident("a type")
+        if ty not in ("int", "uint", "float", "angle"):
+            raise self._err(f"constants of type {ty!r} are not supported", tpos, UnsupportedError)
+        if self.accept("["):
+            self.expression()
+            self.expect("]")
+        name, npos = self._ident("a constant name")
+        self.expect("=")
+        value = evaluate(self.expression(), self.consts, self.src)
+        self.expect(";")
+        if name in self.consts or name in self.qregs:
+            raise self._err(f"{name!r} is already declared", npos)
+        self.consts[name] = value
+
+    def _classical_target(self, pos: int) -> None:
+        name, npos = self._ident("a classical register")
+        if name not in self.cregs:
+            raise self._err(f"unknown classical register {name!r}", npos)
+        if self.accept("["):
+            idx = self._int("a bit index")
+            if idx >= self.cregs[name]:
+                raise self._err(f"bit index {idx} is out of range for {name}[{self.cregs[name]}]", npos)
+            self.expect("]")
+
+    def _mark_measured(self, groups: list[list[int]]) -> None:
+        for group in groups:
+            self.measured.update(group)
+
+    # ------------------------------------------------------------------ qubit arguments
+    def _arguments(self) -> list[list[int]]:
+        """A comma-separated list of qubit operands, each a list of qubit indices."""
+        out = [self._operand()]
+        while self.accept(","):
+            out.append(self._operand())
+        return out
+
+    def _operand(self) -> list[int]:
+        name, pos = self._ident("a qubit operand")
+        if name.startswith("$"):
+            raise self._err("physical qubits ('$n') are not supported; declare a register", pos,
+                            UnsupportedError)
+        if name not in self.qregs:
+            if name in self.cregs:
+                raise self._err(f"{name!r} is a classical register, not qubits", pos)
+            raise self._err(f"unknown quantum register {name!r}", pos)
+        offset, size = self.qregs[name]
+        if self.accept("["):
+            kind, text, ipos = self.toks[self.i]
+            idx = self._int("a qubit index")
+            if idx >= size:
+                raise self._err(f"qubit index {idx} is out of range for {name}[{size}]", ipos)
+            self.expect("]")
+            return [offset + idx]
+        return list(range(offset, offset + size))
+
+    # ------------------------------------------------------------------ gate definitions
+    def _gate_definition(self) -> None:
+        name, npos = self._ident("a gate name")
+        params: list[str] = []
+        if self.accept("("):
+            if not self.accept(")"):
+                params.append(self._ident("a parameter name")[0])
+                while self.accept(","):
+                    params.append(self._ident("a parameter name")[0])
+                self.expect(")")
+        qargs = [self._ident("a qubit argument")[0]]
+        while self.accept(","):
+            qargs.append(self._ident("a qubit argument")[0])
+        if len(set(qargs)) != len(qargs):
+            raise self._err(f"gate {name!r} repeats a qubit argument", npos)
+        self.expect("{")
+        body = []
+        while not self.accept("}"):
+            kind, word, pos = self.toks[self.i]
+            if kind == "eof":
+                raise self._err(f"gate {name!r}: missing '}}'", npos)
+            if word == "barrier":
+                self.i += 1
+                self._ident("a qubit argument")
+                while self.accept(","):
+                    self._ident("a qubit argument")
+                self.expect(";")
+                continue
+            mods, gname, gpos, exprs = self._call_head()
+            args: list[str] = []
+            if self.toks[self.i][1] != ";":
+                args.append(self._ident("a qubit argument")[0])
+                while self.accept(","):
+                    args.append(self._ident("a qubit argument")[0])
+            self.expect(";")
+            for a in args:
+                if a not in qargs:
+                    raise self._err(f"gate {name!r}: {a!r} is not one of its qubit arguments", gpos)
+            self._check_arity(gname, len(exprs), len(args), mods, gpos, local=set(params))
+            body.append((mods, gname, exprs, args, gpos))
+        self.defs[name] = _GateDef(params, qargs, body, npos)
+        self.available.discard(name)  # a user definition shadows a library gate of the same name
+
+    # ------------------------------------------------------------------ gate calls
+    def _call_head(self):
+        """Modifiers, gate name and parameter expressions of a gate call."""
+        mods = []
+        while True:
+            kind, word, pos = self.toks[self.i]
+            if kind == "id" and word in ("ctrl", "negctrl", "inv", "pow") and self.toks[self.i + 1][1] in ("@", "("):
+                self.i += 1
+                arg = None
+                if self.accept("("):
+                    arg = self.expression()
+                    self.expect(")")
+                elif word == "pow":
+                    raise self._err("'pow' needs an exponent: pow(k) @", pos)
+                self.expect("@")
+                mods.append((word, arg, pos))
+            else:
+                break
+        gname, gpos = self._ident("a gate name")
+        exprs = []
+        if self.accept("("):
+            if not self.accept(")"):
+                exprs.append(self.expression())
+                while self.accept(","):
+                    exprs.append(self.expression())
+                self.expect(")")
+        return mods, gname, gpos, exprs
+
+    def _signature(self, name: str, pos: int) -> tuple[int, int]:
+        """(number of parameters, number of qubits) of a known gate."""
+        if name in self.defs:
+            d = self.defs[name]
+            return len(d.params), len(d.qargs)
+        if name == "U":
+            return 3, 1
+        if name == "CX":
+            return 0, 2
+        if name == "gphase":
+            return 1, 0
+        if name in self.opaque:
+            raise self._err(f"gate {name!r} is opaque: it has no matrix", pos, UnsupportedError)
+        if name in self.available:
+            if name in G.BODY_DEFINED:
+                return 0, len(G.BODY_DEFINED[name][0].split(","))
+            spec = G.LIBRARY[name]
+            return spec.num_params, spec.num_qubits
+        if name in G.LIBRARY or name in G.BODY_DEFINED:
+            raise self._err(f"gate {name!r} is not defined; add 'include \"qelib1.inc\";' (OpenQASM 2) or "
+                            f"'include \"stdgates.inc\";' (OpenQASM 3)", pos)
+        if name in self.qregs or name in self.cregs:
+            raise self._err(f"{name!r} is a register, not a gate", pos)
+        raise self._err(f"unknown gate {name!r}", pos)
+
+    def _check_arity(self, name, nparams, nqubits, mods, pos, local=frozenset()) -> None:
+        want_p, want_q = self._signature(name, pos)
+        extra = 0
+        for word, arg, mpos in mods:
+            if word in ("ctrl", "negctrl"):
+                if arg is None:
+                    extra += 1
+                elif arg[0] == "num" and float(arg[1]).is_integer() and arg[1] >= 1:
+                    extra += int(arg[1])
+                else:
+                    raise self._err(f"'{word}' needs a positive whole number of controls", mpos)
+        if nparams != want_p:
+            raise self._err(f"gate {name!r} takes {want_p} parameter(s), got {nparams}", pos)
+        if nqubits != want_q + extra:
+            raise self._err(f"gate {name!r} acts on {want_q + extra} qubit(s), got {nqubits}", pos)
+
+    def _gate_call(self) -> None:
+        mods, name, pos, exprs = self._call_head()
+        groups = self._arguments() if self.toks[self.i][1] != ";" else []
+        self.expect(";")
+        self._check_arity(name, len(exprs), len(groups), mods, pos)
+        params = [evaluate(e, self.consts, self.src) for e in exprs]
+        mods = [(w, None if a is None else evaluate(a, self.consts, self.src), p) for w, a, p in mods]
+        sizes = {len(g) for g in groups if len(g) > 1}
+        if len(sizes) > 1:
+            raise self._err(f"registers of different sizes {sorted(sizes)} in one broadcast", pos)
+        reps = sizes.pop() if sizes else 1
+        for r in range(reps):
+            qubits = tuple(g[r] if len(g) > 1 else g[0] for g in groups)
+            if len(set(qubits)) != len(qubits):
+                raise self._err(f"gate {name!r} is given the same qubit twice", pos)
+            for q in qubits:
+                if q in self.measured:
+                    raise self._err(f"gate {name!r} acts on a qubit after it was measured; amplitudes need "
+                                    f"measurements at the end", pos, UnsupportedError)
+            self.touched.update(qubits)
+            self._apply(name, params, qubits, mods, pos, self.sink)
+
+    def _apply(self, name, params, qubits, mods, pos, sink: _Sink) -> None:
+        if mods:
+            m = self._matrix(name, params, pos)
+            for word, arg, mpos in reversed(mods):
+                if word == "inv":
+                    m = G.inverse(m)
+                elif word == "pow":
+                    m = G.power(m, arg)
+                else:
+                    n = 1 if arg is None else int(arg)
+                    m = G.controlled(m, n, (2 ** n - 1) if word == "ctrl" else 0)
+            if m.shape[0] == 1:
+                sink.phase += float(np.angle(m[0, 0]))
+            else:
+                sink.gates.append(Gate(qubits, m, name))
+            return
+        d = self.defs.get(name)
+        if d is not None:
+            env = dict(self.consts)
+            env.update(zip(d.params, params))
+            for bmods, bname, bexprs, bargs, bpos in d.body:
+                bq = tuple(qubits[d.qargs.index(a)] for a in bargs)
+                bp = [evaluate(e, env, self.src) for e in bexprs]
+                bm = [(w, None if a is None else evaluate(a, env, self.src), p) for w, a, p in bmods]
+                self._apply(bname, bp, bq, bm, bpos, sink)
+            return
+        if name == "gphase":
+            sink.phase += params[0]
+            return
+        sink.gates.append(Gate(qubits, self._matrix(name, params, pos), name, name, tuple(params)))
+
+    def _matrix(self, name, params, pos) -> np.ndarray:
+        """The matrix of a named gate (library or user-defined) on its own qubits."""
+        if name == "U":
+            return G.u_gate(*params)
+        if name == "CX":
+            return G.CX
+        if name == "gphase":
+            return np.array([[np.exp(1j * params[0])]])
+        if name in self.defs:
+            d = self.defs[name]
+            local = _Sink([])
+            self._apply(name, params, tuple(range(len(d.qargs))), [], pos, local)
+            return compose(len(d.qargs), local.gates, local.phase)
+        if name in G.BODY_DEFINED:
+            return _body_matrix(name)
+        return G.LIBRARY[name].factory(*params)
+
+
+_BODY_CACHE: dict[str, np.ndarray] = {}
+
+
+def _body_matrix(name: str) -> np.ndarray:
+    if name not in _BODY_CACHE:
+        args, body = G.BODY_DEFINED[name]
+        text = f'OPENQASM 2.0; include "qelib1.inc"; qreg q[{len(args.split(","))}]; ' \
+               f"gate {name}_ {args} {{ {body} }} {name}_ " + ",".join(
+                   f"q[{i}]" for i in range(len(args.split(",")))) + ";"
+        circ = QasmReader(text, f"<{name}>").read()
+        m = compose(circ.num_qubits, circ.gates, circ.global_phase)
+        m.setflags(write=False)
+        _BODY_CACHE[name] = m
+    return _BODY_CACHE[name]
+
+
+def read_qasm(text: str, source: str = "<circuit>", max_qubits: int = DEFAULT_MAX_QUBITS) -> Circuit:
+    """Parse OpenQASM 2.0 or 3 text into a :class:`Circuit` (raises :class:`ParseError`)."""
+    return QasmReader(text, source, max_qubits).read()
