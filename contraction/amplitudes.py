@@ -12,15 +12,16 @@ Two engines:
 
 from __future__ import annotations
 
+import math
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Iterable, Protocol
 
 import numpy as np
 
 from .bitstrings import check_bitstrings
 from .circuit import Circuit
-from .errors import VerampError
+from .errors import MemoryLimitError, VerampError
 from .executor import CancelCheck, ProgressCallback, contract_scalar
 from .network import NetworkStructure, build_structure, tensor_arrays
 from .planner import Plan, PlannerOptions, find_plan
@@ -104,14 +105,29 @@ def _dtype(name: str):
         raise VerampError(f"unknown dtype {name!r}; choose complex128 or complex64") from None
 
 
-def network_plan(structure: NetworkStructure, cache: PlanCache | None,
-                 options: PlannerOptions) -> tuple[Plan, bool]:
-    """The cached plan for ``structure`` or a new one (stored in ``cache``)."""
+#: default memory cap of one contraction (peak bytes of all live tensors)
+DEFAULT_MEMORY_BYTES = 8 * 2 ** 30
+
+
+def network_plan(structure: NetworkStructure, cache: PlanCache | None, options: PlannerOptions,
+                 memory_bytes: float = DEFAULT_MEMORY_BYTES, dtype="complex128") -> tuple[Plan, bool]:
+    """A plan for ``structure`` whose peak fits ``memory_bytes``: the cached one or a new one.
+
+    Raises :class:`MemoryLimitError` when no plan within the cap is found; a plan over the cap
+    is never returned.
+    """
     if cache is not None:
         plan = cache.get(structure.key)
-        if plan is not None:
+        if plan is not None and plan.peak_bytes(dtype) <= memory_bytes:
             return plan, True
+    itemsize = np.dtype(dtype).itemsize
+    # the peak holds a contraction's two inputs and its output at once: aim each below a quarter
+    options = replace(options, max_elements=min(options.max_elements or math.inf,
+                                                 memory_bytes / itemsize / 4))
     plan = find_plan(structure, options)
+    if plan.peak_bytes(dtype) > memory_bytes:
+        raise MemoryLimitError(f"the best plan found needs {plan.peak_bytes(dtype):.4g} bytes at its peak, "
+                               f"over the memory cap of {memory_bytes:.4g} bytes")
     if cache is not None:
         cache.put(plan)
     return plan, False
@@ -119,20 +135,26 @@ def network_plan(structure: NetworkStructure, cache: PlanCache | None,
 
 def amplitudes(circuit: Circuit, bitstrings: Iterable[str], *, dtype: str = "complex128",
                engine: str = "auto", planner: PlannerOptions | None = None,
-               plan_cache: PlanCache | None = None, progress: ProgressCallback | None = None,
+               plan_cache: PlanCache | None = None, memory_bytes: float = DEFAULT_MEMORY_BYTES,
+               progress: ProgressCallback | None = None,
                cancelled: CancelCheck | None = None) -> AmplitudeRun:
     """Exact amplitudes of ``circuit`` for ``bitstrings`` (qubit 0 first), in input order."""
     t0 = time.perf_counter()
     bits = check_bitstrings(bitstrings, circuit.num_qubits)
     dt = _dtype(dtype)
     chosen, reason = choose_engine(circuit, engine)
+    if chosen == "statevector" and 2 ** circuit.num_qubits * np.dtype(dt).itemsize * 2 > memory_bytes:
+        if engine == "statevector":
+            raise MemoryLimitError(f"a {circuit.num_qubits}-qubit state vector does not fit the memory cap "
+                                   f"of {memory_bytes:.4g} bytes")
+        chosen, reason = "network", "a state vector would not fit the memory cap"
     phase = np.exp(1j * circuit.global_phase)
     if chosen == "statevector":
         psi = state_vector(circuit, dtype=dt)
         results = [Amplitude(b, complex(psi[int(b, 2)])) for b in bits]
         return AmplitudeRun(results, chosen, reason, dtype, time.perf_counter() - t0)
     structure = build_structure(circuit)
-    plan, hit = network_plan(structure, plan_cache, planner or PlannerOptions())
+    plan, hit = network_plan(structure, plan_cache, planner or PlannerOptions(), memory_bytes, dtype)
     tree = plan.tree(structure)
     results = []
     for b in bits:

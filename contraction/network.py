@@ -32,10 +32,10 @@ def _symbol(i: int) -> str:
 class NetworkStructure:
     """The layout of a network: index labels per tensor, the output and the index sizes.
 
-    ``sources[t]`` says where tensor t's values come from:
-    ``("init", q)``, ``("gate", g, pre)`` with ``pre`` a tuple of (qubit position, single-qubit
-    gate indices) to multiply in first, or ``("proj", q, post)`` with the single-qubit gate
-    indices that come after the last multi-qubit gate on q.
+    ``sources[t]`` says where tensor t's values come from: ``("init", q)``;
+    ``("gate", qubits, steps)`` with steps applied in order, each ``("pre", qubits, q, ids)``
+    (single-qubit gates ``ids`` on wire q) or ``("gate", g)`` (circuit gate g); or
+    ``("proj", q, post)`` with the single-qubit gates after the last multi-qubit gate on q.
     """
 
     num_qubits: int
@@ -79,40 +79,53 @@ class NetworkStructure:
 
 
 def build_structure(circuit: Circuit) -> NetworkStructure:
-    """The network of a single amplitude of ``circuit`` (a scalar: no output indices)."""
+    """The network of a single amplitude of ``circuit`` (a scalar: no output indices).
+
+    Layout-only fusion rules: single-qubit gates wait on their wire and are multiplied into the
+    next multi-qubit gate there (or into the projector); a multi-qubit gate whose qubit set equals
+    that of the tensor last written on all its wires is multiplied into that tensor.
+    """
     n = circuit.num_qubits
     counter = 0
     wire: list[str] = []
+    last: list[int] = [-1] * n          # tensor that last wrote each wire (-1: the |0> vector)
     inputs: list[tuple[str, ...]] = []
-    sources: list[tuple] = []
+    sources: list = []
     for q in range(n):
         wire.append(_symbol(counter))
         counter += 1
         inputs.append((wire[q],))
         sources.append(("init", q))
     pending: list[list[int]] = [[] for _ in range(n)]
+    tensor_qubits: dict[int, tuple[int, ...]] = {}
     for gi, gate in enumerate(circuit.gates):
         qs = gate.qubits
         if len(qs) == 1:
             pending[qs[0]].append(gi)
             continue
+        steps = [("pre", qs, q, tuple(pending[q])) for q in qs if pending[q]]
+        for q in qs:
+            pending[q] = []
+        t = last[qs[0]]
+        if t >= 0 and all(last[q] == t for q in qs) and set(tensor_qubits[t]) == set(qs):
+            sources[t][2].extend(steps + [("gate", gi)])
+            continue
         outs = []
-        pre = []
-        for pos, q in enumerate(qs):
-            if pending[q]:
-                pre.append((pos, tuple(pending[q])))
-                pending[q] = []
+        for q in qs:
             outs.append(_symbol(counter))
             counter += 1
         ins = [wire[q] for q in qs]
         for q, o in zip(qs, outs):
             wire[q] = o
+            last[q] = len(inputs)
+        tensor_qubits[len(inputs)] = qs
         inputs.append(tuple(outs) + tuple(ins))
-        sources.append(("gate", gi, tuple(pre)))
+        sources.append(("gate", qs, steps + [("gate", gi)]))
     for q in range(n):
         inputs.append((wire[q],))
         sources.append(("proj", q, tuple(pending[q])))
-    return NetworkStructure(n, tuple(inputs), (), tuple(sources))
+    frozen = tuple((s[0], s[1], tuple(s[2])) if s[0] == "gate" else s for s in sources)
+    return NetworkStructure(n, tuple(inputs), (), frozen)
 
 
 _ZERO = np.array([1.0, 0.0])
@@ -125,6 +138,32 @@ def _product(circuit: Circuit, gate_ids) -> np.ndarray:
     return m
 
 
+def _embed(matrix: np.ndarray, acts_on: tuple[int, ...], order: tuple[int, ...]) -> np.ndarray:
+    """A gate on qubits ``acts_on`` (a subset of ``order``) as a matrix in ``order``'s basis."""
+    k, j = len(order), len(acts_on)
+    rest = [q for q in order if q not in acts_on]
+    full = np.kron(matrix, np.eye(2 ** len(rest))) if rest else matrix
+    current = list(acts_on) + rest
+    if current == list(order):
+        return full
+    perm = [current.index(q) for q in order]
+    t = full.reshape((2,) * (2 * k))
+    t = t.transpose(perm + [p + k for p in perm])
+    return t.reshape(2 ** k, 2 ** k)
+
+
+def _gate_tensor(circuit: Circuit, qubits: tuple[int, ...], steps) -> np.ndarray:
+    m = None
+    for step in steps:
+        if step[0] == "pre":
+            part = _embed(_product(circuit, step[3]), (step[2],), qubits)
+        else:
+            gate = circuit.gates[step[1]]
+            part = gate.matrix if gate.qubits == qubits else _embed(gate.matrix, gate.qubits, qubits)
+        m = part if m is None else part @ m
+    return m
+
+
 def tensor_arrays(structure: NetworkStructure, circuit: Circuit, bits: str,
                   dtype=np.complex128) -> list[np.ndarray]:
     """The values of every tensor of ``structure`` for this circuit and bitstring."""
@@ -132,18 +171,8 @@ def tensor_arrays(structure: NetworkStructure, circuit: Circuit, bits: str,
     for src in structure.sources:
         kind = src[0]
         if kind == "gate":
-            gate = circuit.gates[src[1]]
-            m = gate.matrix
-            if src[2]:
-                k = len(gate.qubits)
-                factors = [np.eye(2)] * k
-                for pos, ids in src[2]:
-                    factors[pos] = _product(circuit, ids)
-                pre = factors[0]
-                for f in factors[1:]:
-                    pre = np.kron(pre, f)
-                m = m @ pre
-            arrays.append(np.asarray(m, dtype=dtype).reshape((2,) * (2 * len(gate.qubits))))
+            m = _gate_tensor(circuit, src[1], src[2])
+            arrays.append(np.asarray(m, dtype=dtype).reshape((2,) * (2 * len(src[1]))))
         elif kind == "init":
             arrays.append(_ZERO.astype(dtype))
         else:

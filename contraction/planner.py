@@ -151,8 +151,8 @@ def plan_from_tree(tree, structure: NetworkStructure, options: dict) -> Plan:
 class PlannerOptions:
     """How hard to search: a time budget, a repeat cap and a memory target per slice."""
 
-    budget_seconds: float = 2.0
-    max_repeats: int = 32
+    budget_seconds: float = 5.0
+    max_repeats: int = 64
     max_elements: float | None = None     # largest intermediate allowed (elements); None = no cap
     minimize: str = "flops"
     seed: int = 0
@@ -163,32 +163,40 @@ class PlannerOptions:
 
 
 def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOptions()) -> Plan:
-    """Search a contraction tree for ``structure`` within ``options``' budget."""
+    """Search a contraction tree for ``structure`` within ``options``' budget.
+
+    Three stages: a hyper-optimized search over trees (greedy and, when installed, kahypar
+    partitions; no per-trial refinement so more trials fit the budget), a subtree
+    reconfiguration of the best tree, and — only when its largest intermediate exceeds
+    ``max_elements`` — slicing interleaved with reconfiguration so the sliced overhead stays small.
+    """
+    import random
+
     import cotengra as ctg
 
     t0 = time.perf_counter()
     methods = ["greedy", "kahypar"] if kahypar_available() else ["greedy", "labels"]
     inputs, output, sizes = structure.inputs, structure.output, structure.size_dict
-    if structure.num_tensors <= 2:
-        tree = ctg.ContractionTree.from_path(inputs, output, sizes, path=[(0, 1)] if structure.num_tensors == 2 else [])
-    else:
-        kwargs = {}
-        if options.max_elements is not None:
-            target = max(2, int(options.max_elements))
-            kwargs["slicing_reconf_opts"] = {"target_size": target, "reconf_opts": {}}
-        opt = ctg.HyperOptimizer(
-            methods=methods, minimize=options.minimize, max_repeats=options.max_repeats,
-            max_time=options.budget_seconds, parallel=options.parallel, progbar=False,
-            on_trial_error="ignore", **kwargs,
-        )
-        import random
-
-        state = random.getstate()
-        random.seed(options.seed)
-        try:
+    state = random.getstate()
+    random.seed(options.seed)
+    try:
+        if structure.num_tensors <= 2:
+            path = [(0, 1)] if structure.num_tensors == 2 else []
+            tree = ctg.ContractionTree.from_path(inputs, output, sizes, path=path)
+        else:
+            opt = ctg.HyperOptimizer(
+                methods=methods, minimize=options.minimize, max_repeats=options.max_repeats,
+                max_time=max(0.05, 0.7 * options.budget_seconds), parallel=options.parallel,
+                reconf_opts=None, slicing_opts=None, slicing_reconf_opts=None, progbar=False,
+                on_trial_error="ignore",
+            )
             tree = opt.search(inputs, output, sizes)
-        finally:
-            random.setstate(state)
+            tree = tree.subtree_reconfigure(minimize=options.minimize)
+            if options.max_elements is not None and tree.max_size() > options.max_elements:
+                target = max(2, int(options.max_elements))
+                tree = tree.slice_and_reconfigure(target_size=target, minimize=options.minimize)
+    finally:
+        random.setstate(state)
     if options.max_elements is not None and tree.max_size() > options.max_elements:
         raise MemoryLimitError(
             f"no plan found whose largest intermediate ({tree.max_size():.3g} elements) fits the cap of "

@@ -1,0 +1,23 @@
+"""Load a circuit from text in either accepted format (OpenQASM 2/3 or the JSON document)."""
+
+from __future__ import annotations
+
+from .circuit import Circuit
+from .circuit_json import read_json
+from .qasm_reader import read_qasm
+
+DEFAULT_MAX_QUBITS = 4096
+
+
+def detect_format(text: str) -> str:
+    """``"json"`` when the text is a JSON object, else ``"qasm"``."""
+    return "json" if text.lstrip().startswith("{") else "qasm"
+
+
+def load_circuit(text: str, source: str = "<circuit>", fmt: str = "auto",
+                 max_qubits: int = DEFAULT_MAX_QUBITS) -> Circuit:
+    if fmt == "auto":
+        fmt = detect_format(text)
+    if fmt == "json":
+        return read_json(text, source, max_qubits)
+    return read_qasm(text, source, max_qubits)
