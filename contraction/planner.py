@@ -184,13 +184,19 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
             path = [(0, 1)] if structure.num_tensors == 2 else []
             tree = ctg.ContractionTree.from_path(inputs, output, sizes, path=path)
         else:
-            opt = ctg.HyperOptimizer(
-                methods=methods, minimize=options.minimize, max_repeats=options.max_repeats,
-                max_time=max(0.05, 0.7 * options.budget_seconds), parallel=options.parallel,
-                reconf_opts=None, slicing_opts=None, slicing_reconf_opts=None, progbar=False,
-                on_trial_error="ignore",
-            )
-            tree = opt.search(inputs, output, sizes)
+            # a fast, robust baseline (randomised greedy), then a hyper-optimized search with
+            # what is left of the budget; the cheaper of the two is refined
+            tree = ctg.array_contract_tree(inputs, output, sizes, optimize="random-greedy")
+            left = options.budget_seconds - (time.perf_counter() - t0)
+            if left > 0.1 and structure.num_tensors > 8:
+                opt = ctg.HyperOptimizer(
+                    methods=methods, minimize=options.minimize, max_repeats=options.max_repeats,
+                    max_time=0.7 * left, parallel=options.parallel, reconf_opts=None,
+                    slicing_opts=None, slicing_reconf_opts=None, progbar=False, on_trial_error="ignore",
+                )
+                found = opt.search(inputs, output, sizes)
+                if found.contraction_cost() < tree.contraction_cost():
+                    tree = found
             tree = tree.subtree_reconfigure(minimize=options.minimize)
             if options.max_elements is not None and tree.max_size() > options.max_elements:
                 target = max(2, int(options.max_elements))

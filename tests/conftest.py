@@ -1,0 +1,21 @@
+import numpy as np
+import pytest
+
+from contraction.planner import PlannerOptions
+
+#: a small planning budget keeps the suite fast; the networks in tests are small
+FAST_PLANNER = PlannerOptions(budget_seconds=0.5, max_repeats=8)
+
+
+@pytest.fixture
+def fast_planner() -> PlannerOptions:
+    return FAST_PLANNER
+
+
+@pytest.fixture
+def rng() -> np.random.Generator:
+    return np.random.default_rng(20261202)
+
+
+def random_bitstrings(rng: np.random.Generator, n: int, k: int) -> list[str]:
+    return ["".join("1" if b else "0" for b in rng.integers(0, 2, n)) for _ in range(k)]
