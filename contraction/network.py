@@ -185,6 +185,21 @@ def tensor_arrays(structure: NetworkStructure, circuit: Circuit, bits: str,
     return arrays
 
 
+def fused_gates(circuit: Circuit) -> list:
+    """The circuit's gates after the network's fusion: each multi-qubit tensor as one gate, then
+    the single-qubit gates left at the end of each wire. Same product as ``circuit.gates``."""
+    from .circuit import Gate
+
+    structure = build_structure(circuit)
+    out = []
+    for src in structure.sources:
+        if src[0] == "gate":
+            out.append(Gate(src[1], _gate_tensor(circuit, src[1], src[2])))
+        elif src[0] == "proj" and src[2]:
+            out.append(Gate((src[1],), _product(circuit, src[2])))
+    return out
+
+
 def projector_positions(structure: NetworkStructure) -> list[int]:
     """Tensor positions of the per-qubit output projectors, in qubit order."""
     return [t for t, src in enumerate(structure.sources) if src[0] == "proj"]

@@ -17,20 +17,16 @@ MAX_QUBITS = 28
 
 
 def apply_gate(psi: np.ndarray, matrix: np.ndarray, qubits: Sequence[int]) -> np.ndarray:
-    """Apply a gate to the leading qubit axes of ``psi`` (trailing axes are a batch)."""
+    """Apply a gate to the leading qubit axes of ``psi`` (trailing axes are a batch).
+
+    The gate's axes are moved to the front, one matrix product is taken, and the axes are moved
+    back: two copies and one BLAS call, the fastest of the variants measured on these machines.
+    """
     k = len(qubits)
-    if k == 1:
-        q = qubits[0]
-        shape = psi.shape
-        lead = 1
-        for s in shape[:q]:
-            lead *= s
-        view = psi.reshape(lead, 2, -1)
-        out = np.matmul(matrix.astype(psi.dtype, copy=False), view)
-        return out.reshape(shape)
-    g = matrix.astype(psi.dtype, copy=False).reshape((2,) * (2 * k))
-    out = np.tensordot(g, psi, axes=(list(range(k, 2 * k)), list(qubits)))
-    return np.ascontiguousarray(np.moveaxis(out, list(range(k)), list(qubits)))
+    perm = list(qubits) + [a for a in range(psi.ndim) if a not in qubits]
+    v = psi.transpose(perm).reshape(2 ** k, -1)
+    out = (matrix.astype(psi.dtype, copy=False) @ v).reshape([psi.shape[a] for a in perm])
+    return np.ascontiguousarray(out.transpose(np.argsort(perm)))
 
 
 def apply_gates(psi: np.ndarray, gates: Sequence[Gate]) -> np.ndarray:
@@ -47,9 +43,11 @@ def state_vector(circuit: Circuit, dtype=np.complex128, max_qubits: int = MAX_QU
     if n > max_qubits:
         raise PlanError(f"a state vector of {n} qubits needs {2 ** n * np.dtype(dtype).itemsize} bytes; "
                         f"the state-vector engine is limited to {max_qubits} qubits")
+    from .network import fused_gates
+
     psi = np.zeros((2,) * n, dtype=dtype)
     psi[(0,) * n] = 1.0
-    psi = apply_gates(psi, circuit.gates)
+    psi = apply_gates(psi, fused_gates(circuit))
     if circuit.global_phase:
         psi *= np.exp(1j * circuit.global_phase).astype(dtype)
     return psi.reshape(-1)

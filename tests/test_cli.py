@@ -1,0 +1,87 @@
+"""The veramp command line: output formats and one-line errors.
+
+Expected amplitudes come from closed forms (GHZ: Nielsen & Chuang 2010).
+"""
+
+import json
+import math
+import subprocess
+import sys
+
+import pytest
+
+from service.cli import main
+
+GHZ = 'OPENQASM 2.0;\ninclude "qelib1.inc";\nqreg q[3];\nh q[0];\ncx q[0],q[1];\ncx q[1],q[2];\n'
+
+
+@pytest.fixture
+def ghz_file(tmp_path):
+    p = tmp_path / "ghz.qasm"
+    p.write_text(GHZ)
+    return str(p)
+
+
+def test_amplitudes_json(ghz_file, capsys):
+    assert main(["amplitudes", ghz_file, "-b", "111", "-b", "010", "-b", "000", "--format", "json"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    res = doc["results"]
+    assert [r["bitstring"] for r in res] == ["111", "010", "000"]      # input order
+    assert math.isclose(res[0]["amplitude"][0], 1 / math.sqrt(2), abs_tol=1e-15)
+    assert res[1]["amplitude"] == [0.0, 0.0] and res[1]["probability"] == 0.0
+    assert math.isclose(res[2]["probability"], 0.5, abs_tol=1e-15)
+
+
+@pytest.mark.parametrize("engine", ["network", "statevector"])
+def test_amplitudes_csv_from_file(ghz_file, tmp_path, capsys, engine):
+    bits = tmp_path / "bits.txt"
+    bits.write_text("# sampled\n000\n\n111\n")
+    assert main(["amplitudes", ghz_file, "--bitstrings", str(bits), "--format", "csv", "--engine", engine,
+                 "--budget", "0.2"]) == 0
+    lines = capsys.readouterr().out.strip().splitlines()
+    assert lines[0] == "bitstring,amplitude_re,amplitude_im,probability"
+    assert [line.split(",")[0] for line in lines[1:]] == ["000", "111"]
+    assert math.isclose(float(lines[1].split(",")[3]), 0.5, abs_tol=1e-14)
+
+
+@pytest.mark.parametrize("argv,words", [
+    (["amplitudes", "missing.qasm", "-b", "0"], "no such file"),
+    (["amplitudes", "{ghz}", "-b", "01"], "has 2 characters"),
+    (["amplitudes", "{ghz}"], "give bitstrings"),
+    (["amplitudes", "{bad}", "-b", "000"], "bad.qasm:2:1: unknown gate 'hh'"),
+    (["amplitudes", "{ghz}", "-b", "000", "--engine", "gpu"], "invalid choice"),
+])
+def test_errors_are_one_line(argv, words, ghz_file, tmp_path, capsys):
+    bad = tmp_path / "bad.qasm"
+    bad.write_text("OPENQASM 2.0; include \"qelib1.inc\"; qreg q[3];\nhh q[0];\n")
+    argv = [a.format(ghz=ghz_file, bad=str(bad)) for a in argv]
+    try:
+        code = main(argv)
+    except SystemExit as exc:  # argparse usage errors
+        code = exc.code
+    err = capsys.readouterr().err
+    assert code == 2
+    assert words in err
+    assert err.count("\n") == 1 and err.startswith("veramp: error:")
+    assert "Traceback" not in err
+
+
+def test_console_script_no_traceback(tmp_path):
+    bad = tmp_path / "bad.json"
+    bad.write_text('{"format": "veramp.circuit", "version": 1, "num_qubits": 1, '
+                   '"gates": [{"qubits": [0], "matrix": [[[1,0],[1,0]],[[0,0],[1,0]]]}]}')
+    proc = subprocess.run([sys.executable, "-m", "service.cli", "amplitudes", str(bad), "-b", "0"],
+                          capture_output=True, text=True)
+    assert proc.returncode == 2
+    assert "not unitary" in proc.stderr and "Traceback" not in proc.stderr
+
+
+def test_generate_and_convert_round_trip(tmp_path, capsys):
+    out = tmp_path / "c.json"
+    assert main(["generate", "--grid", "2x3", "--cycles", "4", "--seed", "3", "--format", "json", "-o", str(out)]) == 0
+    assert main(["convert", str(out), "--to", "qasm3", "-o", str(tmp_path / "c.qasm")]) == 0
+    assert main(["amplitudes", str(out), "-b", "010101", "--format", "json"]) == 0
+    a = json.loads(capsys.readouterr().out)["results"][0]["amplitude"]
+    assert main(["amplitudes", str(tmp_path / "c.qasm"), "-b", "010101", "--format", "json"]) == 0
+    b = json.loads(capsys.readouterr().out)["results"][0]["amplitude"]
+    assert math.dist(a, b) < 1e-12

@@ -1,0 +1,136 @@
+"""Circuit text formats: OpenQASM 2/3 features, the JSON document and its schema, round trips.
+
+Semantics checked against the OpenQASM 3 specification (arXiv:2104.14722): modifiers
+(ctrl/negctrl/inv/pow), gphase, broadcast; and against the OpenQASM 2.0 paper (arXiv:1707.03429):
+register broadcast and gate definitions. Equalities are checked with numpy linear algebra.
+"""
+
+import json
+import math
+
+import jsonschema
+import numpy as np
+import pytest
+
+from contraction import gates as G
+from contraction.circuit import Circuit, Gate
+from contraction.circuit_json import read_json, schema, to_document, write_json
+from contraction.qasm_reader import read_qasm
+from contraction.qasm_writer import decompose_lines, write_qasm3, zyz_angles
+from contraction.random_circuits import grid_architecture, haar_unitary, random_instance
+from contraction.statevector import compose, state_vector
+
+
+def unitary_of(text: str) -> np.ndarray:
+    c = read_qasm(text)
+    return compose(c.num_qubits, c.gates, c.global_phase)
+
+
+def test_modifiers_match_linear_algebra():
+    h3 = 'OPENQASM 3.0; include "stdgates.inc"; qubit[3] q;'
+    assert np.allclose(unitary_of(h3 + "ctrl @ x q[0], q[1];"), np.kron(G.CX, np.eye(2)))
+    assert np.allclose(unitary_of(h3 + "ctrl(2) @ x q[0], q[1], q[2];"), G.CCX)
+    neg = unitary_of(h3 + "negctrl @ x q[0], q[1];")
+    assert np.allclose(neg, np.kron(G.controlled(G.X, 1, 0), np.eye(2)))
+    assert np.allclose(unitary_of(h3 + "inv @ t q[0];"), np.kron(G.TDG, np.eye(4)))
+    assert np.allclose(unitary_of(h3 + "pow(0.5) @ z q[0];"), np.kron(G.S, np.eye(4)))
+    assert np.allclose(unitary_of(h3 + "pow(-2) @ s q[0];"), np.kron(G.Z, np.eye(4)))
+    # ctrl @ gphase(a) q is the phase gate p(a) (OpenQASM 3 spec)
+    assert np.allclose(unitary_of(h3 + "ctrl @ gphase(0.7) q[0];"), np.kron(G.phase_gate(0.7), np.eye(4)))
+    c = read_qasm(h3 + "gphase(0.25);")
+    assert math.isclose(c.global_phase, 0.25)
+
+
+def test_gate_definitions_broadcast_and_expressions():
+    text = """OPENQASM 2.0;
+include "qelib1.inc";
+qreg a[2];
+qreg b[2];
+creg c[4];
+gate mix(t) x, y { ry(t/2) x; cx x, y; rz(-t*2^2) y; }
+h a;
+mix(pi/3 + sin(0.2)*exp(1)) a, b;   // broadcast over registers
+barrier a, b;
+measure a -> c[0];
+"""
+    c = read_qasm(text)
+    assert c.num_qubits == 4
+    t = math.pi / 3 + math.sin(0.2) * math.exp(1)
+    ref = Circuit(4, [Gate((0,), G.H), Gate((1,), G.H),
+                      Gate((0,), G.ry(t / 2)), Gate((0, 2), G.CX), Gate((2,), G.rz(-t * 4)),
+                      Gate((1,), G.ry(t / 2)), Gate((1, 3), G.CX), Gate((3,), G.rz(-t * 4))])
+    assert np.allclose(state_vector(c), state_vector(ref))
+
+
+def test_reset_of_fresh_qubit_is_a_no_op_and_oq3_measure_forms():
+    text = 'OPENQASM 3.0; include "stdgates.inc"; qubit[2] q; bit[2] c; reset q; h q[0]; ' \
+           'const float th = pi/5; rx(th) q[1]; c[0] = measure q[0]; c = measure q;'
+    c = read_qasm(text)
+    assert len(c.gates) == 2
+    assert np.allclose(c.gates[1].matrix, G.rx(math.pi / 5))
+
+
+def test_qelib1_extras_parse():
+    text = 'OPENQASM 2.0; include "qelib1.inc"; qreg q[5]; sx q[0]; sxdg q[1]; swap q[0],q[1]; ' \
+           'cswap q[0],q[1],q[2]; crx(0.1) q[0],q[1]; cry(0.2) q[1],q[2]; cu3(0.1,0.2,0.3) q[2],q[3]; ' \
+           'rxx(0.4) q[0],q[1]; ryy(0.5) q[1],q[2]; rzz(0.6) q[2],q[3]; c3x q[0],q[1],q[2],q[3]; ' \
+           'c4x q[0],q[1],q[2],q[3],q[4]; rccx q[0],q[1],q[2]; rc3x q[0],q[1],q[2],q[3]; u2(0.1,0.2) q[4]; ' \
+           'cu1(0.3) q[3],q[4]; cp(0.3) q[3],q[4]; csx q[0],q[4]; u(1,2,3) q[0]; p(0.1) q[1]; id q[2];'
+    c = read_qasm(text)
+    assert len(c.gates) == 21
+    assert abs(np.linalg.norm(state_vector(c)) - 1) < 1e-12
+    # rccx equals ccx up to relative phases: same |amplitudes| on basis states (qelib1 comment)
+    rccx = unitary_of('OPENQASM 2.0; include "qelib1.inc"; qreg q[3]; rccx q[0],q[1],q[2];')
+    assert np.allclose(np.abs(rccx), np.abs(G.CCX))
+
+
+def test_json_schema_accepts_our_documents_and_rejects_bad_ones():
+    c = random_instance(grid_architecture(2, 2, 3), 1, "discrete")
+    doc = to_document(c)
+    jsonschema.validate(doc, schema())
+    named = {"format": "veramp.circuit", "version": 1, "num_qubits": 2,
+             "gates": [{"qubits": [0], "gate": "rx", "params": [0.1]}, {"qubits": [0, 1], "gate": "cx"}]}
+    jsonschema.validate(named, schema())
+    assert read_json(json.dumps(named)).num_qubits == 2
+    for bad in ({**named, "extra": 1}, {**named, "gates": [{"qubits": [0, 0], "gate": "cx"}]},
+                {**named, "format": "x"}, {**named, "gates": [{"qubits": [0], "matrix": [[[1, 0]]], "gate": "x"}]}):
+        with pytest.raises(jsonschema.ValidationError):
+            jsonschema.validate(bad, schema())
+
+
+def test_hashes():
+    arch = grid_architecture(2, 3, 4)
+    a = random_instance(arch, 5)
+    again = read_json(write_json(a))
+    assert again.content_hash == a.content_hash and again.structure_hash == a.structure_hash
+    b = random_instance(arch, 6)
+    assert b.structure_hash == a.structure_hash and b.content_hash != a.content_hash
+    relabelled = Circuit(a.num_qubits, [Gate(g.qubits, g.matrix, "other label") for g in a.gates])
+    assert relabelled.content_hash == a.content_hash          # labels do not change amplitudes
+    shifted = Circuit(a.num_qubits, a.gates, global_phase=0.1)
+    assert shifted.content_hash != a.content_hash
+
+
+def test_zyz_and_two_level_decomposition_exact(rng):
+    for _ in range(20):
+        u = haar_unitary(2, rng)
+        th, ph, la, al = zyz_angles(u)
+        assert np.allclose(np.exp(1j * al) * G.u_gate(th, ph, la), u, atol=1e-12)
+    for k in (2, 3):
+        u = haar_unitary(2 ** k, rng)
+        names = [f"q[{i}]" for i in range(k)]
+        lines, phase = decompose_lines(u, names)
+        back = unitary_of(f'OPENQASM 3.0; include "stdgates.inc"; qubit[{k}] q; ' + " ".join(lines))
+        assert np.allclose(np.exp(1j * phase) * back, u, atol=1e-11)
+
+
+def test_qasm3_export_round_trip_is_exact(rng):
+    for gates in ("haar", "discrete"):
+        c = random_instance(grid_architecture(2, 3, 5), 11, gates)
+        back = read_qasm(write_qasm3(c))
+        assert np.allclose(state_vector(back), state_vector(c), atol=1e-12)
+    named = read_qasm('OPENQASM 2.0; include "qelib1.inc"; qreg q[3]; h q[0]; crz(0.3) q[0],q[1]; '
+                      'iswap q[1],q[2]; rzz(0.2) q[0],q[2]; u3(0.1,0.2,0.3) q[1];')
+    text = write_qasm3(named)
+    assert "crz(0.3) q[0], q[1];" in text and "gate iswap" in text
+    assert np.allclose(state_vector(read_qasm(text)), state_vector(named), atol=1e-12)
