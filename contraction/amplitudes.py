@@ -15,45 +15,28 @@ from __future__ import annotations
 import math
 import time
 from dataclasses import dataclass, field, replace
-from typing import Iterable, Protocol
+import logging
+from typing import Iterable
 
 import numpy as np
 
 from .bitstrings import check_bitstrings
 from .circuit import Circuit
-from .errors import MemoryLimitError, VerampError
+from .errors import MemoryLimitError, PlanError, VerampError
 from .executor import CancelCheck, ProgressCallback, contract_scalar
 from .network import NetworkStructure, build_structure, tensor_arrays
+from .plan_store import PlanStore
 from .planner import Plan, PlannerOptions, find_plan
 from .statevector import MAX_QUBITS as SV_MAX_QUBITS
 from .statevector import state_vector
+
+log = logging.getLogger(__name__)
 
 ENGINES = ("auto", "network", "statevector")
 DTYPES = {"complex128": np.complex128, "complex64": np.complex64}
 
 #: the automatic choice uses the state vector up to this many qubits
 SV_AUTO_QUBITS = 22
-
-
-class PlanCache(Protocol):
-    """Where plans are kept between calls (in memory, or a durable store)."""
-
-    def get(self, network_key: str) -> Plan | None: ...
-
-    def put(self, plan: Plan) -> None: ...
-
-
-class MemoryPlanCache:
-    def __init__(self) -> None:
-        self._plans: dict[str, Plan] = {}
-
-    def get(self, network_key: str) -> Plan | None:
-        return self._plans.get(network_key)
-
-    def put(self, plan: Plan) -> None:
-        old = self._plans.get(plan.network_key)
-        if old is None or plan.madds < old.madds:
-            self._plans[plan.network_key] = plan
 
 
 @dataclass(frozen=True)
@@ -109,34 +92,37 @@ def _dtype(name: str):
 DEFAULT_MEMORY_BYTES = 8 * 2 ** 30
 
 
-def network_plan(structure: NetworkStructure, cache: PlanCache | None, options: PlannerOptions,
-                 memory_bytes: float = DEFAULT_MEMORY_BYTES, dtype="complex128") -> tuple[Plan, bool]:
-    """A plan for ``structure`` whose peak fits ``memory_bytes``: the cached one or a new one.
+def network_plan(structure: NetworkStructure, store: PlanStore | None, options: PlannerOptions,
+                 memory_bytes: float = DEFAULT_MEMORY_BYTES, dtype="complex128"):
+    """``(plan, tree, from_store)`` for ``structure`` with a peak within ``memory_bytes``.
 
-    Raises :class:`MemoryLimitError` when no plan within the cap is found; a plan over the cap
-    is never returned.
+    A stored plan is used when one fits the cap and passes validation against the network;
+    otherwise a new plan is searched and stored. Raises :class:`MemoryLimitError` when no plan
+    within the cap is found: a plan over the cap is never returned.
     """
-    if cache is not None:
-        plan = cache.get(structure.key)
-        if plan is not None and plan.peak_bytes(dtype) <= memory_bytes:
-            return plan, True
-    itemsize = np.dtype(dtype).itemsize
+    cap_elements = memory_bytes / np.dtype(dtype).itemsize
+    if store is not None:
+        plan = store.get(structure.key, cap_elements)
+        if plan is not None:
+            try:
+                return plan, plan.tree(structure), True
+            except PlanError as exc:
+                log.warning("stored plan rejected, planning again: %s", exc)
     # the peak holds a contraction's two inputs and its output at once: aim each below a quarter
-    options = replace(options, max_elements=min(options.max_elements or math.inf,
-                                                 memory_bytes / itemsize / 4))
+    options = replace(options, max_elements=min(options.max_elements or math.inf, cap_elements / 4))
     plan = find_plan(structure, options)
-    if plan.peak_bytes(dtype) > memory_bytes:
+    if plan.peak_elements > cap_elements:
         raise MemoryLimitError(f"the best plan found needs {plan.peak_bytes(dtype):.4g} bytes at its peak, "
                                f"over the memory cap of {memory_bytes:.4g} bytes")
-    if cache is not None:
-        cache.put(plan)
-    return plan, False
+    if store is not None:
+        store.put(plan)
+    return plan, plan.tree(structure), False
 
 
 def amplitudes(circuit: Circuit, bitstrings: Iterable[str], *, dtype: str = "complex128",
                engine: str = "auto", planner: PlannerOptions | None = None,
-               plan_cache: PlanCache | None = None, memory_bytes: float = DEFAULT_MEMORY_BYTES,
-               progress: ProgressCallback | None = None,
+               plan_store: PlanStore | None = None, memory_bytes: float = DEFAULT_MEMORY_BYTES,
+               workers: int = 1, progress: ProgressCallback | None = None,
                cancelled: CancelCheck | None = None) -> AmplitudeRun:
     """Exact amplitudes of ``circuit`` for ``bitstrings`` (qubit 0 first), in input order."""
     t0 = time.perf_counter()
@@ -154,11 +140,15 @@ def amplitudes(circuit: Circuit, bitstrings: Iterable[str], *, dtype: str = "com
         results = [Amplitude(b, complex(psi[int(b, 2)])) for b in bits]
         return AmplitudeRun(results, chosen, reason, dtype, time.perf_counter() - t0)
     structure = build_structure(circuit)
-    plan, hit = network_plan(structure, plan_cache, planner or PlannerOptions(), memory_bytes, dtype)
-    tree = plan.tree(structure)
+    plan, tree, hit = network_plan(structure, plan_store, planner or PlannerOptions(), memory_bytes, dtype)
     results = []
     for b in bits:
         arrays = tensor_arrays(structure, circuit, b, dt)
-        value = contract_scalar(tree, arrays, progress=progress, cancelled=cancelled)
+        if plan.nslices > 1 and workers > 1:
+            from .parallel import contract_sliced_parallel
+
+            value = contract_sliced_parallel(plan, structure, arrays, workers, progress, cancelled)
+        else:
+            value = contract_scalar(tree, arrays, progress=progress, cancelled=cancelled)
         results.append(Amplitude(b, complex(value * phase)))
     return AmplitudeRun(results, chosen, reason, dtype, time.perf_counter() - t0, plan, hit)

@@ -41,6 +41,7 @@ class Plan:
     peak_elements: float             # peak concurrent elements of one slice
     nslices: int
     options: dict = field(default_factory=dict)
+    writes: float = 0.0              # elements written by all pairwise contractions, all slices
 
     # ---- cheap cost queries
     @property
@@ -86,6 +87,7 @@ class Plan:
                 madds=float(doc["madds"]), madds_unsliced=float(doc["madds_unsliced"]),
                 width=float(doc["width"]), peak_elements=float(doc["peak_elements"]),
                 nslices=int(doc["nslices"]), options=dict(doc.get("options") or {}),
+                writes=float(doc.get("writes", 0.0)),
             )
         except (KeyError, TypeError, ValueError) as exc:
             raise PlanError(f"stored plan is malformed: {exc}") from None
@@ -144,6 +146,7 @@ def plan_from_tree(tree, structure: NetworkStructure, options: dict) -> Plan:
         peak_elements=float(tree.peak_size()),
         nslices=int(tree.nslices),
         options=options,
+        writes=float(tree.total_write()),
     )
 
 

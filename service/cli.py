@@ -59,13 +59,56 @@ def _fmt_complex(z: complex) -> str:
     return f"{z.real:+.16e}{z.imag:+.16e}j"
 
 
+def _settings():
+    from service.settings import Settings
+
+    return Settings()
+
+
+def _memory(args, settings) -> int:
+    from contraction.estimate import parse_bytes
+
+    return parse_bytes(args.memory) if getattr(args, "memory", None) else settings.memory_bytes
+
+
+def _plan_store(settings):
+    from contraction.plan_store import DirectoryPlanStore
+
+    try:
+        return DirectoryPlanStore(settings.plan_dir)
+    except OSError as exc:
+        raise UsageError(f"cannot use the plan directory {settings.plan_dir}: {exc.strerror}") from None
+
+
+class ProgressBar:
+    """A one-line progress bar on stderr (only when stderr is a terminal or forced)."""
+
+    def __init__(self, enabled: bool):
+        self.enabled = enabled
+
+    def __call__(self, p) -> None:
+        if not self.enabled:
+            return
+        width = 30
+        filled = int(width * p.done / max(1, p.total))
+        eta = "?" if p.eta_seconds is None else f"{p.eta_seconds:.0f}s"
+        sys.stderr.write(f"\r[{'#' * filled}{'.' * (width - filled)}] {p.done}/{p.total} slices, ETA {eta} ")
+        if p.done >= p.total:
+            sys.stderr.write("\n")
+        sys.stderr.flush()
+
+
 def cmd_amplitudes(args) -> int:
     from contraction.amplitudes import amplitudes
     from contraction.planner import PlannerOptions
 
+    settings = _settings()
     circuit = load_circuit_file(args.circuit)
+    budget = args.budget if args.budget is not None else settings.plan_budget_seconds
     run = amplitudes(circuit, _bitstrings(args), dtype=args.dtype, engine=args.engine,
-                     planner=PlannerOptions(budget_seconds=args.budget))
+                     planner=PlannerOptions(budget_seconds=budget), plan_store=_plan_store(settings),
+                     memory_bytes=_memory(args, settings), workers=settings.workers,
+                     progress=ProgressBar(sys.stderr.isatty()))
     if args.format == "json":
         doc = {
             "circuit": {"num_qubits": circuit.num_qubits, "gates": len(circuit.gates),
@@ -92,6 +135,63 @@ def cmd_amplitudes(args) -> int:
             print(f"{r.bitstring:<{width}}  {_fmt_complex(r.amplitude):>48}  {r.probability:>24.16e}")
         print(f"# {len(run.results)} amplitude(s), engine {run.engine} ({run.reason}), {run.dtype}, "
               f"{run.wall_seconds:.3f} s", file=sys.stderr)
+    return 0
+
+
+def cmd_estimate(args) -> int:
+    from contraction.calibration import load_or_measure
+    from contraction.estimate import estimate
+    from contraction.planner import PlannerOptions
+
+    settings = _settings()
+    circuit = load_circuit_file(args.circuit)
+    rate = load_or_measure(settings.calibration_path)
+    budget = args.budget if args.budget is not None else settings.plan_budget_seconds
+    est = estimate(circuit, args.bitstrings, dtype=args.dtype, engine=args.engine, rate=rate,
+                   planner=PlannerOptions(budget_seconds=budget), plan_store=_plan_store(settings),
+                   memory_bytes=_memory(args, settings))
+    doc = est.to_dict()
+    if args.format == "json":
+        print(json.dumps(doc))
+    else:
+        rows = [("engine", f"{est.engine} ({est.reason})"), ("qubits", est.num_qubits),
+                ("bitstrings", est.bitstrings), ("dtype", est.dtype),
+                ("complex multiply-adds", f"{est.madds:.4g}"), ("real FLOPs", f"{est.flops:.4g}"),
+                ("largest intermediate", f"2^{est.width:.1f} elements"),
+                ("peak memory", f"{est.peak_bytes / 2 ** 30:.4g} GiB (cap {est.memory_cap_bytes / 2 ** 30:.4g} GiB)"),
+                ("slices", f"{est.slices} (overhead x{est.slicing_overhead:.3f})"),
+                ("predicted time", f"{est.predicted_seconds:.4g} s"),
+                ("plan", f"{est.plan_hash[:16]} ({'stored' if est.plan_cached else 'new'})" if est.plan_hash else "-")]
+        for k, v in rows:
+            print(f"{k:<24} {v}")
+    return 0
+
+
+def cmd_plan(args) -> int:
+    from contraction.amplitudes import network_plan
+    from contraction.network import build_structure
+    from contraction.planner import PlannerOptions
+
+    settings = _settings()
+    circuit = load_circuit_file(args.circuit)
+    store = _plan_store(settings)
+    structure = build_structure(circuit)
+    before = store.get(structure.key)
+    options = PlannerOptions(budget_seconds=args.budget, max_repeats=10 ** 6, parallel=False)
+    plan, _tree, _hit = network_plan(structure, None, options, _memory(args, settings), args.dtype)
+    kept = store.put(plan)
+    best = store.get(structure.key)
+    print(json.dumps({"network_key": structure.key, "found_madds": plan.madds, "found_width": plan.width,
+                      "slices": plan.nslices, "previous_madds": before.madds if before else None,
+                      "stored": kept, "best_madds": best.madds if best else None}))
+    return 0
+
+
+def cmd_calibrate(args) -> int:
+    from contraction.calibration import load_or_measure
+
+    rate = load_or_measure(_settings().calibration_path, remeasure=True)
+    print(json.dumps(rate.to_dict()))
     return 0
 
 
@@ -150,9 +250,30 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("--dtype", choices=["complex128", "complex64"], default="complex128")
     a.add_argument("--engine", choices=["auto", "network", "statevector"], default="auto")
     a.add_argument("--format", choices=["table", "json", "csv"], default="table")
-    a.add_argument("--budget", type=float, default=2.0, metavar="SECONDS",
-                   help="time budget for finding a contraction order (default 2)")
+    a.add_argument("--budget", type=float, metavar="SECONDS",
+                   help="time budget for finding a contraction order (default: VERAMP_PLAN_BUDGET_SECONDS, 5)")
+    a.add_argument("--memory", metavar="SIZE", help="peak memory cap, e.g. 8GiB (default VERAMP_MEMORY_BYTES)")
     a.set_defaults(func=cmd_amplitudes)
+
+    e = sub.add_parser("estimate", help="cost of a run, before computing it")
+    e.add_argument("circuit")
+    e.add_argument("--bitstrings", type=int, default=1, metavar="K", help="number of amplitudes wanted")
+    e.add_argument("--dtype", choices=["complex128", "complex64"], default="complex128")
+    e.add_argument("--engine", choices=["auto", "network", "statevector"], default="auto")
+    e.add_argument("--memory", metavar="SIZE", help="peak memory cap, e.g. 8GiB")
+    e.add_argument("--budget", type=float, metavar="SECONDS", help="planning budget")
+    e.add_argument("--format", choices=["table", "json"], default="table")
+    e.set_defaults(func=cmd_estimate)
+
+    pl = sub.add_parser("plan", help="search a contraction plan ahead of time and store it")
+    pl.add_argument("circuit")
+    pl.add_argument("--budget", type=float, default=60.0, metavar="SECONDS")
+    pl.add_argument("--memory", metavar="SIZE")
+    pl.add_argument("--dtype", choices=["complex128", "complex64"], default="complex128")
+    pl.set_defaults(func=cmd_plan)
+
+    cal = sub.add_parser("calibrate", help="re-measure this machine's rates used for time predictions")
+    cal.set_defaults(func=cmd_calibrate)
 
     c = sub.add_parser("convert", help="write a circuit as JSON or OpenQASM 3")
     c.add_argument("circuit")

@@ -9,7 +9,8 @@ E[(N·p)⁴] = 24 (so Var[(N·p)²] = 20), in the large-N limit.
 import numpy as np
 import pytest
 
-from contraction.amplitudes import MemoryPlanCache, amplitudes
+from contraction.amplitudes import amplitudes
+from contraction.plan_store import MemoryPlanStore
 from contraction.network import build_structure
 from contraction.random_circuits import grid_architecture, random_instance
 from contraction.statevector import state_vector
@@ -30,10 +31,10 @@ def test_network_equals_statevector(rows, cols, cycles, gates, rng, fast_planner
     bits = random_bitstrings(rng, n, 12)
     psi = state_vector(c)
     ref = [psi[int(b, 2)] for b in bits]
-    cache = MemoryPlanCache()
-    r128 = amplitudes(c, bits, engine="network", planner=fast_planner, plan_cache=cache)
+    cache = MemoryPlanStore()
+    r128 = amplitudes(c, bits, engine="network", planner=fast_planner, plan_store=cache)
     assert _rel_err([r.amplitude for r in r128.results], ref) < 1e-10
-    r64 = amplitudes(c, bits, engine="network", dtype="complex64", planner=fast_planner, plan_cache=cache)
+    r64 = amplitudes(c, bits, engine="network", dtype="complex64", planner=fast_planner, plan_store=cache)
     assert r64.plan_cached                       # same layout, same plan for every dtype and bitstring
     assert _rel_err([r.amplitude for r in r64.results], ref) < 1e-5
     sv64 = amplitudes(c, bits, engine="statevector", dtype="complex64")

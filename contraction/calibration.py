@@ -1,0 +1,148 @@
+"""Machine rates used to predict wall time before anything is contracted.
+
+A short calibration measures, on this machine and in this process configuration:
+
+* the dense complex matrix-multiply rate (complex multiply-adds per second) — the ceiling;
+* then fits, over three calibration networks of different shapes, the time model
+  ``t = madds / (rate x efficiency) + writes x seconds_per_write + steps x step_overhead``
+  (non-negative least squares in relative error): arithmetic at a fraction of the matmul rate,
+  memory traffic for every element an intermediate writes, and a fixed cost per pairwise step;
+* the state-vector engine's cost per (amplitude x gate) element update.
+
+The figures are stored as JSON and re-measured on demand (``veramp calibrate``).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import statistics
+import time
+from dataclasses import asdict, dataclass
+from pathlib import Path
+
+import numpy as np
+
+
+@dataclass(frozen=True)
+class MachineRate:
+    matmul_madds_per_second: float
+    efficiency: float
+    seconds_per_write: float
+    step_overhead_seconds: float
+    statevector_seconds_per_update: float
+    threads: int
+    measured_at: float
+
+    def contraction_seconds(self, madds: float, writes: float, steps: float) -> float:
+        return (madds / (self.matmul_madds_per_second * self.efficiency) + writes * self.seconds_per_write
+                + steps * self.step_overhead_seconds)
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+    @classmethod
+    def from_dict(cls, doc: dict) -> "MachineRate":
+        return cls(**{k: doc[k] for k in cls.__dataclass_fields__})
+
+
+def _median_time(fn, repeats: int) -> float:
+    out = []
+    for _ in range(repeats):
+        t = time.perf_counter()
+        fn()
+        out.append(time.perf_counter() - t)
+    return statistics.median(out)
+
+
+def matmul_rate(n: int = 1024, repeats: int = 3, dtype=np.complex128) -> float:
+    """Complex multiply-adds per second of an n x n x n matrix product."""
+    rng = np.random.default_rng(0)
+    a = (rng.standard_normal((n, n)) + 1j * rng.standard_normal((n, n))).astype(dtype)
+    b = a.copy()
+    a @ b  # warm-up
+    return n ** 3 / _median_time(lambda: a @ b, repeats)
+
+
+def _network_time(rows: int, cols: int, cycles: int, repeats: int) -> tuple[float, float, float, int]:
+    from .network import build_structure, tensor_arrays
+    from .planner import PlannerOptions, find_plan
+    from .random_circuits import grid_architecture, random_instance
+
+    c = random_instance(grid_architecture(rows, cols, cycles), seed=1)
+    s = build_structure(c)
+    plan = find_plan(s, PlannerOptions(budget_seconds=0.0, max_repeats=1))
+    tree = plan.tree(s)
+    arrays = tensor_arrays(s, c, "0" * c.num_qubits)
+    tree.contract(arrays, strip_exponent=True, check_zero=True)
+    t = _median_time(lambda: tree.contract(arrays, strip_exponent=True, check_zero=True), repeats)
+    return t, plan.madds, plan.writes, s.num_tensors - 1
+
+
+def _dense_pair_time(outer: int = 10, shared: int = 10, repeats: int = 3) -> tuple[float, float, float, int]:
+    """An arithmetic-heavy pairwise contraction (2^outer x 2^shared times 2^shared x 2^outer)."""
+    import cotengra as ctg
+
+    left = tuple(ctg.get_symbol(i) for i in range(outer + shared))
+    right = tuple(ctg.get_symbol(i) for i in range(outer, 2 * outer + shared))
+    out = tuple(ix for ix in left + right if (ix in left) != (ix in right))
+    sizes = {ix: 2 for ix in left + right}
+    tree = ctg.ContractionTree.from_path([left, right], out, sizes, path=[(0, 1)])
+    rng = np.random.default_rng(0)
+    arrays = [(rng.standard_normal(2 ** len(t)) + 0j).reshape((2,) * len(t)) for t in (left, right)]
+    tree.contract(arrays)
+    t = _median_time(lambda: tree.contract(arrays, strip_exponent=True, check_zero=True), repeats)
+    return t, float(tree.contraction_cost()), float(tree.total_write()), 1
+
+
+#: calibration networks (grid rows, cols, cycles, repeats): tiny, arithmetic-heavy, wide
+CALIBRATION_NETWORKS = ((3, 3, 6, 7), (4, 5, 12, 2), (5, 6, 8, 2), (4, 6, 14, 1))
+
+
+def _statevector_update_time() -> float:
+    from .statevector import apply_gate
+
+    n = 20
+    psi = np.zeros((2,) * n, dtype=np.complex128)
+    psi[(0,) * n] = 1
+    g = np.eye(4, dtype=np.complex128)
+    t = _median_time(lambda: apply_gate(psi, g, (3, 11)), 3)
+    return t / 2 ** n
+
+
+def measure() -> MachineRate:
+    """Run the calibration (a few seconds)."""
+    from threadpoolctl import threadpool_info
+
+    from scipy.optimize import nnls
+
+    rate = matmul_rate()
+    rows, times = [], []
+    samples = [_network_time(*spec) for spec in CALIBRATION_NETWORKS] + [_dense_pair_time()]
+    for t, madds, writes, steps in samples:
+        # relative-error weighting: divide each equation by its measured time
+        rows.append([madds / rate / t, writes / t, steps / t])
+        times.append(1.0)
+    coef, _ = nnls(np.array(rows), np.array(times))
+    inv_eff, per_write, per_step = coef
+    eff = 1.0 / inv_eff if inv_eff > 0 else 1.0
+    threads = max([i.get("num_threads", 1) for i in threadpool_info()] or [1])
+    return MachineRate(rate, float(min(1.0, max(0.01, eff))), float(per_write), float(per_step),
+                       _statevector_update_time(), threads, time.time())
+
+
+def load_or_measure(path: str | os.PathLike | None, remeasure: bool = False) -> MachineRate:
+    """The stored calibration at ``path``, measuring (and storing) it when absent or asked to."""
+    if path is not None and not remeasure:
+        try:
+            return MachineRate.from_dict(json.loads(Path(path).read_text()))
+        except (OSError, ValueError, KeyError, TypeError):
+            pass
+    rate = measure()
+    if path is not None:
+        p = Path(path)
+        p.parent.mkdir(parents=True, exist_ok=True)
+        tmp = p.with_suffix(".tmp")
+        tmp.write_text(json.dumps(rate.to_dict()))
+        os.replace(tmp, p)
+    return rate

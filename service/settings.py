@@ -1,0 +1,60 @@
+"""All configuration in one object, read from environment variables prefixed ``VERAMP_``."""
+
+from __future__ import annotations
+
+import os
+from functools import lru_cache
+from pathlib import Path
+
+from pydantic import Field
+from pydantic_settings import BaseSettings, SettingsConfigDict
+
+
+def _default_data_dir() -> Path:
+    return Path(os.environ.get("XDG_DATA_HOME", Path.home() / ".local" / "share")) / "veramp"
+
+
+class Settings(BaseSettings):
+    model_config = SettingsConfigDict(env_prefix="VERAMP_", extra="ignore")
+
+    data_dir: Path = Field(default_factory=_default_data_dir, description="database, plans, calibration")
+    database_url: str | None = Field(None, description="SQLAlchemy URL; default SQLite in data_dir")
+    memory_bytes: int = Field(8 * 2 ** 30, description="peak memory cap of one contraction")
+    workers: int = Field(max(1, (os.cpu_count() or 1)), description="worker processes for contractions")
+    plan_budget_seconds: float = Field(5.0, description="default planning budget")
+    # service limits
+    max_qubits: int = 4096
+    max_gates: int = 200_000
+    max_bitstrings: int = 100_000
+    max_request_bytes: int = 32 * 2 ** 20
+    max_predicted_seconds: float = 24 * 3600.0
+    sync_threshold_seconds: float = 2.0
+    queue_size: int = 64
+    tokens: str | None = Field(None, description="comma-separated bearer tokens")
+    tokens_file: Path | None = Field(None, description="file with one bearer token per line")
+    dask_scheduler: str | None = None
+
+    @property
+    def plan_dir(self) -> Path:
+        return self.data_dir / "plans"
+
+    @property
+    def calibration_path(self) -> Path:
+        return self.data_dir / "calibration.json"
+
+    @property
+    def sqlalchemy_url(self) -> str:
+        return self.database_url or f"sqlite:///{self.data_dir / 'veramp.sqlite'}"
+
+    def token_set(self) -> frozenset[str]:
+        tokens = set()
+        if self.tokens:
+            tokens |= {t.strip() for t in self.tokens.split(",") if t.strip()}
+        if self.tokens_file:
+            tokens |= {t.strip() for t in Path(self.tokens_file).read_text().splitlines() if t.strip()}
+        return frozenset(tokens)
+
+
+@lru_cache
+def get_settings() -> Settings:
+    return Settings()

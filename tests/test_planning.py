@@ -1,0 +1,182 @@
+"""Planning: slicing, memory caps, plan reuse and plan-store safety, cost-estimate consistency.
+
+Checks: sliced and unsliced contractions are the same sum (slicing partitions the sum over an
+index — Gray & Kourtis, Quantum 5, 410 (2021)); the state vector (numpy) is the outside reference
+for values; FLOPs = 8 x complex multiply-adds (one complex multiply = 4 real multiplies + 2 adds,
+one complex add = 2 adds: common practice); bytes = elements x itemsize (numpy dtype sizes).
+"""
+
+import dataclasses
+import json
+
+import numpy as np
+import pytest
+
+from contraction.amplitudes import amplitudes, network_plan
+from contraction.calibration import MachineRate
+from contraction.errors import Cancelled, MemoryLimitError, PlanError
+from contraction.estimate import estimate, parse_bytes
+from contraction.executor import contract_scalar
+from contraction.network import build_structure, tensor_arrays
+from contraction.plan_store import DirectoryPlanStore, MemoryPlanStore
+from contraction.planner import Plan, PlannerOptions, find_plan
+from contraction.random_circuits import grid_architecture, random_instance
+from contraction.statevector import state_vector
+
+from .conftest import random_bitstrings
+
+RATE = MachineRate(1e10, 0.5, 1e-8, 2e-5, 2e-8, 1, 0.0)  # fixed rates: estimates are deterministic
+
+
+@pytest.fixture(scope="module")
+def circuit():
+    return random_instance(grid_architecture(4, 4, 10), seed=3)
+
+
+def test_sliced_equals_unsliced_and_state_vector(circuit, rng):
+    s = build_structure(circuit)
+    unsliced = find_plan(s, PlannerOptions(budget_seconds=0.3, max_repeats=4))
+    sliced = find_plan(s, PlannerOptions(budget_seconds=0.3, max_repeats=4, max_elements=2 ** 6))
+    assert sliced.nslices > 1 and unsliced.nslices == 1
+    assert sliced.width <= 6
+    assert sliced.madds >= unsliced.madds * 0.999 or sliced.madds_unsliced <= unsliced.madds
+    psi = state_vector(circuit)
+    for b in random_bitstrings(rng, 16, 4):
+        arrays = tensor_arrays(s, circuit, b)
+        a1 = contract_scalar(unsliced.tree(s), arrays)
+        a2 = contract_scalar(sliced.tree(s), arrays)
+        assert abs(a1 - a2) <= 1e-12 * abs(a1)
+        assert abs(a1 - psi[int(b, 2)]) <= 1e-10 * abs(a1)
+
+
+def test_parallel_slices_match_and_report_progress(circuit):
+    s = build_structure(circuit)
+    seen = []
+    run_seq = amplitudes(circuit, ["0" * 16], engine="network",
+                         planner=PlannerOptions(budget_seconds=0.3, max_repeats=4))
+    store = MemoryPlanStore()
+    run_par = amplitudes(circuit, ["0" * 16], engine="network",
+                         planner=PlannerOptions(budget_seconds=0.3, max_repeats=4, max_elements=2 ** 5),
+                         workers=2, plan_store=store, progress=seen.append)
+    assert run_par.plan.nslices > 1
+    assert abs(run_seq.results[0].amplitude - run_par.results[0].amplitude) <= 1e-12 * abs(run_seq.results[0].amplitude)
+    assert seen and seen[-1].done == seen[-1].total == run_par.plan.nslices
+    assert run_par.plan.width <= 5
+    assert s.key == run_par.plan.network_key
+
+
+def test_cancellation_stops_the_contraction(circuit):
+    s = build_structure(circuit)
+    plan = find_plan(s, PlannerOptions(budget_seconds=0.2, max_repeats=2, max_elements=2 ** 5))
+    calls = []
+
+    def cancelled():
+        calls.append(1)
+        return len(calls) > 2
+
+    with pytest.raises(Cancelled):
+        contract_scalar(plan.tree(s), tensor_arrays(s, circuit, "0" * 16), cancelled=cancelled)
+
+
+def test_memory_cap_is_never_exceeded(circuit):
+    s = build_structure(circuit)
+    with pytest.raises(MemoryLimitError):
+        network_plan(s, None, PlannerOptions(budget_seconds=0.2, max_repeats=2), memory_bytes=64)
+    # the inputs alone take ~14 kB; a 24 kB cap forces slicing and is honoured
+    plan, _tree, _hit = network_plan(s, None, PlannerOptions(budget_seconds=0.2, max_repeats=2),
+                                     memory_bytes=24_000)
+    assert plan.nslices > 1
+    assert plan.peak_bytes("complex128") <= 24_000
+
+
+def test_plan_store_hits_across_instances_and_bitstrings(tmp_path, rng):
+    arch = grid_architecture(3, 4, 8)
+    store = DirectoryPlanStore(tmp_path / "plans")
+    opts = PlannerOptions(budget_seconds=0.3, max_repeats=4)
+    first = amplitudes(random_instance(arch, 1), random_bitstrings(rng, 12, 2), engine="network",
+                       planner=opts, plan_store=store)
+    assert not first.plan_cached
+    for seed in (2, 3):
+        c = random_instance(arch, seed)
+        run = amplitudes(c, random_bitstrings(rng, 12, 3), engine="network", planner=opts, plan_store=store)
+        assert run.plan_cached and run.plan.plan_hash == first.plan.plan_hash
+        psi = state_vector(c)
+        for r in run.results:
+            assert abs(r.amplitude - psi[int(r.bitstring, 2)]) < 1e-12
+    # a new store object over the same directory (a restart) still hits
+    again = DirectoryPlanStore(tmp_path / "plans")
+    assert again.get(first.plan.network_key) is not None
+
+
+def test_better_plan_replaces_worse_never_reverse(tmp_path, circuit):
+    s = build_structure(circuit)
+    plan = find_plan(s, PlannerOptions(budget_seconds=0.3, max_repeats=4))
+    worse = dataclasses.replace(plan, madds=plan.madds * 2)
+    for store in (MemoryPlanStore(), DirectoryPlanStore(tmp_path)):
+        assert store.put(worse)
+        assert store.put(plan)                  # better replaces worse
+        assert not store.put(worse)             # worse never replaces better
+        assert store.get(s.key).madds == plan.madds
+
+
+def test_tampered_plans_are_detected_and_replanned(tmp_path, circuit):
+    s = build_structure(circuit)
+    store = DirectoryPlanStore(tmp_path)
+    opts = PlannerOptions(budget_seconds=0.3, max_repeats=4)
+    plan, _t, _h = network_plan(s, store, opts)
+    path = tmp_path / f"{s.key}.json"
+    doc = json.loads(path.read_text())
+    (slot,) = doc
+    # 1. edited without fixing the checksum: dropped on load
+    doc[slot]["ssa_path"][0] = [0, 0]
+    path.write_text(json.dumps(doc))
+    assert store.get(s.key) is None
+    # 2. edited with a recomputed checksum but an invalid path: rejected by validation, re-planned
+    bad = Plan.from_dict(plan.to_dict())
+    bad = dataclasses.replace(bad, ssa_path=((0, 1),) + bad.ssa_path[1:-1])
+    path.write_text(json.dumps({slot: bad.to_dict()}))
+    assert store.get(s.key) is not None
+    with pytest.raises(PlanError):
+        bad.tree(s)
+    plan2, tree2, hit = network_plan(s, store, opts)
+    assert not hit
+    ref = state_vector(circuit)[0]
+    assert abs(contract_scalar(tree2, tensor_arrays(s, circuit, "0" * 16)) - ref) < 1e-12
+    # 3. garbage file
+    path.write_text("not json")
+    assert store.get(s.key) is None
+
+
+def test_plan_json_round_trip(circuit):
+    s = build_structure(circuit)
+    plan = find_plan(s, PlannerOptions(budget_seconds=0.2, max_repeats=2))
+    back = Plan.from_json(plan.to_json())
+    assert back == plan
+    assert back.tree(s).contraction_cost() == plan.madds
+    other = build_structure(random_instance(grid_architecture(4, 4, 11), 1))
+    with pytest.raises(PlanError, match="another network"):
+        back.tree(other)
+
+
+@pytest.mark.parametrize("dtype,itemsize", [("complex128", 16), ("complex64", 8)])
+def test_estimate_fields_are_consistent(circuit, dtype, itemsize):
+    store = MemoryPlanStore()
+    est = estimate(circuit, 10, dtype=dtype, engine="network", rate=RATE, plan_store=store,
+                   planner=PlannerOptions(budget_seconds=0.2, max_repeats=2))
+    plan = store.get(build_structure(circuit).key)
+    assert est.flops == 8 * est.madds
+    assert est.madds == 10 * est.madds_per_bitstring == 10 * plan.madds
+    assert est.peak_bytes == int(plan.peak_elements * itemsize)
+    assert est.slices == plan.nslices and est.engine == "network"
+    assert est.predicted_seconds > 0
+    sv = estimate(circuit, 10, dtype=dtype, engine="auto", rate=RATE)
+    assert sv.engine == "statevector" and sv.flops == 8 * sv.madds
+    assert sv.peak_bytes == 3 * 2 ** 16 * itemsize
+
+
+def test_parse_bytes():
+    assert parse_bytes("8GiB") == 8 * 2 ** 30
+    assert parse_bytes("512MB") == 512 * 10 ** 6
+    assert parse_bytes("1000") == 1000
+    with pytest.raises(Exception, match="memory size"):
+        parse_bytes("lots")
