@@ -195,6 +195,24 @@ def cmd_calibrate(args) -> int:
     return 0
 
 
+def cmd_serve(args) -> int:
+    import logging
+
+    import uvicorn
+
+    from service.app import create_app
+
+    overrides = {}
+    if args.data_dir:
+        overrides["data_dir"] = Path(args.data_dir)
+    from service.settings import Settings
+
+    settings = Settings(**overrides)
+    logging.basicConfig(level=logging.INFO, format="%(message)s")
+    uvicorn.run(create_app(settings), host=args.host, port=args.port, log_level="warning")
+    return 0
+
+
 def cmd_convert(args) -> int:
     from contraction.circuit_json import write_json
     from contraction.qasm_writer import write_qasm3
@@ -271,6 +289,12 @@ def build_parser() -> argparse.ArgumentParser:
     pl.add_argument("--memory", metavar="SIZE")
     pl.add_argument("--dtype", choices=["complex128", "complex64"], default="complex128")
     pl.set_defaults(func=cmd_plan)
+
+    sv = sub.add_parser("serve", help="run the REST service (SQLite and a local worker pool by default)")
+    sv.add_argument("--host", default="127.0.0.1")
+    sv.add_argument("--port", type=int, default=8350)
+    sv.add_argument("--data-dir", metavar="DIR", help="database, plans and calibration (VERAMP_DATA_DIR)")
+    sv.set_defaults(func=cmd_serve)
 
     cal = sub.add_parser("calibrate", help="re-measure this machine's rates used for time predictions")
     cal.set_defaults(func=cmd_calibrate)

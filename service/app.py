@@ -1,0 +1,122 @@
+"""The FastAPI application: routers, auth, limits, error mapping, metrics and structured logs."""
+
+from __future__ import annotations
+
+import hmac
+import json
+import logging
+import time
+from contextlib import asynccontextmanager
+
+from fastapi import FastAPI, HTTPException, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import JSONResponse
+
+from contraction.errors import MemoryLimitError, VerampError
+
+from . import __version__
+from .db import make_engine, session_factory
+from .deps import AppState, LimitExceeded
+from .jobs import JobManager, QueueFull
+from .metrics import Metrics
+from .routes import amplitudes, circuits, jobs, ops
+from .settings import Settings
+
+log = logging.getLogger("veramp.api")
+OPEN_PATHS = {"/v1/health"}
+
+
+def _error(status: int, kind: str, message: str, headers: dict | None = None, **extra) -> JSONResponse:
+    body = {"error": kind, "message": message, **{k: v for k, v in extra.items() if v is not None}}
+    return JSONResponse(body, status_code=status, headers=headers)
+
+
+def create_app(settings: Settings | None = None) -> FastAPI:
+    settings = settings or Settings()
+
+    @asynccontextmanager
+    async def lifespan(app: FastAPI):
+        settings.data_dir.mkdir(parents=True, exist_ok=True)
+        sessions = session_factory(make_engine(settings.sqlalchemy_url))
+        metrics = Metrics()
+
+        def on_finish(job_id: str, prov: dict) -> None:
+            metrics.job_seconds.observe(prov.get("wall_seconds", 0.0))
+            metrics.madds.inc(prov.get("madds", 0.0))
+            metrics.cache_misses.inc(prov.get("computed", 0))
+            metrics.cache_hits.inc(prov.get("cached", 0))
+
+        manager = JobManager(settings, sessions, on_finish)
+        app.state.veramp = AppState(settings, sessions, manager, metrics)
+        resumed = manager.resume()
+        log.info(json.dumps({"event": "start", "version": __version__, "resumed_jobs": resumed,
+                             "database": settings.sqlalchemy_url.split("://")[0]}))
+        yield
+        manager.shutdown()
+
+    app = FastAPI(title="veramp", version=__version__, lifespan=lifespan,
+                  description="Exact amplitudes of quantum circuits for sampled bitstrings. "
+                              "Bitstrings are written qubit 0 first.")
+    for r in (ops.router, circuits.router, amplitudes.router, jobs.router):
+        app.include_router(r)
+    tokens = settings.token_set()
+
+    @app.middleware("http")
+    async def guard(request: Request, call_next):
+        t0 = time.perf_counter()
+        path = request.url.path
+        if tokens and path not in OPEN_PATHS:
+            auth = request.headers.get("authorization", "")
+            given = auth[7:] if auth.lower().startswith("bearer ") else ""
+            if not any(hmac.compare_digest(given, t) for t in tokens):
+                return _error(401, "unauthorized", "a valid bearer token is required",
+                              {"WWW-Authenticate": "Bearer"})
+        length = request.headers.get("content-length")
+        if length is not None and length.isdigit() and int(length) > settings.max_request_bytes:
+            return _error(413, "limit_exceeded", f"request body of {length} bytes exceeds the limit of "
+                                                 f"{settings.max_request_bytes}", limit="max_request_bytes")
+        response = await call_next(request)
+        dt = time.perf_counter() - t0
+        route = request.scope.get("route")
+        name = getattr(route, "path", "unmatched")
+        state = getattr(request.app.state, "veramp", None)
+        if state is not None:
+            state.metrics.requests.labels(request.method, name, str(response.status_code)).inc()
+            state.metrics.latency.labels(name).observe(dt)
+        log.info(json.dumps({"event": "request", "method": request.method, "route": name,
+                             "status": response.status_code, "ms": round(dt * 1000, 2)}))
+        return response
+
+    @app.exception_handler(VerampError)
+    async def engine_error(_req, exc: VerampError):
+        status = 413 if isinstance(exc, MemoryLimitError) else 422
+        return _error(status, exc.kind, str(exc), line=getattr(exc, "line", None),
+                      column=getattr(exc, "column", None))
+
+    @app.exception_handler(LimitExceeded)
+    async def limit_error(_req, exc: LimitExceeded):
+        kind = "limit_exceeded" if exc.status == 413 else "invalid_input"
+        return _error(exc.status, kind, exc.message, limit=exc.limit if exc.status == 413 else None)
+
+    @app.exception_handler(QueueFull)
+    async def queue_full(_req, exc: QueueFull):
+        return _error(429, "queue_full", "the job queue is full; retry later",
+                      {"Retry-After": str(exc.retry_after)})
+
+    @app.exception_handler(HTTPException)
+    async def http_error(_req, exc: HTTPException):
+        kind = {404: "not_found", 409: "conflict"}.get(exc.status_code, "http_error")
+        return _error(exc.status_code, kind, str(exc.detail), getattr(exc, "headers", None))
+
+    @app.exception_handler(RequestValidationError)
+    async def validation_error(_req, exc: RequestValidationError):
+        first = exc.errors()[0] if exc.errors() else {}
+        where = ".".join(str(p) for p in first.get("loc", ()) if p != "body")
+        return _error(422, "invalid_request", f"{where}: {first.get('msg', 'invalid request')}".strip(": "))
+
+    @app.exception_handler(Exception)
+    async def internal_error(_req, exc: Exception):
+        log.exception("unhandled error")
+        return _error(500, "internal_error", "internal error; the request was not completed")
+
+    return app

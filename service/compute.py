@@ -1,0 +1,143 @@
+"""The one path from a stored circuit and bitstrings to cached, provenance-stamped amplitudes.
+
+Used by synchronous requests (in the API process) and by jobs (in worker processes). Bitstrings
+already in the result cache are not recomputed; repeated bitstrings are computed once; results
+come back in input order. New amplitudes are written in chunks, so an interrupted job keeps what
+it finished and a resumed job does not compute it again.
+"""
+
+from __future__ import annotations
+
+import platform
+import time
+from dataclasses import dataclass
+from typing import Callable
+
+from sqlalchemy import select
+from sqlalchemy.dialects.sqlite import insert as sqlite_insert
+from sqlalchemy.orm import Session, sessionmaker
+
+from contraction.amplitudes import amplitudes
+from contraction.circuit import Circuit
+from contraction.circuit_json import from_document, to_document
+from contraction.planner import PlannerOptions
+
+from .db import CircuitRow, ResultRow, SqlPlanStore
+
+CHUNK = 64
+
+
+@dataclass
+class ResultItem:
+    bitstring: str
+    re: float
+    im: float
+    cached: bool
+    engine: str
+    plan_hash: str | None
+
+    @property
+    def probability(self) -> float:
+        return self.re * self.re + self.im * self.im
+
+
+def versions() -> dict:
+    import cotengra
+    import numpy
+
+    from . import __version__
+
+    return {"veramp": __version__, "python": platform.python_version(), "numpy": numpy.__version__,
+            "cotengra": cotengra.__version__}
+
+
+def store_circuit(sessions: sessionmaker[Session], circuit: Circuit) -> CircuitRow:
+    import json
+
+    with sessions() as s:
+        row = s.get(CircuitRow, circuit.content_hash)
+        if row is None:
+            row = CircuitRow(content_hash=circuit.content_hash, structure_hash=circuit.structure_hash,
+                             num_qubits=circuit.num_qubits, num_gates=len(circuit.gates),
+                             document=json.dumps(to_document(circuit)), created=time.time())
+            s.add(row)
+            s.commit()
+        return row
+
+
+def load_circuit(sessions: sessionmaker[Session], content_hash: str) -> Circuit | None:
+    import json
+
+    with sessions() as s:
+        row = s.get(CircuitRow, content_hash)
+        if row is None:
+            return None
+        return from_document(json.loads(row.document), max_qubits=10 ** 9)
+
+
+def cached_results(s: Session, content_hash: str, bits: list[str], dtype: str) -> dict[str, ResultRow]:
+    out: dict[str, ResultRow] = {}
+    unique = list(dict.fromkeys(bits))
+    for i in range(0, len(unique), 500):
+        part = unique[i:i + 500]
+        q = select(ResultRow).where(ResultRow.circuit_hash == content_hash, ResultRow.dtype == dtype,
+                                    ResultRow.bitstring.in_(part))
+        out.update({r.bitstring: r for r in s.scalars(q)})
+    return out
+
+
+def _save(sessions, content_hash: str, dtype: str, run) -> None:
+    rows = [{"circuit_hash": content_hash, "bitstring": r.bitstring, "dtype": dtype,
+             "re": r.amplitude.real, "im": r.amplitude.imag, "engine": run.engine,
+             "plan_hash": run.plan.plan_hash if run.plan else None, "created": time.time()}
+            for r in run.results]
+    with sessions() as s:
+        if s.bind.dialect.name == "sqlite":
+            s.execute(sqlite_insert(ResultRow).values(rows).on_conflict_do_nothing())
+        else:
+            have = cached_results(s, content_hash, [r["bitstring"] for r in rows], dtype)
+            s.add_all(ResultRow(**r) for r in rows if r["bitstring"] not in have)
+        s.commit()
+
+
+def compute(sessions: sessionmaker[Session], circuit: Circuit, bits: list[str], *, dtype: str, engine: str,
+            planner: PlannerOptions, memory_bytes: float,
+            on_chunk: Callable[[int], None] | None = None,
+            cancelled: Callable[[], bool] | None = None) -> tuple[list[ResultItem], dict]:
+    """Amplitudes for ``bits`` (input order), from the cache where possible. Returns (items, stats)."""
+    t0 = time.perf_counter()
+    with sessions() as s:
+        have = cached_results(s, circuit.content_hash, bits, dtype)
+    todo = [b for b in dict.fromkeys(bits) if b not in have]
+    store = SqlPlanStore(sessions)
+    fresh: dict[str, ResultItem] = {}
+    stats = {"computed": 0, "cached": 0, "madds": 0.0, "engine": None, "plan_hash": None, "plan_cached": None}
+    done_unique = len(dict.fromkeys(bits)) - len(todo)
+    for i in range(0, len(todo), CHUNK):
+        if cancelled is not None and cancelled():
+            from contraction.errors import Cancelled
+
+            raise Cancelled("cancelled")
+        part = todo[i:i + CHUNK]
+        run = amplitudes(circuit, part, dtype=dtype, engine=engine, planner=planner, plan_store=store,
+                         memory_bytes=memory_bytes, cancelled=cancelled)
+        _save(sessions, circuit.content_hash, dtype, run)
+        ph = run.plan.plan_hash if run.plan else None
+        for r in run.results:
+            fresh[r.bitstring] = ResultItem(r.bitstring, r.amplitude.real, r.amplitude.imag, False, run.engine, ph)
+        stats.update(engine=run.engine, plan_hash=ph, plan_cached=run.plan_cached)
+        stats["madds"] += (run.plan.madds * len(part)) if run.plan else 0.0
+        done_unique += len(part)
+        if on_chunk is not None:
+            on_chunk(done_unique)
+    items = []
+    for b in bits:
+        if b in fresh:
+            items.append(fresh[b])
+        else:
+            r = have[b]
+            items.append(ResultItem(b, r.re, r.im, True, r.engine, r.plan_hash))
+    stats["computed"] = len(fresh)
+    stats["cached"] = sum(1 for it in items if it.cached)
+    stats["wall_seconds"] = time.perf_counter() - t0
+    return items, stats

@@ -1,0 +1,131 @@
+"""Storage models and sessions (SQLAlchemy). SQLite in WAL mode by default; any URL works.
+
+Tables: circuits (by content hash), plans (by network key and memory class), results (the cache,
+keyed by circuit content hash, bitstring and dtype) and jobs. These are storage models; the API's
+pydantic schemas live in ``service/schemas.py``.
+"""
+
+from __future__ import annotations
+
+import json
+import time
+from typing import Iterator
+
+from sqlalchemy import Float, Integer, String, Text, create_engine, event, select
+from sqlalchemy.engine import Engine
+from sqlalchemy.orm import DeclarativeBase, Mapped, Session, mapped_column, sessionmaker
+
+from contraction.errors import PlanError
+from contraction.plan_store import best_fitting, target_key
+from contraction.planner import Plan
+
+
+class Base(DeclarativeBase):
+    pass
+
+
+class CircuitRow(Base):
+    __tablename__ = "circuits"
+    content_hash: Mapped[str] = mapped_column(String(64), primary_key=True)
+    structure_hash: Mapped[str] = mapped_column(String(64), index=True)
+    num_qubits: Mapped[int] = mapped_column(Integer)
+    num_gates: Mapped[int] = mapped_column(Integer)
+    document: Mapped[str] = mapped_column(Text)           # the JSON circuit document
+    created: Mapped[float] = mapped_column(Float, default=time.time)
+
+
+class PlanRow(Base):
+    __tablename__ = "plans"
+    network_key: Mapped[str] = mapped_column(String(64), primary_key=True)
+    target: Mapped[str] = mapped_column(String(16), primary_key=True)
+    madds: Mapped[float] = mapped_column(Float)
+    plan_json: Mapped[str] = mapped_column(Text)
+    updated: Mapped[float] = mapped_column(Float, default=time.time)
+
+
+class ResultRow(Base):
+    __tablename__ = "results"
+    circuit_hash: Mapped[str] = mapped_column(String(64), primary_key=True)
+    bitstring: Mapped[str] = mapped_column(String, primary_key=True)
+    dtype: Mapped[str] = mapped_column(String(16), primary_key=True)
+    re: Mapped[float] = mapped_column(Float)
+    im: Mapped[float] = mapped_column(Float)
+    engine: Mapped[str] = mapped_column(String(16))
+    plan_hash: Mapped[str | None] = mapped_column(String(64), nullable=True)
+    created: Mapped[float] = mapped_column(Float, default=time.time)
+
+
+class JobRow(Base):
+    __tablename__ = "jobs"
+    id: Mapped[str] = mapped_column(String(32), primary_key=True)
+    status: Mapped[str] = mapped_column(String(16), index=True)
+    circuit_hash: Mapped[str] = mapped_column(String(64))
+    dtype: Mapped[str] = mapped_column(String(16))
+    engine: Mapped[str] = mapped_column(String(16))
+    bitstrings: Mapped[str] = mapped_column(Text)         # JSON list, input order
+    total: Mapped[int] = mapped_column(Integer)
+    done: Mapped[int] = mapped_column(Integer, default=0)
+    cancel_requested: Mapped[int] = mapped_column(Integer, default=0)
+    error: Mapped[str | None] = mapped_column(Text, nullable=True)
+    provenance: Mapped[str | None] = mapped_column(Text, nullable=True)
+    created: Mapped[float] = mapped_column(Float, default=time.time)
+    started: Mapped[float | None] = mapped_column(Float, nullable=True)
+    finished: Mapped[float | None] = mapped_column(Float, nullable=True)
+
+    def bitstring_list(self) -> list[str]:
+        return json.loads(self.bitstrings)
+
+
+def make_engine(url: str) -> Engine:
+    kwargs = {}
+    if url.startswith("sqlite"):
+        kwargs["connect_args"] = {"check_same_thread": False, "timeout": 30}
+    engine = create_engine(url, **kwargs)
+    if url.startswith("sqlite"):
+        @event.listens_for(engine, "connect")
+        def _pragmas(conn, _record):
+            cur = conn.cursor()
+            cur.execute("PRAGMA journal_mode=WAL")
+            cur.execute("PRAGMA synchronous=NORMAL")
+            cur.execute("PRAGMA busy_timeout=30000")
+            cur.close()
+    Base.metadata.create_all(engine)
+    return engine
+
+
+def session_factory(engine: Engine) -> sessionmaker[Session]:
+    return sessionmaker(engine, expire_on_commit=False)
+
+
+class SqlPlanStore:
+    """The plan store as database rows (JSON text, checksummed, validated before use)."""
+
+    def __init__(self, sessions: sessionmaker[Session]):
+        self.sessions = sessions
+
+    def _plans(self, s: Session, network_key: str) -> Iterator[Plan]:
+        for row in s.scalars(select(PlanRow).where(PlanRow.network_key == network_key)):
+            try:
+                yield Plan.from_json(row.plan_json)
+            except PlanError:
+                s.delete(row)
+
+    def get(self, network_key: str, max_peak_elements: float | None = None) -> Plan | None:
+        with self.sessions() as s:
+            plans = list(self._plans(s, network_key))
+            s.commit()
+        return best_fitting(plans, max_peak_elements)
+
+    def put(self, plan: Plan) -> bool:
+        with self.sessions() as s:
+            row = s.get(PlanRow, (plan.network_key, target_key(plan)))
+            if row is not None and row.madds <= plan.madds:
+                return False
+            if row is None:
+                row = PlanRow(network_key=plan.network_key, target=target_key(plan))
+                s.add(row)
+            row.madds = plan.madds
+            row.plan_json = plan.to_json()
+            row.updated = time.time()
+            s.commit()
+        return True

@@ -1,0 +1,74 @@
+"""FastAPI dependencies and the shared state they hand out (settings, sessions, jobs, rates)."""
+
+from __future__ import annotations
+
+import threading
+from dataclasses import dataclass, field
+
+from fastapi import HTTPException, Request
+from sqlalchemy.orm import Session, sessionmaker
+
+from contraction.circuit import Circuit
+from contraction.loader import load_circuit
+
+from .compute import load_circuit as load_stored, store_circuit
+from .jobs import JobManager
+from .metrics import Metrics
+from .schemas import CircuitIn, CircuitRef
+from .settings import Settings
+
+
+class LimitExceeded(Exception):
+    def __init__(self, limit: str, message: str, status: int = 413):
+        super().__init__(message)
+        self.limit, self.message, self.status = limit, message, status
+
+
+@dataclass
+class AppState:
+    settings: Settings
+    sessions: sessionmaker[Session]
+    jobs: JobManager
+    metrics: Metrics
+    _rate: object = None
+    _rate_lock: threading.Lock = field(default_factory=threading.Lock)
+
+    def rate(self):
+        from contraction.calibration import load_or_measure
+
+        with self._rate_lock:
+            if self._rate is None:
+                self._rate = load_or_measure(self.settings.calibration_path)
+            return self._rate
+
+
+def get_state(request: Request) -> AppState:
+    return request.app.state.veramp
+
+
+def parse_circuit(state: AppState, body: CircuitIn) -> Circuit:
+    s = state.settings
+    if (body.qasm is None) == (body.document is None):
+        raise LimitExceeded("circuit", "give exactly one of 'qasm' or 'document'", 422)
+    if body.qasm is not None:
+        circuit = load_circuit(body.qasm, "<request>", "qasm", max_qubits=s.max_qubits)
+    else:
+        from contraction.circuit_json import from_document
+
+        circuit = from_document(body.document, max_qubits=s.max_qubits)
+    if len(circuit.gates) > s.max_gates:
+        raise LimitExceeded("max_gates", f"{len(circuit.gates)} gates exceed the limit of {s.max_gates}")
+    return circuit
+
+
+def resolve_circuit(state: AppState, ref: CircuitRef) -> Circuit:
+    if (ref.circuit_id is None) == (ref.circuit is None):
+        raise LimitExceeded("circuit", "give exactly one of 'circuit_id' or 'circuit'", 422)
+    if ref.circuit_id is not None:
+        circuit = load_stored(state.sessions, ref.circuit_id)
+        if circuit is None:
+            raise HTTPException(404, f"no circuit with id {ref.circuit_id}")
+        return circuit
+    circuit = parse_circuit(state, ref.circuit)
+    store_circuit(state.sessions, circuit)
+    return circuit

@@ -1,0 +1,182 @@
+"""Durable jobs run by a bounded pool of worker processes apart from the web workers.
+
+A job is a row in the database before it is queued, so it survives a restart: on start-up every
+job still ``queued`` or ``running`` is queued again, and the result cache makes the resumed job
+skip what it had finished. Worker processes limit BLAS to one thread each.
+"""
+
+from __future__ import annotations
+
+import concurrent.futures as cf
+import json
+import logging
+import multiprocessing as mp
+import threading
+import time
+import uuid
+
+from sqlalchemy import select, update
+
+from contraction.errors import Cancelled, VerampError
+from contraction.planner import PlannerOptions
+
+from .db import JobRow, make_engine, session_factory
+
+log = logging.getLogger("veramp.jobs")
+
+TERMINAL = ("succeeded", "failed", "cancelled")
+
+
+class QueueFull(Exception):
+    def __init__(self, retry_after: int):
+        super().__init__("the job queue is full")
+        self.retry_after = retry_after
+
+
+def _init_worker() -> None:
+    from threadpoolctl import threadpool_limits
+
+    threadpool_limits(1)
+
+
+def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float) -> dict:
+    """Run one job to completion in a worker process; all state goes through the database."""
+    from .compute import compute, load_circuit, versions
+
+    sessions = session_factory(make_engine(db_url))
+    with sessions() as s:
+        job = s.get(JobRow, job_id)
+        if job is None or job.status in TERMINAL:
+            return {}
+        if job.cancel_requested:
+            job.status, job.finished = "cancelled", time.time()
+            s.commit()
+            return {}
+        job.status, job.started = "running", job.started or time.time()
+        s.commit()
+        bits, dtype, engine, chash = job.bitstring_list(), job.dtype, job.engine, job.circuit_hash
+    last_check = [0.0, False]
+
+    def cancelled() -> bool:
+        now = time.monotonic()
+        if now - last_check[0] > 0.5:
+            last_check[0] = now
+            with sessions() as s2:
+                last_check[1] = bool(s2.scalar(select(JobRow.cancel_requested).where(JobRow.id == job_id)))
+        return last_check[1]
+
+    def on_chunk(done: int) -> None:
+        with sessions() as s2:
+            s2.execute(update(JobRow).where(JobRow.id == job_id).values(done=done))
+            s2.commit()
+
+    status, error, prov = "succeeded", None, None
+    try:
+        circuit = load_circuit(sessions, chash)
+        if circuit is None:
+            raise VerampError("the job's circuit is no longer stored")
+        items, stats = compute(sessions, circuit, bits, dtype=dtype, engine=engine,
+                               planner=PlannerOptions(budget_seconds=budget), memory_bytes=memory_bytes,
+                               on_chunk=on_chunk, cancelled=cancelled)
+        prov = {"versions": versions(), "dtype": dtype, **stats}
+    except Cancelled:
+        status = "cancelled"
+    except VerampError as exc:
+        status, error = "failed", str(exc)
+    except MemoryError:
+        status, error = "failed", "out of memory"
+    except Exception as exc:  # a bug: keep the service alive and say what happened
+        log.exception("job %s crashed", job_id)
+        status, error = "failed", f"internal error: {type(exc).__name__}"
+    with sessions() as s:
+        job = s.get(JobRow, job_id)
+        job.status, job.error, job.finished = status, error, time.time()
+        if status == "succeeded":
+            job.done = job.total
+            job.provenance = json.dumps(prov)
+        s.commit()
+    return prov or {}
+
+
+class JobManager:
+    def __init__(self, settings, sessions, on_finish=None):
+        self.settings = settings
+        self.sessions = sessions
+        self.on_finish = on_finish
+        self._lock = threading.Lock()
+        self._active: dict[str, cf.Future] = {}
+        self.pool = cf.ProcessPoolExecutor(max_workers=max(1, settings.workers),
+                                           mp_context=mp.get_context("forkserver"), initializer=_init_worker)
+
+    @property
+    def depth(self) -> int:
+        with self._lock:
+            return len(self._active)
+
+    def create(self, circuit_hash: str, bits: list[str], dtype: str, engine: str) -> JobRow:
+        if self.depth >= self.settings.queue_size:
+            raise QueueFull(retry_after=5)
+        job = JobRow(id=uuid.uuid4().hex, status="queued", circuit_hash=circuit_hash, dtype=dtype,
+                     engine=engine, bitstrings=json.dumps(bits), total=len(dict.fromkeys(bits)), done=0,
+                     cancel_requested=0, created=time.time())
+        with self.sessions() as s:
+            s.add(job)
+            s.commit()
+        self._submit(job.id)
+        return job
+
+    def _submit(self, job_id: str) -> None:
+        fut = self.pool.submit(run_job, job_id, self.settings.sqlalchemy_url, self.settings.memory_bytes,
+                               self.settings.plan_budget_seconds)
+        with self._lock:
+            self._active[job_id] = fut
+        fut.add_done_callback(lambda f, j=job_id: self._done(j, f))
+
+    def _done(self, job_id: str, fut: cf.Future) -> None:
+        with self._lock:
+            self._active.pop(job_id, None)
+        if not fut.cancelled() and isinstance(fut.exception(), cf.process.BrokenProcessPool):
+            # a worker died (killed, out of memory): fail the job with the reason, keep serving
+            log.error("worker process died while running job %s", job_id)
+            with self.sessions() as s:
+                s.execute(update(JobRow).where(JobRow.id == job_id, JobRow.status.not_in(TERMINAL))
+                          .values(status="failed", error="the worker process died (killed or out of memory)",
+                                  finished=time.time()))
+                s.commit()
+            with self._lock:
+                if getattr(self.pool, "_broken", False):
+                    self.pool = cf.ProcessPoolExecutor(max_workers=max(1, self.settings.workers),
+                                                       mp_context=mp.get_context("forkserver"),
+                                                       initializer=_init_worker)
+            return
+        if self.on_finish is not None and not fut.cancelled():
+            try:
+                self.on_finish(job_id, fut.result())
+            except Exception:  # a dead worker: the row stays queued/running and resumes at restart
+                log.exception("job %s did not finish cleanly", job_id)
+
+    def resume(self) -> int:
+        """Queue again every job left queued or running by a previous process."""
+        with self.sessions() as s:
+            ids = list(s.scalars(select(JobRow.id).where(JobRow.status.in_(("queued", "running")))
+                                 .order_by(JobRow.created)))
+            s.execute(update(JobRow).where(JobRow.id.in_(ids)).values(status="queued"))
+            s.commit()
+        for job_id in ids:
+            self._submit(job_id)
+        return len(ids)
+
+    def cancel(self, job_id: str) -> None:
+        with self.sessions() as s:
+            s.execute(update(JobRow).where(JobRow.id == job_id).values(cancel_requested=1))
+            s.commit()
+        with self._lock:
+            fut = self._active.get(job_id)
+        if fut is not None and fut.cancel():
+            with self.sessions() as s:
+                s.execute(update(JobRow).where(JobRow.id == job_id, JobRow.status == "queued")
+                          .values(status="cancelled", finished=time.time()))
+                s.commit()
+
+    def shutdown(self) -> None:
+        self.pool.shutdown(wait=False, cancel_futures=True)

@@ -1,0 +1,84 @@
+"""/v1/estimates and /v1/amplitudes: cost reports, and amplitudes now (200) or as a job (202)."""
+
+from fastapi import APIRouter, Depends, Response
+
+from contraction.amplitudes import choose_engine
+from contraction.bitstrings import check_bitstrings
+from contraction.estimate import estimate
+from contraction.network import build_structure
+from contraction.plan_store import best_fitting  # noqa: F401  (documented lookup rule)
+from contraction.planner import PlannerOptions
+
+from ..compute import compute, versions
+from ..db import SqlPlanStore
+from ..deps import AppState, LimitExceeded, get_state, resolve_circuit
+from ..routes.jobs import job_out
+from ..schemas import AmplitudeOut, AmplitudesIn, AmplitudesOut, ErrorOut, EstimateIn, JobOut, Provenance
+
+router = APIRouter(prefix="/v1", tags=["amplitudes"])
+
+
+@router.post("/estimates", responses={422: {"model": ErrorOut}, 413: {"model": ErrorOut}})
+def post_estimate(body: EstimateIn, state: AppState = Depends(get_state)) -> dict:
+    """What the amplitudes would cost: multiply-adds, FLOPs, peak memory, slices, predicted time."""
+    circuit = resolve_circuit(state, body)
+    s = state.settings
+    est = estimate(circuit, body.bitstrings, dtype=body.dtype, engine=body.engine, rate=state.rate(),
+                   planner=PlannerOptions(budget_seconds=min(s.plan_budget_seconds, 2.0)),
+                   plan_store=SqlPlanStore(state.sessions), memory_bytes=s.memory_bytes)
+    return {"circuit_id": circuit.content_hash, **est.to_dict()}
+
+
+def _predicted_seconds(state: AppState, circuit, k: int, dtype: str, engine: str) -> float | None:
+    """A prediction without planning: None when a plan would have to be searched first."""
+    s = state.settings
+    chosen, _ = choose_engine(circuit, engine)
+    if chosen == "statevector":
+        return estimate(circuit, k, dtype=dtype, engine=engine, rate=state.rate(),
+                        memory_bytes=s.memory_bytes).predicted_seconds
+    structure = build_structure(circuit)
+    plan = SqlPlanStore(state.sessions).get(structure.key, s.memory_bytes / (16 if dtype == "complex128" else 8))
+    if plan is None:
+        return None
+    steps = structure.num_tensors * plan.nslices
+    return k * state.rate().contraction_seconds(plan.madds, plan.writes, steps)
+
+
+@router.post("/amplitudes", response_model=AmplitudesOut | JobOut,
+             responses={202: {"model": JobOut}, 413: {"model": ErrorOut}, 422: {"model": ErrorOut},
+                        429: {"model": ErrorOut}})
+def post_amplitudes(body: AmplitudesIn, response: Response, state: AppState = Depends(get_state)):
+    """Amplitudes for a batch of bitstrings (qubit 0 first). Small work answers at once; larger work
+    returns 202 with a job to follow."""
+    s = state.settings
+    if len(body.bitstrings) > s.max_bitstrings:
+        raise LimitExceeded("max_bitstrings", f"{len(body.bitstrings)} bitstrings exceed the limit of "
+                                              f"{s.max_bitstrings} per request")
+    circuit = resolve_circuit(state, body)
+    bits = check_bitstrings(body.bitstrings, circuit.num_qubits)
+    predicted = _predicted_seconds(state, circuit, len(dict.fromkeys(bits)), body.dtype, body.engine)
+    if predicted is not None and predicted > s.max_predicted_seconds:
+        raise LimitExceeded("max_predicted_seconds", f"predicted {predicted:.4g} s exceeds the limit of "
+                                                     f"{s.max_predicted_seconds:.4g} s")
+    from ..compute import cached_results
+
+    with state.sessions() as sess:
+        all_cached = len(cached_results(sess, circuit.content_hash, bits, body.dtype)) == len(set(bits))
+    if not all_cached and (predicted is None or predicted > s.sync_threshold_seconds):
+        job = state.jobs.create(circuit.content_hash, bits, body.dtype, body.engine)
+        state.metrics.queue_depth.set(state.jobs.depth)
+        response.status_code = 202
+        response.headers["Location"] = f"/v1/jobs/{job.id}"
+        return job_out(job)
+    items, stats = compute(state.sessions, circuit, bits, dtype=body.dtype, engine=body.engine,
+                           planner=PlannerOptions(budget_seconds=s.plan_budget_seconds),
+                           memory_bytes=s.memory_bytes)
+    state.metrics.cache_hits.inc(stats["cached"])
+    state.metrics.cache_misses.inc(stats["computed"])
+    state.metrics.madds.inc(stats["madds"])
+    prov = Provenance(versions=versions(), engine=stats["engine"] or items[0].engine,
+                      plan_hash=stats["plan_hash"] or items[0].plan_hash, dtype=body.dtype,
+                      wall_seconds=stats["wall_seconds"], computed=stats["computed"], cached=stats["cached"])
+    return AmplitudesOut(circuit_id=circuit.content_hash, provenance=prov, results=[
+        AmplitudeOut(bitstring=i.bitstring, amplitude=(i.re, i.im), probability=i.probability, cached=i.cached)
+        for i in items])

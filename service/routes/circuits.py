@@ -1,0 +1,31 @@
+"""/v1/circuits: register a circuit, fetch it back."""
+
+import json
+
+from fastapi import APIRouter, Depends, HTTPException
+
+from ..compute import store_circuit
+from ..db import CircuitRow
+from ..deps import AppState, get_state, parse_circuit
+from ..schemas import CircuitDetail, CircuitIn, CircuitOut, ErrorOut
+
+router = APIRouter(prefix="/v1/circuits", tags=["circuits"])
+
+
+@router.post("", status_code=201, response_model=CircuitOut, responses={422: {"model": ErrorOut}})
+def register_circuit(body: CircuitIn, state: AppState = Depends(get_state)) -> CircuitOut:
+    """Register a circuit; its id is the content hash, its architecture id the structure hash."""
+    c = parse_circuit(state, body)
+    store_circuit(state.sessions, c)
+    return CircuitOut(circuit_id=c.content_hash, architecture_id=c.structure_hash,
+                      num_qubits=c.num_qubits, num_gates=len(c.gates))
+
+
+@router.get("/{circuit_id}", response_model=CircuitDetail, responses={404: {"model": ErrorOut}})
+def get_circuit(circuit_id: str, state: AppState = Depends(get_state)) -> CircuitDetail:
+    with state.sessions() as s:
+        row = s.get(CircuitRow, circuit_id)
+    if row is None:
+        raise HTTPException(404, f"no circuit with id {circuit_id}")
+    return CircuitDetail(circuit_id=row.content_hash, architecture_id=row.structure_hash,
+                         num_qubits=row.num_qubits, num_gates=row.num_gates, document=json.loads(row.document))

@@ -1,0 +1,105 @@
+"""Request and response schemas of the REST API (pydantic), apart from the storage models."""
+
+from __future__ import annotations
+
+from typing import Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field
+
+Dtype = Literal["complex128", "complex64"]
+Engine = Literal["auto", "network", "statevector"]
+
+GHZ_EXAMPLE = 'OPENQASM 2.0;\ninclude "qelib1.inc";\nqreg q[3];\nh q[0];\ncx q[0],q[1];\ncx q[1],q[2];\n'
+
+
+class CircuitIn(BaseModel):
+    """A circuit given inline: OpenQASM text or the JSON document (exactly one)."""
+
+    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [{"qasm": GHZ_EXAMPLE}]})
+    qasm: str | None = Field(None, description="OpenQASM 2.0 or 3 text")
+    document: dict[str, Any] | None = Field(None, description="veramp JSON circuit document")
+
+
+class CircuitRef(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+    circuit_id: str | None = Field(None, description="content hash of a registered circuit")
+    circuit: CircuitIn | None = None
+
+
+class CircuitOut(BaseModel):
+    circuit_id: str
+    architecture_id: str
+    num_qubits: int
+    num_gates: int
+
+
+class CircuitDetail(CircuitOut):
+    document: dict[str, Any]
+
+
+class EstimateIn(CircuitRef):
+    bitstrings: int = Field(1, ge=1, description="number of amplitudes wanted")
+    dtype: Dtype = "complex128"
+    engine: Engine = "auto"
+
+
+class AmplitudesIn(CircuitRef):
+    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [
+        {"circuit": {"qasm": GHZ_EXAMPLE}, "bitstrings": ["000", "111", "010"]}]})
+    bitstrings: list[str] = Field(..., min_length=1, description="qubit 0 first")
+    dtype: Dtype = "complex128"
+    engine: Engine = "auto"
+
+
+class AmplitudeOut(BaseModel):
+    bitstring: str
+    amplitude: tuple[float, float]
+    probability: float
+    cached: bool
+
+
+class Provenance(BaseModel):
+    versions: dict[str, str]
+    engine: str | None
+    plan_hash: str | None
+    dtype: str
+    wall_seconds: float
+    computed: int
+    cached: int
+
+
+class AmplitudesOut(BaseModel):
+    circuit_id: str
+    results: list[AmplitudeOut]
+    provenance: Provenance
+
+
+JobStatus = Literal["queued", "running", "succeeded", "failed", "cancelled"]
+
+
+class JobOut(BaseModel):
+    job_id: str
+    status: JobStatus
+    circuit_id: str
+    total: int
+    done: int
+    progress: float
+    eta_seconds: float | None
+    error: str | None = None
+    provenance: dict[str, Any] | None = None
+
+
+class ResultsPage(BaseModel):
+    job_id: str
+    offset: int
+    limit: int
+    total: int
+    results: list[AmplitudeOut]
+
+
+class ErrorOut(BaseModel):
+    error: str
+    message: str
+    line: int | None = None
+    column: int | None = None
+    limit: str | None = None

@@ -1,0 +1,178 @@
+"""The REST service in-process (TestClient): circuits, amplitudes, cache, jobs, errors, limits, auth.
+
+Reference values: GHZ amplitudes 1/√2 on 000 and 111, 0 elsewhere (Nielsen & Chuang 2010); other
+circuits are checked against the numpy state vector.
+"""
+
+import json
+import math
+import time
+
+import pytest
+from fastapi.testclient import TestClient
+
+from contraction.calibration import MachineRate
+from contraction.random_circuits import grid_architecture, random_instance
+from contraction.qasm_writer import write_qasm3
+from contraction.statevector import state_vector
+from service.app import create_app
+from service.settings import Settings
+
+from .test_bad_input import JSON_CASES, QASM_CASES
+
+GHZ = 'OPENQASM 2.0;\ninclude "qelib1.inc";\nqreg q[3];\nh q[0];\ncx q[0],q[1];\ncx q[1],q[2];\n'
+RATE = MachineRate(1e10, 0.5, 1e-8, 2e-5, 2e-8, 1, 0.0)
+
+
+def make_settings(tmp_path, **kw) -> Settings:
+    d = tmp_path / "data"
+    d.mkdir(exist_ok=True)
+    (d / "calibration.json").write_text(json.dumps(RATE.to_dict()))   # skip the calibration run
+    kw.setdefault("workers", 1)
+    kw.setdefault("plan_budget_seconds", 0.3)
+    return Settings(data_dir=d, **kw)
+
+
+@pytest.fixture
+def client(tmp_path):
+    with TestClient(create_app(make_settings(tmp_path))) as c:
+        yield c
+
+
+def wait_job(client, job_id, timeout=120):
+    t0 = time.time()
+    while time.time() - t0 < timeout:
+        j = client.get(f"/v1/jobs/{job_id}").json()
+        if j["status"] in ("succeeded", "failed", "cancelled"):
+            return j
+        time.sleep(0.2)
+    raise AssertionError("job did not finish")
+
+
+def test_register_and_fetch_circuit(client):
+    r = client.post("/v1/circuits", json={"qasm": GHZ})
+    assert r.status_code == 201
+    cid, aid = r.json()["circuit_id"], r.json()["architecture_id"]
+    got = client.get(f"/v1/circuits/{cid}").json()
+    assert got["num_qubits"] == 3 and got["architecture_id"] == aid
+    assert got["document"]["format"] == "veramp.circuit"
+    assert client.get("/v1/circuits/ffff").status_code == 404
+
+
+def test_amplitudes_sync_and_cache(client):
+    body = {"circuit": {"qasm": GHZ}, "bitstrings": ["000", "111", "010", "000"]}
+    r = client.post("/v1/amplitudes", json=body)
+    assert r.status_code == 200
+    doc = r.json()
+    res = doc["results"]
+    assert [x["bitstring"] for x in res] == ["000", "111", "010", "000"]
+    assert math.isclose(res[0]["amplitude"][0], 1 / math.sqrt(2), abs_tol=1e-15)
+    assert res[2]["probability"] == 0.0
+    assert doc["provenance"]["computed"] == 3 and not any(x["cached"] for x in res)
+    assert {"veramp", "numpy", "cotengra"} <= set(doc["provenance"]["versions"])
+    again = client.post("/v1/amplitudes", json={"circuit_id": doc["circuit_id"], "bitstrings": ["111", "000"]}).json()
+    assert all(x["cached"] for x in again["results"])
+    assert again["provenance"]["computed"] == 0          # no contraction the second time
+    metrics = client.get("/metrics").text
+    assert "veramp_cache_hits_total 2.0" in metrics
+
+
+def test_large_work_becomes_a_job(tmp_path):
+    c = random_instance(grid_architecture(4, 6, 6), 3)       # 24 qubits: network engine, no plan stored
+    psi_bits = ["0" * 24, "1" * 24, "01" * 12]
+    with TestClient(create_app(make_settings(tmp_path, sync_threshold_seconds=0.0))) as client:
+        r = client.post("/v1/amplitudes", json={"circuit": {"qasm": write_qasm3(c)}, "bitstrings": psi_bits})
+        assert r.status_code == 202 and r.headers["location"].startswith("/v1/jobs/")
+        job = wait_job(client, r.json()["job_id"])
+        assert job["status"] == "succeeded", job
+        assert job["progress"] == 1.0 and job["provenance"]["engine"] == "network"
+        page = client.get(f"/v1/jobs/{job['job_id']}/results?offset=1&limit=2").json()
+        assert [x["bitstring"] for x in page["results"]] == psi_bits[1:3]
+        nd = [json.loads(line) for line in client.get(f"/v1/jobs/{job['job_id']}/results.ndjson").text.splitlines()]
+        csv = client.get(f"/v1/jobs/{job['job_id']}/results.csv").text.splitlines()
+        assert csv[0] == "bitstring,amplitude_re,amplitude_im,probability" and len(csv) == 4
+    # the amplitudes against an independent engine: the network result vs the 24-qubit state vector
+    psi = state_vector(c)
+    for row in nd:
+        a = complex(*row["amplitude"])
+        assert abs(a - psi[int(row["bitstring"], 2)]) <= 1e-10 * abs(a)
+
+
+def test_cancel_a_queued_job(tmp_path):
+    c = random_instance(grid_architecture(5, 6, 12), 3)
+    with TestClient(create_app(make_settings(tmp_path, sync_threshold_seconds=0.0, plan_budget_seconds=20))) as client:
+        jobs = [client.post("/v1/amplitudes", json={"circuit": {"qasm": write_qasm3(c)},
+                                                    "bitstrings": [format(i, "030b")]}).json() for i in range(3)]
+        last = jobs[-1]["job_id"]
+        r = client.post(f"/v1/jobs/{last}/cancel")
+        assert r.status_code == 200
+        assert wait_job(client, last, timeout=300)["status"] == "cancelled"
+        for j in jobs[:-1]:
+            client.post(f"/v1/jobs/{j['job_id']}/cancel")
+
+
+@pytest.mark.parametrize("case", QASM_CASES, ids=[c[0] for c in QASM_CASES])
+def test_bad_qasm_through_api_is_4xx(client, case):
+    _id, text, _cls, words, line = case
+    r = client.post("/v1/amplitudes", json={"circuit": {"qasm": text}, "bitstrings": ["0"]})
+    assert 400 <= r.status_code < 500
+    body = r.json()
+    assert words in body["message"]
+    if line is not None:
+        assert body["line"] == line
+
+
+@pytest.mark.parametrize("case", JSON_CASES, ids=[c[0] for c in JSON_CASES])
+def test_bad_json_documents_through_api_are_4xx(client, case):
+    _id, text, _cls, words = case
+    r = client.post("/v1/circuits", content='{"document": ' + text + "}",
+                    headers={"content-type": "application/json"})
+    assert r.status_code == 422
+    if _id != "not-json":        # the body itself is not JSON: the request parser says so
+        assert words in r.json()["message"]
+
+
+@pytest.mark.parametrize("body,status,words", [
+    ({"circuit": {"qasm": GHZ}, "bitstrings": ["01"]}, 422, "has 2 characters"),
+    ({"circuit": {"qasm": GHZ}, "bitstrings": []}, 422, "bitstrings"),
+    ({"circuit": {"qasm": GHZ, "document": {}}, "bitstrings": ["000"]}, 422, "exactly one"),
+    ({"bitstrings": ["000"]}, 422, "exactly one"),
+    ({"circuit": {"qasm": GHZ}, "bitstrings": ["000"], "dtype": "float"}, 422, "dtype"),
+    ({"circuit_id": "nope", "bitstrings": ["000"]}, 404, "no circuit"),
+])
+def test_request_errors(client, body, status, words):
+    r = client.post("/v1/amplitudes", json=body)
+    assert r.status_code == status
+    assert words in r.json()["message"]
+
+
+def test_limits_name_the_limit(tmp_path):
+    s = make_settings(tmp_path, max_bitstrings=2, max_gates=2, max_request_bytes=4000, max_qubits=10)
+    with TestClient(create_app(s)) as client:
+        r = client.post("/v1/amplitudes", json={"circuit": {"qasm": GHZ}, "bitstrings": ["000"] * 3})
+        assert r.status_code == 413 and r.json()["limit"] == "max_bitstrings"
+        r = client.post("/v1/amplitudes", json={"circuit": {"qasm": GHZ}, "bitstrings": ["000"]})
+        assert r.status_code == 413 and r.json()["limit"] == "max_gates"
+        r = client.post("/v1/circuits", json={"qasm": GHZ + "// " + "x" * 5000})
+        assert r.status_code == 413 and r.json()["limit"] == "max_request_bytes"
+        r = client.post("/v1/circuits", json={"qasm": "OPENQASM 2.0; qreg q[11];"})
+        assert r.status_code == 422 and "exceeds the limit of 10 qubits" in r.json()["message"]
+
+
+def test_auth(tmp_path):
+    tokfile = tmp_path / "tokens"
+    tokfile.write_text("file-token\n")
+    with TestClient(create_app(make_settings(tmp_path, tokens="env-token", tokens_file=tokfile))) as client:
+        assert client.get("/v1/health").status_code == 200
+        for path in ("/v1/ready", "/metrics", "/openapi.json", "/v1/jobs/x"):
+            r = client.get(path)
+            assert r.status_code == 401 and r.headers["www-authenticate"] == "Bearer"
+        assert client.get("/v1/ready", headers={"Authorization": "Bearer wrong"}).status_code == 401
+        for tok in ("env-token", "file-token"):
+            assert client.get("/v1/ready", headers={"Authorization": f"Bearer {tok}"}).status_code == 200
+
+
+def test_openapi_has_examples(client):
+    spec = client.get("/openapi.json").json()
+    assert "/v1/amplitudes" in spec["paths"] and "/v1/jobs/{job_id}/results" in spec["paths"]
+    assert "examples" in json.dumps(spec["components"]["schemas"]["AmplitudesIn"])
