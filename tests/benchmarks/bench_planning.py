@@ -13,13 +13,13 @@ import json
 import math
 import time
 
-from contraction.amplitudes import amplitudes
+from contraction.amplitudes import amplitudes, network_plan
 from contraction.calibration import matmul_rate, measure
 from contraction.estimate import estimate
 from contraction.executor import contract_scalar
 from contraction.network import build_structure, tensor_arrays
 from contraction.plan_store import MemoryPlanStore
-from contraction.planner import PlannerOptions, find_plan
+from contraction.planner import PlannerOptions
 from contraction.random_circuits import grid_architecture, random_instance
 
 
@@ -75,7 +75,7 @@ def part_c(budget: float) -> dict:
     for r, c, cy in [(5, 6, 12), (6, 6, 12), (5, 7, 14)]:
         circ = random_instance(grid_architecture(r, c, cy), seed=7)
         s = build_structure(circ)
-        plan = find_plan(s, PlannerOptions(budget_seconds=budget))
+        plan, _tree, _hit = network_plan(s, None, PlannerOptions(budget_seconds=budget), 8 * 2 ** 30)
         if plan.width < 20:
             rows.append({"grid": f"{r}x{c}", "cycles": cy, "width": plan.width, "skipped": "width < 20"})
             continue
