@@ -28,6 +28,12 @@ def haar_unitary(d: int, rng: np.random.Generator) -> np.ndarray:
     return q * (diag / np.abs(diag))[None, :]
 
 
+def haar_state(d: int, rng: np.random.Generator) -> np.ndarray:
+    """A Haar-random state: a normalised complex Gaussian vector (same law as a Haar unitary's column)."""
+    z = rng.standard_normal(d) + 1j * rng.standard_normal(d)
+    return z / np.linalg.norm(z)
+
+
 @dataclass(frozen=True)
 class Architecture:
     num_qubits: int

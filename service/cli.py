@@ -213,6 +213,37 @@ def cmd_serve(args) -> int:
     return 0
 
 
+def cmd_xeb(args) -> int:
+    from contraction.amplitudes import amplitudes
+    from contraction.bitstrings import read_bitstrings
+    from contraction.planner import PlannerOptions
+    from contraction.xeb import estimate_xeb, porter_thomas_ks
+
+    settings = _settings()
+    circuit = load_circuit_file(args.circuit)
+    samples = read_bitstrings(_read_text(args.samples))
+    if not samples:
+        raise UsageError(f"{args.samples} holds no bitstrings")
+    run = amplitudes(circuit, samples, planner=PlannerOptions(budget_seconds=settings.plan_budget_seconds),
+                     plan_store=_plan_store(settings), memory_bytes=settings.memory_bytes)
+    probs = [r.probability for r in run.results]
+    res = estimate_xeb(probs, circuit.num_qubits, bootstrap=args.bootstrap, seed=args.seed)
+    doc = res.to_dict()
+    doc["engine"] = run.engine
+    if args.format == "json":
+        print(json.dumps(doc))
+    else:
+        print(f"samples                  {res.samples}")
+        print(f"linear XEB               {res.linear_xeb:.6f} +/- {res.linear_xeb_stderr:.6f} "
+              f"(model {res.linear_xeb_stderr_model:.6f})")
+        print(f"95% bootstrap interval   [{res.bootstrap_low:.6f}, {res.bootstrap_high:.6f}]")
+        if res.log_xeb is not None:
+            print(f"log XEB                  {res.log_xeb:.6f} +/- {res.log_xeb_stderr:.6f}")
+        else:
+            print("log XEB                  undefined (a sample has probability 0)")
+    return 0
+
+
 def cmd_convert(args) -> int:
     from contraction.circuit_json import write_json
     from contraction.qasm_writer import write_qasm3
@@ -289,6 +320,14 @@ def build_parser() -> argparse.ArgumentParser:
     pl.add_argument("--memory", metavar="SIZE")
     pl.add_argument("--dtype", choices=["complex128", "complex64"], default="complex128")
     pl.set_defaults(func=cmd_plan)
+
+    x = sub.add_parser("xeb", help="linear and log XEB fidelity of device samples")
+    x.add_argument("circuit")
+    x.add_argument("--samples", required=True, metavar="FILE", help="sampled bitstrings, one per line")
+    x.add_argument("--bootstrap", type=int, default=1000, help="bootstrap resamples (default 1000)")
+    x.add_argument("--seed", type=int, default=0)
+    x.add_argument("--format", choices=["table", "json"], default="table")
+    x.set_defaults(func=cmd_xeb)
 
     sv = sub.add_parser("serve", help="run the REST service (SQLite and a local worker pool by default)")
     sv.add_argument("--host", default="127.0.0.1")

@@ -85,3 +85,26 @@ def test_generate_and_convert_round_trip(tmp_path, capsys):
     assert main(["amplitudes", str(tmp_path / "c.qasm"), "-b", "010101", "--format", "json"]) == 0
     b = json.loads(capsys.readouterr().out)["results"][0]["amplitude"]
     assert math.dist(a, b) < 1e-12
+
+
+def test_xeb_command_json(tmp_path, capsys):
+    # samples drawn from the ideal distribution of a 12-qubit random circuit: the linear XEB must
+    # agree with N·mean p − 1 computed from the numpy state vector (Arute et al. 2019 definition)
+    import numpy as np
+
+    from contraction.qasm_writer import write_qasm3
+    from contraction.random_circuits import grid_architecture, random_instance
+    from contraction.statevector import state_vector
+    from contraction.xeb import sample_mixture
+
+    c = random_instance(grid_architecture(3, 4, 10), 4)
+    p = np.abs(state_vector(c)) ** 2
+    idx = sample_mixture(p, 1.0, 400, np.random.default_rng(1))
+    (tmp_path / "c.qasm").write_text(write_qasm3(c))
+    (tmp_path / "s.txt").write_text("\n".join(format(i, "012b") for i in idx))
+    assert main(["xeb", str(tmp_path / "c.qasm"), "--samples", str(tmp_path / "s.txt"), "--format", "json",
+                 "--bootstrap", "100"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert {"linear_xeb", "linear_xeb_stderr", "log_xeb", "samples"} <= set(doc)
+    assert doc["samples"] == 400
+    assert doc["linear_xeb"] == pytest.approx(4096 * p[idx].mean() - 1, rel=1e-9)
