@@ -8,6 +8,7 @@ it finished and a resumed job does not compute it again.
 
 from __future__ import annotations
 
+import functools
 import platform
 import time
 from dataclasses import dataclass
@@ -41,6 +42,7 @@ class ResultItem:
         return self.re * self.re + self.im * self.im
 
 
+@functools.lru_cache(maxsize=1)
 def versions() -> dict:
     import cotengra
     import numpy
