@@ -244,6 +244,52 @@ def cmd_xeb(args) -> int:
     return 0
 
 
+def cmd_submit(args) -> int:
+    import os
+
+    from contraction.bitstrings import read_bitstrings
+    from service.client import Client, ServiceError
+
+    text = _read_text(args.circuit)
+    bits = read_bitstrings(_read_text(args.bitstrings))
+    circuit = {"qasm": text} if not text.lstrip().startswith("{") else {"document": json.loads(text)}
+    token = args.token or os.environ.get("VERAMP_TOKEN")
+    try:
+        with Client(args.url, token=token, retries=args.retries) as cl:
+            reply = cl.amplitudes(bits, **{("qasm" if "qasm" in circuit else "document"): next(iter(circuit.values()))},
+                                  dtype=args.dtype)
+            if "job_id" in reply:
+                bar = ProgressBar(sys.stderr.isatty())
+
+                class _P:  # adapt job rows to the progress bar's fields
+                    def __init__(self, j):
+                        self.done, self.total, self.eta_seconds = j["done"], j["total"], j["eta_seconds"]
+
+                job = cl.wait(reply["job_id"], on_progress=lambda j: bar(_P(j)))
+                if job["status"] != "succeeded":
+                    raise UsageError(f"job {job['job_id']} {job['status']}: {job.get('error') or ''}".strip())
+                rows = list(cl.results(job["job_id"]))
+            else:
+                rows = reply["results"]
+    except ServiceError as exc:
+        raise UsageError(f"service answered {exc}") from None
+    except httpx_errors() as exc:
+        raise UsageError(f"cannot reach {args.url}: {exc}") from None
+    if args.format == "json":
+        print(json.dumps({"results": [{k: r[k] for k in ("bitstring", "amplitude", "probability")} for r in rows]}))
+    else:
+        print("bitstring,amplitude_re,amplitude_im,probability")
+        for r in rows:
+            print(f"{r['bitstring']},{r['amplitude'][0]!r},{r['amplitude'][1]!r},{r['probability']!r}")
+    return 0
+
+
+def httpx_errors():
+    import httpx
+
+    return httpx.TransportError
+
+
 def cmd_convert(args) -> int:
     from contraction.circuit_json import write_json
     from contraction.qasm_writer import write_qasm3
@@ -328,6 +374,16 @@ def build_parser() -> argparse.ArgumentParser:
     x.add_argument("--seed", type=int, default=0)
     x.add_argument("--format", choices=["table", "json"], default="table")
     x.set_defaults(func=cmd_xeb)
+
+    sb = sub.add_parser("submit", help="send a circuit and bitstrings to a running service and follow the job")
+    sb.add_argument("circuit")
+    sb.add_argument("--bitstrings", required=True, metavar="FILE")
+    sb.add_argument("--url", default="http://127.0.0.1:8350")
+    sb.add_argument("--token", help="bearer token (or VERAMP_TOKEN)")
+    sb.add_argument("--retries", type=int, default=5, help="retries with exponential backoff (default 5)")
+    sb.add_argument("--dtype", choices=["complex128", "complex64"], default="complex128")
+    sb.add_argument("--format", choices=["json", "csv"], default="csv")
+    sb.set_defaults(func=cmd_submit)
 
     sv = sub.add_parser("serve", help="run the REST service (SQLite and a local worker pool by default)")
     sv.add_argument("--host", default="127.0.0.1")

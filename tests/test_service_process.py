@@ -84,3 +84,31 @@ def test_job_survives_sigkill_and_client_reads_results(tmp_path):
 
     con = sqlite3.connect(data / "veramp.sqlite")
     assert con.execute("select count(*) from results").fetchone()[0] == len(set(bits))
+
+
+@pytest.mark.slow
+def test_submit_command_follows_a_job(tmp_path):
+    data = tmp_path / "data"
+    data.mkdir()
+    (data / "calibration.json").write_text(json.dumps(RATE.to_dict()))
+    c = random_instance(grid_architecture(4, 6, 6), 8)
+    (tmp_path / "c.qasm").write_text(write_qasm3(c))
+    bits = ["0" * 24, "1" * 24, "01" * 12]
+    (tmp_path / "b.txt").write_text("\n".join(bits))
+    port = free_port()
+    proc = start(data, port)
+    try:
+        out = subprocess.run([sys.executable, "-m", "service.cli", "submit", str(tmp_path / "c.qasm"), "--bitstrings",
+                              str(tmp_path / "b.txt"), "--url", f"http://127.0.0.1:{port}", "--format", "json"],
+                             capture_output=True, text=True, timeout=300)
+        bad = subprocess.run([sys.executable, "-m", "service.cli", "submit", str(tmp_path / "c.qasm"), "--bitstrings",
+                              str(tmp_path / "b.txt"), "--url", "http://127.0.0.1:1", "--retries", "1"], capture_output=True, text=True)
+    finally:
+        kill_hard(proc)
+    assert out.returncode == 0, out.stderr
+    rows = json.loads(out.stdout)["results"]
+    psi = state_vector(c)
+    assert [r["bitstring"] for r in rows] == bits
+    for r in rows:
+        assert abs(complex(*r["amplitude"]) - psi[int(r["bitstring"], 2)]) < 1e-12
+    assert bad.returncode == 2 and "cannot reach" in bad.stderr and "Traceback" not in bad.stderr
