@@ -65,20 +65,21 @@ def matmul_rate(n: int = 1024, repeats: int = 3, dtype=np.complex128) -> float:
 
 
 def _network_time(rows: int, cols: int, cycles: int, repeats: int) -> tuple[float, float, float, int]:
-    from .network import build_structure, tensor_arrays
-    from .planner import PlannerOptions, find_plan
+    """Median wall time of one amplitude through the same path a request takes (stored plan,
+    tree rebuild, tensor values, contraction), with the plan's madds, writes and steps."""
+    from .amplitudes import amplitudes
+    from .network import build_structure
+    from .plan_store import MemoryPlanStore
+    from .planner import PlannerOptions
     from .random_circuits import grid_architecture, random_instance
 
     c = random_instance(grid_architecture(rows, cols, cycles), seed=1)
-    s = build_structure(c)
-    plan = find_plan(s, PlannerOptions(budget_seconds=0.0, max_repeats=1))
-    tree = plan.tree(s)
-    arrays = tensor_arrays(s, c, "0" * c.num_qubits)
-    from .executor import contract_scalar
-
-    contract_scalar(tree, arrays)
-    t = _median_time(lambda: contract_scalar(tree, arrays), repeats)
-    return t, plan.madds, plan.writes, s.num_tensors - 1
+    store = MemoryPlanStore()
+    opts = PlannerOptions(budget_seconds=0.0, max_repeats=1)
+    bits = ["0" * c.num_qubits]
+    plan = amplitudes(c, bits, engine="network", planner=opts, plan_store=store).plan
+    t = _median_time(lambda: amplitudes(c, bits, engine="network", planner=opts, plan_store=store), repeats)
+    return t, plan.madds, plan.writes, build_structure(c).num_tensors - 1
 
 
 def _dense_pair_time(outer: int = 10, shared: int = 10, repeats: int = 3) -> tuple[float, float, float, int]:

@@ -140,7 +140,7 @@ def _product(circuit: Circuit, gate_ids) -> np.ndarray:
 
 def _embed(matrix: np.ndarray, acts_on: tuple[int, ...], order: tuple[int, ...]) -> np.ndarray:
     """A gate on qubits ``acts_on`` (a subset of ``order``) as a matrix in ``order``'s basis."""
-    k, j = len(order), len(acts_on)
+    k = len(order)
     rest = [q for q in order if q not in acts_on]
     full = np.kron(matrix, np.eye(2 ** len(rest))) if rest else matrix
     current = list(acts_on) + rest

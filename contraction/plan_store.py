@@ -42,16 +42,20 @@ class PlanStore(Protocol):
     def put(self, plan: Plan) -> bool: ...
 
 
-class MemoryPlanStore:
-    """Plans in a dict (one process, no persistence)."""
+class _SlotStore:
+    """Shared rules: plans per network in slots by memory class; counts hits and misses."""
 
-    def __init__(self) -> None:
-        self._plans: dict[str, dict[str, Plan]] = {}
-        self.hits = 0
-        self.misses = 0
+    hits = 0
+    misses = 0
+
+    def _load(self, network_key: str) -> dict[str, Plan]:
+        raise NotImplementedError
+
+    def _save(self, network_key: str, plans: dict[str, Plan]) -> None:
+        raise NotImplementedError
 
     def get(self, network_key: str, max_peak_elements: float | None = None) -> Plan | None:
-        plan = best_fitting(self._plans.get(network_key, {}).values(), max_peak_elements)
+        plan = best_fitting(self._load(network_key).values(), max_peak_elements)
         if plan is None:
             self.misses += 1
         else:
@@ -59,23 +63,35 @@ class MemoryPlanStore:
         return plan
 
     def put(self, plan: Plan) -> bool:
-        slot = self._plans.setdefault(plan.network_key, {})
+        plans = self._load(plan.network_key)
         key = target_key(plan)
-        old = slot.get(key)
+        old = plans.get(key)
         if old is not None and old.madds <= plan.madds:
             return False
-        slot[key] = plan
+        plans[key] = plan
+        self._save(plan.network_key, plans)
         return True
 
 
-class DirectoryPlanStore:
+class MemoryPlanStore(_SlotStore):
+    """Plans in a dict (one process, no persistence)."""
+
+    def __init__(self) -> None:
+        self._plans: dict[str, dict[str, Plan]] = {}
+
+    def _load(self, network_key: str) -> dict[str, Plan]:
+        return dict(self._plans.get(network_key, {}))
+
+    def _save(self, network_key: str, plans: dict[str, Plan]) -> None:
+        self._plans[network_key] = plans
+
+
+class DirectoryPlanStore(_SlotStore):
     """One JSON file per network key in a private directory."""
 
     def __init__(self, directory: str | os.PathLike) -> None:
         self.dir = Path(directory)
         self.dir.mkdir(parents=True, exist_ok=True, mode=0o700)
-        self.hits = 0
-        self.misses = 0
 
     def _path(self, network_key: str) -> Path:
         if not network_key or not all(c in "0123456789abcdef" for c in network_key):
@@ -105,27 +121,12 @@ class DirectoryPlanStore:
                 plans[key] = plan
         return plans
 
-    def get(self, network_key: str, max_peak_elements: float | None = None) -> Plan | None:
-        plan = best_fitting(self._load(network_key).values(), max_peak_elements)
-        if plan is None:
-            self.misses += 1
-        else:
-            self.hits += 1
-        return plan
-
-    def put(self, plan: Plan) -> bool:
-        plans = self._load(plan.network_key)
-        key = target_key(plan)
-        old = plans.get(key)
-        if old is not None and old.madds <= plan.madds:
-            return False
-        plans[key] = plan
+    def _save(self, network_key: str, plans: dict[str, Plan]) -> None:
         body = json.dumps({k: p.to_dict() for k, p in plans.items()}, sort_keys=True)
         fd, tmp = tempfile.mkstemp(dir=self.dir, prefix=".plan-", suffix=".tmp")
         with os.fdopen(fd, "w") as fh:
             fh.write(body)
-        os.replace(tmp, self._path(plan.network_key))
-        return True
+        os.replace(tmp, self._path(network_key))
 
     def discard(self, network_key: str) -> None:
         self._path(network_key).unlink(missing_ok=True)

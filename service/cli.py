@@ -217,7 +217,7 @@ def cmd_xeb(args) -> int:
     from contraction.amplitudes import amplitudes
     from contraction.bitstrings import read_bitstrings
     from contraction.planner import PlannerOptions
-    from contraction.xeb import estimate_xeb, porter_thomas_ks
+    from contraction.xeb import estimate_xeb
 
     settings = _settings()
     circuit = load_circuit_file(args.circuit)

@@ -9,7 +9,6 @@ one complex add = 2 adds: common practice); bytes = elements x itemsize (numpy d
 import dataclasses
 import json
 
-import numpy as np
 import pytest
 
 from contraction.amplitudes import amplitudes, network_plan

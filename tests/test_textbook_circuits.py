@@ -9,7 +9,6 @@ probability 1.
 import cmath
 import math
 
-import numpy as np
 import pytest
 
 from contraction.amplitudes import amplitudes

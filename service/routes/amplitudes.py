@@ -6,7 +6,6 @@ from contraction.amplitudes import choose_engine
 from contraction.bitstrings import check_bitstrings
 from contraction.estimate import estimate
 from contraction.network import build_structure
-from contraction.plan_store import best_fitting  # noqa: F401  (documented lookup rule)
 from contraction.planner import PlannerOptions
 
 from ..compute import compute, versions

@@ -6,9 +6,8 @@ Prints one JSON object. Baseline measured in the same run: reading the same text
 
 import json
 import random
-import statistics
-import time
 
+from contraction.calibration import _median_time
 from contraction.circuit_json import write_json
 from contraction.qasm_reader import read_qasm
 
@@ -32,12 +31,7 @@ def make_file(num_gates: int, n: int = 50, seed: int = 1) -> str:
 
 
 def timed(fn, repeats=7):
-    out = []
-    for _ in range(repeats):
-        t = time.perf_counter()
-        fn()
-        out.append(time.perf_counter() - t)
-    return statistics.median(out)
+    return _median_time(fn, repeats)
 
 
 def main():
