@@ -22,6 +22,7 @@ def main():
     ap.add_argument("--spam", type=float, default=0.9, help="fidelity at zero cycles")
     ap.add_argument("--samples", type=int, default=20000)
     ap.add_argument("--seed", type=int, default=24)
+    ap.add_argument("--plot", help="write the XEB-against-cycles figure (.png or .svg)")
     args = ap.parse_args()
     rng = np.random.default_rng(args.seed)
     cycles = [4, 6, 8, 10, 12, 14, 16]
@@ -43,6 +44,12 @@ def main():
     fit = fit_depth(cycles, f_hat, se)
     lo, hi = fit.per_cycle_error_ci
     f20, s20 = fit.predict(20)
+    if args.plot:
+        from service.plots import depth_fit_plot
+
+        fmt = "svg" if args.plot.endswith(".svg") else "png"
+        with open(args.plot, "wb") as fh:
+            fh.write(depth_fit_plot(cycles, f_hat, se, fit, fmt, "Wren-24 (invented chip): XEB against depth"))
     print(json.dumps({"chip": "Wren-24 (invented)", "per_depth": rows,
                       "fit": {"per_cycle_error": round(fit.per_cycle_error, 5), "ci95": [round(lo, 5), round(hi, 5)],
                               "injected": args.error, "recovered": lo <= args.error <= hi,

@@ -19,7 +19,7 @@ from .db import make_engine, session_factory
 from .deps import AppState, LimitExceeded
 from .jobs import JobManager, QueueFull
 from .metrics import Metrics
-from .routes import amplitudes, circuits, jobs, ops
+from .routes import amplitudes, circuits, jobs, ops, xeb
 from .settings import Settings
 
 log = logging.getLogger("veramp.api")
@@ -57,7 +57,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app = FastAPI(title="veramp", version=__version__, lifespan=lifespan,
                   description="Exact amplitudes of quantum circuits for sampled bitstrings. "
                               "Bitstrings are written qubit 0 first.")
-    for r in (ops.router, circuits.router, amplitudes.router, jobs.router):
+    for r in (ops.router, circuits.router, amplitudes.router, jobs.router, xeb.router):
         app.include_router(r)
     tokens = settings.token_set()
 
@@ -95,8 +95,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     @app.exception_handler(LimitExceeded)
     async def limit_error(_req, exc: LimitExceeded):
-        kind = "limit_exceeded" if exc.status == 413 else "invalid_input"
-        return _error(exc.status, kind, exc.message, limit=exc.limit if exc.status == 413 else None)
+        kind = {413: "limit_exceeded", 409: "conflict"}.get(exc.status, "invalid_input")
+        return _error(exc.status, kind, exc.message, limit=exc.limit if exc.status in (409, 413) else None)
 
     @app.exception_handler(QueueFull)
     async def queue_full(_req, exc: QueueFull):

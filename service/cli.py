@@ -230,6 +230,15 @@ def cmd_xeb(args) -> int:
     res = estimate_xeb(probs, circuit.num_qubits, bootstrap=args.bootstrap, seed=args.seed)
     doc = res.to_dict()
     doc["engine"] = run.engine
+    if args.plot:
+        from service.plots import porter_thomas_plot
+
+        fmt = "svg" if args.plot.lower().endswith(".svg") else "png"
+        image = porter_thomas_plot(probs, circuit.num_qubits, res.linear_xeb, fmt)
+        try:
+            Path(args.plot).write_bytes(image)
+        except OSError as exc:
+            raise UsageError(f"cannot write {args.plot}: {exc.strerror}") from None
     if args.format == "json":
         print(json.dumps(doc))
     else:
@@ -373,6 +382,7 @@ def build_parser() -> argparse.ArgumentParser:
     x.add_argument("--bootstrap", type=int, default=1000, help="bootstrap resamples (default 1000)")
     x.add_argument("--seed", type=int, default=0)
     x.add_argument("--format", choices=["table", "json"], default="table")
+    x.add_argument("--plot", metavar="FILE", help="write the N·p histogram against Porter–Thomas (.png or .svg)")
     x.set_defaults(func=cmd_xeb)
 
     sb = sub.add_parser("submit", help="send a circuit and bitstrings to a running service and follow the job")

@@ -103,7 +103,8 @@ def test_xeb_command_json(tmp_path, capsys):
     (tmp_path / "c.qasm").write_text(write_qasm3(c))
     (tmp_path / "s.txt").write_text("\n".join(format(i, "012b") for i in idx))
     assert main(["xeb", str(tmp_path / "c.qasm"), "--samples", str(tmp_path / "s.txt"), "--format", "json",
-                 "--bootstrap", "100"]) == 0
+                 "--bootstrap", "100", "--plot", str(tmp_path / "pt.png")]) == 0
+    assert (tmp_path / "pt.png").read_bytes().startswith(b"\x89PNG")
     doc = json.loads(capsys.readouterr().out)
     assert {"linear_xeb", "linear_xeb_stderr", "log_xeb", "samples"} <= set(doc)
     assert doc["samples"] == 400

@@ -176,3 +176,26 @@ def test_openapi_has_examples(client):
     spec = client.get("/openapi.json").json()
     assert "/v1/amplitudes" in spec["paths"] and "/v1/jobs/{job_id}/results" in spec["paths"]
     assert "examples" in json.dumps(spec["components"]["schemas"]["AmplitudesIn"])
+
+
+def test_xeb_route_and_plots(client):
+    # linear XEB of samples from the ideal distribution of a 10-qubit random circuit, through the API,
+    # equals N·mean p − 1 from the numpy state vector (Arute et al. 2019 definition)
+    import numpy as np
+
+    from contraction.xeb import sample_mixture
+
+    c = random_instance(grid_architecture(2, 5, 10), 6)
+    p = np.abs(state_vector(c)) ** 2
+    idx = sample_mixture(p, 1.0, 300, np.random.default_rng(4))
+    body = {"circuit": {"qasm": write_qasm3(c)}, "samples": [format(i, "010b") for i in idx], "bootstrap": 50}
+    r = client.post("/v1/xeb", json=body)
+    assert r.status_code == 200, r.text
+    assert r.json()["linear_xeb"] == pytest.approx(1024 * p[idx].mean() - 1, rel=1e-9)
+    png = client.post("/v1/xeb/plot?format=png", json=body)
+    assert png.status_code == 200 and png.headers["content-type"] == "image/png"
+    assert png.content.startswith(b"\x89PNG\r\n\x1a\n")
+    svg = client.post("/v1/xeb/plot?format=svg", json=body)
+    assert svg.headers["content-type"].startswith("image/svg+xml") and b"<svg" in svg.content[:2000]
+    bad = client.post("/v1/xeb", json={**body, "samples": ["01"]})
+    assert bad.status_code == 422 and "characters" in bad.json()["message"]

@@ -1,0 +1,67 @@
+"""/v1/xeb: fidelity of device samples (JSON) and the N·p histogram against Porter–Thomas (image).
+
+Probabilities come through the same cached compute path as /v1/amplitudes. Work that is not cached
+and not predicted to be quick is refused with 409: run it as an amplitudes job first, then ask here
+by circuit id (the cached probabilities are used).
+"""
+
+from typing import Literal
+
+from fastapi import APIRouter, Depends, Query
+from fastapi.responses import Response
+from pydantic import Field
+
+from contraction.bitstrings import check_bitstrings
+from contraction.planner import PlannerOptions
+from contraction.xeb import estimate_xeb
+
+from ..compute import cached_results, compute
+from ..deps import AppState, LimitExceeded, get_state, resolve_circuit
+from ..routes.amplitudes import _predicted_seconds
+from ..schemas import CircuitRef, ErrorOut
+
+router = APIRouter(prefix="/v1/xeb", tags=["analysis"])
+
+
+class XebIn(CircuitRef):
+    samples: list[str] = Field(..., min_length=1, description="sampled bitstrings, qubit 0 first")
+    bootstrap: int = Field(1000, ge=0, le=10000)
+    seed: int = 0
+
+
+def _probabilities(state: AppState, body: XebIn):
+    s = state.settings
+    if len(body.samples) > s.max_bitstrings:
+        raise LimitExceeded("max_bitstrings", f"{len(body.samples)} samples exceed the limit of {s.max_bitstrings}")
+    circuit = resolve_circuit(state, body)
+    bits = check_bitstrings(body.samples, circuit.num_qubits)
+    with state.sessions() as sess:
+        all_cached = len(cached_results(sess, circuit.content_hash, bits, "complex128")) == len(set(bits))
+    if not all_cached:
+        predicted = _predicted_seconds(state, circuit, len(set(bits)), "complex128", "auto")
+        if predicted is None or predicted > s.sync_threshold_seconds:
+            raise LimitExceeded("sync_threshold_seconds", "these probabilities are not cached and would take "
+                                "a while: POST them to /v1/amplitudes (a job) first, then ask again", 409)
+    items, _stats = compute(state.sessions, circuit, bits, dtype="complex128", engine="auto",
+                            planner=PlannerOptions(budget_seconds=s.plan_budget_seconds), memory_bytes=s.memory_bytes)
+    return circuit, [i.probability for i in items]
+
+
+@router.post("", responses={409: {"model": ErrorOut}, 413: {"model": ErrorOut}, 422: {"model": ErrorOut}})
+def post_xeb(body: XebIn, state: AppState = Depends(get_state)) -> dict:
+    """Linear XEB (sample, model and bootstrap errors) and log XEB of device samples."""
+    circuit, probs = _probabilities(state, body)
+    return {"circuit_id": circuit.content_hash,
+            **estimate_xeb(probs, circuit.num_qubits, bootstrap=body.bootstrap, seed=body.seed).to_dict()}
+
+
+@router.post("/plot", response_class=Response,
+             responses={200: {"content": {"image/png": {}, "image/svg+xml": {}}}, 409: {"model": ErrorOut}})
+def post_xeb_plot(body: XebIn, format: Literal["png", "svg"] = Query("png"),
+                  state: AppState = Depends(get_state)) -> Response:
+    """The samples' N·p histogram against Porter–Thomas and the fitted mixture."""
+    from ..plots import FORMATS, porter_thomas_plot
+
+    circuit, probs = _probabilities(state, body)
+    res = estimate_xeb(probs, circuit.num_qubits, bootstrap=0)
+    return Response(porter_thomas_plot(probs, circuit.num_qubits, res.linear_xeb, format), media_type=FORMATS[format])
