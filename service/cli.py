@@ -230,6 +230,10 @@ def cmd_xeb(args) -> int:
     res = estimate_xeb(probs, circuit.num_qubits, bootstrap=args.bootstrap, seed=args.seed)
     doc = res.to_dict()
     doc["engine"] = run.engine
+    from contraction.xeb import mixture_ks
+
+    ks, ks_p = mixture_ks(probs, circuit.num_qubits, min(1.0, max(0.0, res.linear_xeb)))
+    doc["mixture_ks_statistic"], doc["mixture_ks_pvalue"] = ks, ks_p
     if args.plot:
         from service.plots import porter_thomas_plot
 
@@ -250,6 +254,7 @@ def cmd_xeb(args) -> int:
             print(f"log XEB                  {res.log_xeb:.6f} +/- {res.log_xeb_stderr:.6f}")
         else:
             print("log XEB                  undefined (a sample has probability 0)")
+        print(f"N·p vs F-mixture (KS)    D = {ks:.4f}, p-value = {ks_p:.3g}")
     return 0
 
 
@@ -297,6 +302,32 @@ def httpx_errors():
     import httpx
 
     return httpx.TransportError
+
+
+def cmd_fit(args) -> int:
+    from contraction.xeb import fit_depth
+
+    rows = []
+    for n, line in enumerate(_read_text(args.table).splitlines(), 1):
+        if not line.strip() or line.lstrip().startswith("#") or line.lower().startswith("cycles"):
+            continue
+        try:
+            d, f, se = (float(v) for v in line.replace(",", " ").split()[:3])
+        except ValueError:
+            raise UsageError(f"{args.table}:{n}: expected 'cycles, fidelity, stderr'") from None
+        rows.append((d, f, se))
+    if len(rows) < 3:
+        raise UsageError("a depth fit needs at least three (cycles, fidelity, stderr) rows")
+    d, f, se = (list(x) for x in zip(*rows))
+    fit = fit_depth(d, f, se)
+    doc = fit.to_dict()
+    doc["extrapolations"] = {str(c): list(fit.predict(c)) for c in args.extrapolate or []}
+    if args.plot:
+        from service.plots import depth_fit_plot
+
+        Path(args.plot).write_bytes(depth_fit_plot(d, f, se, fit, "svg" if args.plot.endswith(".svg") else "png"))
+    print(json.dumps(doc))
+    return 0
 
 
 def cmd_convert(args) -> int:
@@ -394,6 +425,12 @@ def build_parser() -> argparse.ArgumentParser:
     sb.add_argument("--dtype", choices=["complex128", "complex64"], default="complex128")
     sb.add_argument("--format", choices=["json", "csv"], default="csv")
     sb.set_defaults(func=cmd_submit)
+
+    ft = sub.add_parser("fit", help="fit XEB against cycles: F(d) = A(1-e)^d with a 95% interval on e")
+    ft.add_argument("table", help="rows 'cycles, fidelity, stderr' (CSV or whitespace)")
+    ft.add_argument("--extrapolate", type=float, action="append", metavar="CYCLES")
+    ft.add_argument("--plot", metavar="FILE", help="write the figure (.png or .svg)")
+    ft.set_defaults(func=cmd_fit)
 
     sv = sub.add_parser("serve", help="run the REST service (SQLite and a local worker pool by default)")
     sv.add_argument("--host", default="127.0.0.1")

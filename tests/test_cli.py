@@ -109,3 +109,15 @@ def test_xeb_command_json(tmp_path, capsys):
     assert {"linear_xeb", "linear_xeb_stderr", "log_xeb", "samples"} <= set(doc)
     assert doc["samples"] == 400
     assert doc["linear_xeb"] == pytest.approx(4096 * p[idx].mean() - 1, rel=1e-9)
+
+
+def test_fit_command(tmp_path, capsys):
+    # exact data on F(d) = 0.9·(1 − 0.05)^d: the weighted fit returns A and e (scipy curve_fit reference)
+    rows = ["cycles,fidelity,stderr"] + [f"{d},{0.9 * 0.95 ** d},{0.01}" for d in range(4, 17, 2)]
+    (tmp_path / "t.csv").write_text("\n".join(rows))
+    assert main(["fit", str(tmp_path / "t.csv"), "--extrapolate", "20", "--plot", str(tmp_path / "f.svg")]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert doc["per_cycle_error"] == pytest.approx(0.05, abs=1e-6)
+    assert doc["amplitude"] == pytest.approx(0.9, abs=1e-5)
+    assert doc["extrapolations"]["20.0"][0] == pytest.approx(0.9 * 0.95 ** 20, rel=1e-4)
+    assert b"<svg" in (tmp_path / "f.svg").read_bytes()[:2000]

@@ -1,0 +1,38 @@
+"""Patch circuits: with no gate across the cut the state is a product state, so the probability of
+x is the product of the parts' probabilities (standard linear algebra: |ψ_A ⊗ ψ_B|² factorises;
+the elided-circuit method of Arute et al. 2019, supplement). Reference: the numpy state vector."""
+
+import numpy as np
+import pytest
+
+from contraction.errors import VerampError
+from contraction.patches import crossing, elide, patch_probabilities, split
+from contraction.random_circuits import grid_architecture, random_instance
+from contraction.statevector import state_vector
+
+from .conftest import random_bitstrings
+
+
+def test_patch_probabilities_equal_full_circuit_when_nothing_crosses(rng):
+    c = random_instance(grid_architecture(3, 4, 8), 2, "discrete")
+    left = [r * 4 + col for r in range(3) for col in range(2)]      # columns 0-1 of the 3x4 grid
+    assert crossing(c, left)                                        # the full circuit does cross
+    with pytest.raises(VerampError, match="cross the cut"):
+        split(c, left)
+    e = elide(c, left)                                              # all crossing gates removed
+    assert not crossing(e, left)
+    assert len(e.gates) == len(c.gates) - len(crossing(c, left))
+    bits = random_bitstrings(rng, 12, 20)
+    p_full = np.abs(state_vector(e)) ** 2
+    p_patch = patch_probabilities(e, left, bits)
+    for b, p in zip(bits, p_patch):
+        assert abs(p - p_full[int(b, 2)]) <= 1e-12 * max(p, 1e-30) + 1e-18
+
+
+def test_partial_elision_is_seeded():
+    c = random_instance(grid_architecture(3, 4, 8), 2)
+    left = [0, 1, 4, 5, 8, 9]
+    n = len(crossing(c, left))
+    half = elide(c, left, share=0.5, seed=3)
+    assert len(crossing(half, left)) == n - round(0.5 * n)
+    assert [g.qubits for g in elide(c, left, 0.5, 3).gates] == [g.qubits for g in half.gates]
