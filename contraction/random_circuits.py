@@ -84,12 +84,13 @@ SQRT_GATES = {"sqrt_x": G.SQRT_X, "sqrt_y": G.SQRT_Y, "sqrt_w": G.SQRT_W}
 
 
 def random_instance(arch: Architecture, seed: int, gates: str = "haar",
-                    two_qubit: np.ndarray | None = None) -> Circuit:
+                    two_qubit: "np.ndarray | dict | None" = None) -> Circuit:
     """A seeded random circuit on ``arch``.
 
     ``gates="haar"``: every coupler of every layer gets an independent Haar-random 4x4 unitary.
     ``gates="discrete"``: a single-qubit layer from {√X, √Y, √W} before every two-qubit layer
-    and one at the end, then ``two_qubit`` (default fSim(π/2, π/6)) on each coupler.
+    and one at the end, then ``two_qubit`` on each coupler: one matrix for all (default
+    fSim(π/2, π/6)), or a dict {(a, b): matrix} with a gate per coupler (e.g. calibrated fSim angles).
     """
     rng = np.random.default_rng(seed)
     out: list[Gate] = []
@@ -99,7 +100,9 @@ def random_instance(arch: Architecture, seed: int, gates: str = "haar",
             for a, b in layer:
                 out.append(Gate((a, b), haar_unitary(4, rng), "haar"))
     elif gates == "discrete":
-        two = G.fsim(math.pi / 2, math.pi / 6) if two_qubit is None else np.asarray(two_qubit)
+        default = G.fsim(math.pi / 2, math.pi / 6)
+        per_coupler = two_qubit if isinstance(two_qubit, dict) else {}
+        two = default if two_qubit is None or isinstance(two_qubit, dict) else np.asarray(two_qubit)
         names = list(SQRT_GATES)
         last = [-1] * n
 
@@ -113,7 +116,7 @@ def random_instance(arch: Architecture, seed: int, gates: str = "haar",
         for layer in arch.layers:
             single_layer()
             for a, b in layer:
-                out.append(Gate((a, b), two, "fsim"))
+                out.append(Gate((a, b), per_coupler.get((a, b), two), "fsim"))
         single_layer()
     else:
         raise VerampError(f"unknown gate set {gates!r}; choose haar or discrete")

@@ -156,3 +156,35 @@ def fit_depth(cycles: Sequence[float], fidelities: Sequence[float], stderrs: Seq
     z = stats.norm.ppf(0.975)
     return DepthFit(float(popt[0]), float(popt[1]), (float(popt[1] - z * se), float(popt[1] + z * se)),
                     pcov.tolist())
+
+
+@dataclass(frozen=True)
+class SizeDepthFit:
+    """F(n, d) = (1 − e_r)^n · (1 − e_c)^(n·d): a per-qubit readout/preparation error e_r and a
+    per-qubit-per-cycle error e_c — the digital error model with gate errors spread over qubits."""
+
+    readout_error: float
+    cycle_error: float               # per qubit per cycle
+    covariance: list[list[float]]
+
+    def predict(self, qubits: float, cycles: float) -> tuple[float, float]:
+        er, ec = self.readout_error, self.cycle_error
+        f = (1 - er) ** qubits * (1 - ec) ** (qubits * cycles)
+        grad = np.array([-qubits * f / (1 - er), -qubits * cycles * f / (1 - ec)])
+        return f, math.sqrt(max(float(grad @ np.array(self.covariance) @ grad), 0.0))
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+def fit_size_depth(qubits: Sequence[float], cycles: Sequence[float], fidelities: Sequence[float],
+                   stderrs: Sequence[float]) -> SizeDepthFit:
+    """Weighted least squares of F(n, d) over circuits of several sizes and depths."""
+    from scipy import optimize
+
+    n = np.asarray(qubits, float)
+    d = np.asarray(cycles, float)
+    popt, pcov = optimize.curve_fit(lambda x, er, ec: (1 - er) ** x[0] * (1 - ec) ** (x[0] * x[1]),
+                                    np.vstack([n, d]), np.asarray(fidelities, float), p0=[0.01, 0.005],
+                                    sigma=np.asarray(stderrs, float), absolute_sigma=True, bounds=([0, 0], [1, 1]))
+    return SizeDepthFit(float(popt[0]), float(popt[1]), pcov.tolist())

@@ -36,3 +36,18 @@ def test_partial_elision_is_seeded():
     half = elide(c, left, share=0.5, seed=3)
     assert len(crossing(half, left)) == n - round(0.5 * n)
     assert [g.qubits for g in elide(c, left, 0.5, 3).gates] == [g.qubits for g in half.gates]
+
+
+def test_per_coupler_two_qubit_gates():
+    # fSim(θ, φ) per coupler (Arute et al. 2019 calibrate each coupler): the gate given for (0, 1) is used
+    import math
+
+    from contraction import gates as G
+
+    arch = grid_architecture(2, 2, 4)
+    special = G.fsim(math.pi / 2 - 0.1, math.pi / 6 + 0.05)
+    c = random_instance(arch, 1, "discrete", two_qubit={(0, 1): special})
+    used = [g.matrix for g in c.gates if g.qubits == (0, 1)]
+    others = [g.matrix for g in c.gates if g.arity == 2 and g.qubits != (0, 1)]
+    assert used and all(np.array_equal(m, special) for m in used)
+    assert others and all(np.allclose(m, G.fsim(math.pi / 2, math.pi / 6)) for m in others)

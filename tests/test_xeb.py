@@ -127,3 +127,22 @@ def test_depth_fit_recovers_injected_error_in_95pct_of_trials():
     assert covered >= 90
     f20, se20 = fit.predict(20)
     assert se20 > 0 and abs(f20 - a_true * (1 - e_true) ** 20) < 5 * se20
+
+
+def test_size_depth_fit_recovers_injected_errors():
+    # the digital error model with per-qubit errors (Arute et al. 2019, supplement): seeded data with
+    # the mixture model's σ; the fit recovers both errors within 3 standard errors
+    from contraction.xeb import fit_size_depth
+
+    rng = np.random.default_rng(7)
+    er, ec, k = 0.02, 0.004, 20000
+    n = np.repeat([12, 16, 20, 24], 5)
+    d = np.tile([4, 8, 12, 16, 20], 4)
+    f = (1 - er) ** n * (1 - ec) ** (n * d)
+    sd = np.sqrt((1 + 2 * f - f ** 2) / k)
+    fit = fit_size_depth(n, d, f + rng.standard_normal(len(f)) * sd, sd)
+    se = np.sqrt(np.diag(fit.covariance))
+    assert abs(fit.readout_error - er) < 3 * se[0]
+    assert abs(fit.cycle_error - ec) < 3 * se[1]
+    f53, s53 = fit.predict(53, 20)
+    assert abs(f53 - (1 - er) ** 53 * (1 - ec) ** (53 * 20)) < 5 * s53
