@@ -199,3 +199,17 @@ def test_xeb_route_and_plots(client):
     assert svg.headers["content-type"].startswith("image/svg+xml") and b"<svg" in svg.content[:2000]
     bad = client.post("/v1/xeb", json={**body, "samples": ["01"]})
     assert bad.status_code == 422 and "characters" in bad.json()["message"]
+
+
+def test_fit_routes(client):
+    # exact F(d) = 0.9·0.95^d: the fit returns e = 0.05 (scipy curve_fit as the reference solver)
+    d = [4, 6, 8, 10, 12, 14, 16]
+    body = {"cycles": d, "fidelities": [0.9 * 0.95 ** x for x in d], "stderrs": [0.01] * 7, "extrapolate": [20]}
+    r = client.post("/v1/xeb/fit", json=body)
+    assert r.status_code == 200
+    assert r.json()["per_cycle_error"] == pytest.approx(0.05, abs=1e-6)
+    assert r.json()["extrapolations"][0]["fidelity"] == pytest.approx(0.9 * 0.95 ** 20, rel=1e-4)
+    img = client.post("/v1/xeb/fit/plot", json=body)
+    assert img.status_code == 200 and img.content.startswith(b"\x89PNG")
+    bad = client.post("/v1/xeb/fit", json={**body, "stderrs": [0.01] * 6})
+    assert bad.status_code == 422 and "same length" in bad.json()["message"]

@@ -9,7 +9,7 @@ from typing import Literal
 
 from fastapi import APIRouter, Depends, Query
 from fastapi.responses import Response
-from pydantic import Field
+from pydantic import BaseModel, Field
 
 from contraction.bitstrings import check_bitstrings
 from contraction.planner import PlannerOptions
@@ -65,3 +65,41 @@ def post_xeb_plot(body: XebIn, format: Literal["png", "svg"] = Query("png"),
     circuit, probs = _probabilities(state, body)
     res = estimate_xeb(probs, circuit.num_qubits, bootstrap=0)
     return Response(porter_thomas_plot(probs, circuit.num_qubits, res.linear_xeb, format), media_type=FORMATS[format])
+
+
+class FitIn(BaseModel):
+    cycles: list[float] = Field(..., min_length=3)
+    fidelities: list[float] = Field(..., min_length=3)
+    stderrs: list[float] = Field(..., min_length=3)
+    extrapolate: list[float] = []
+
+
+def _fit(body: FitIn):
+    from contraction.xeb import fit_depth
+
+    if not len(body.cycles) == len(body.fidelities) == len(body.stderrs):
+        raise LimitExceeded("fit", "cycles, fidelities and stderrs must have the same length", 422)
+    if any(not s > 0 for s in body.stderrs):
+        raise LimitExceeded("fit", "every stderr must be positive", 422)
+    try:
+        return fit_depth(body.cycles, body.fidelities, body.stderrs)
+    except (RuntimeError, ValueError) as exc:
+        raise LimitExceeded("fit", f"the fit did not converge: {exc}", 422) from None
+
+
+@router.post("/fit", responses={422: {"model": ErrorOut}})
+def post_fit(body: FitIn) -> dict:
+    """Fit F(d) = A·(1 − e)^d: the per-cycle error e with a 95 % interval, and extrapolations."""
+    fit = _fit(body)
+    return {**fit.to_dict(), "extrapolations": [{"cycles": c, "fidelity": fit.predict(c)[0],
+                                                 "stderr": fit.predict(c)[1]} for c in body.extrapolate]}
+
+
+@router.post("/fit/plot", response_class=Response,
+             responses={200: {"content": {"image/png": {}, "image/svg+xml": {}}}, 422: {"model": ErrorOut}})
+def post_fit_plot(body: FitIn, format: Literal["png", "svg"] = Query("png")) -> Response:
+    """XEB against cycles with error bars and the fitted decay."""
+    from ..plots import FORMATS, depth_fit_plot
+
+    fit = _fit(body)
+    return Response(depth_fit_plot(body.cycles, body.fidelities, body.stderrs, fit, format), media_type=FORMATS[format])
