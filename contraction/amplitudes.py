@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import math
 import time
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 import logging
 from typing import Iterable
 
@@ -61,7 +61,6 @@ class AmplitudeRun:
     wall_seconds: float
     plan: Plan | None = None
     plan_cached: bool = False
-    extra: dict = field(default_factory=dict)
 
 
 def choose_engine(circuit: Circuit, requested: str = "auto") -> tuple[str, str]:

@@ -198,8 +198,3 @@ def fused_gates(circuit: Circuit) -> list:
         elif src[0] == "proj" and src[2]:
             out.append(Gate((src[1],), _product(circuit, src[2])))
     return out
-
-
-def projector_positions(structure: NetworkStructure) -> list[int]:
-    """Tensor positions of the per-qubit output projectors, in qubit order."""
-    return [t for t, src in enumerate(structure.sources) if src[0] == "proj"]

@@ -4,7 +4,7 @@ from fastapi import APIRouter, Depends, Response
 
 from contraction.amplitudes import choose_engine
 from contraction.bitstrings import check_bitstrings
-from contraction.estimate import estimate
+from contraction.estimate import estimate, network_seconds
 from contraction.network import build_structure
 from contraction.planner import PlannerOptions
 
@@ -39,8 +39,7 @@ def _predicted_seconds(state: AppState, circuit, k: int, dtype: str, engine: str
     plan = SqlPlanStore(state.sessions).get(structure.key, s.memory_bytes / (16 if dtype == "complex128" else 8))
     if plan is None:
         return None
-    steps = structure.num_tensors * plan.nslices
-    return k * state.rate().contraction_seconds(plan.madds, plan.writes, steps)
+    return k * network_seconds(plan, structure, state.rate(), dtype)
 
 
 def _all_cached(state: AppState, body: AmplitudesIn) -> AmplitudesOut | None:
