@@ -31,6 +31,76 @@ def _error(status: int, kind: str, message: str, headers: dict | None = None, **
     return JSONResponse(body, status_code=status, headers=headers)
 
 
+class GuardMiddleware:
+    """Pure ASGI middleware (cheaper than ``@app.middleware``): bearer tokens, the request-size
+    limit (declared length and streamed bytes), per-route metrics and one structured log line."""
+
+    def __init__(self, app, settings: Settings, tokens: frozenset[str]):
+        self.app, self.settings, self.tokens = app, settings, tokens
+
+    async def _reply(self, send, response: JSONResponse) -> None:
+        await send({"type": "http.response.start", "status": response.status_code,
+                    "headers": response.raw_headers})
+        await send({"type": "http.response.body", "body": response.body})
+
+    async def __call__(self, scope, receive, send):
+        if scope["type"] != "http":
+            return await self.app(scope, receive, send)
+        t0 = time.perf_counter()
+        headers = {k.decode("latin-1").lower(): v.decode("latin-1") for k, v in scope.get("headers", [])}
+        path = scope.get("path", "")
+        if self.tokens and path not in OPEN_PATHS:
+            auth = headers.get("authorization", "")
+            given = auth[7:] if auth.lower().startswith("bearer ") else ""
+            if not any(hmac.compare_digest(given, t) for t in self.tokens):
+                return await self._reply(send, _error(401, "unauthorized", "a valid bearer token is required",
+                                                      {"WWW-Authenticate": "Bearer"}))
+        limit = self.settings.max_request_bytes
+        length = headers.get("content-length")
+        if length is not None and length.isdigit() and int(length) > limit:
+            return await self._reply(send, _error(413, "limit_exceeded", f"request body of {length} bytes "
+                                                  f"exceeds the limit of {limit}", limit="max_request_bytes"))
+        seen = 0
+        too_big = False
+
+        async def counted_receive():
+            nonlocal seen, too_big
+            message = await receive()
+            seen += len(message.get("body", b""))
+            if seen > limit:
+                too_big = True
+                raise LimitExceeded("max_request_bytes", f"request body exceeds the limit of {limit} bytes")
+            return message
+
+        status = [500]
+        replaced = False
+
+        async def send_status(message):
+            nonlocal replaced
+            if too_big:  # whatever the app made of the aborted body, the answer is 413
+                if not replaced:
+                    replaced = True
+                    status[0] = 413
+                    await self._reply(send, _error(413, "limit_exceeded", f"request body exceeds the limit "
+                                                   f"of {limit} bytes", limit="max_request_bytes"))
+                return
+            if message["type"] == "http.response.start":
+                status[0] = message["status"]
+            await send(message)
+
+        await self.app(scope, counted_receive, send_status)
+        dt = time.perf_counter() - t0
+        route = scope.get("route")
+        name = getattr(route, "path", "unmatched")
+        app_state = getattr(scope.get("app").state, "veramp", None) if scope.get("app") else None
+        if app_state is not None:
+            app_state.metrics.requests.labels(scope.get("method", ""), name, str(status[0])).inc()
+            app_state.metrics.latency.labels(name).observe(dt)
+        if log.isEnabledFor(logging.INFO):
+            log.info(json.dumps({"event": "request", "method": scope.get("method"), "route": name,
+                                 "status": status[0], "ms": round(dt * 1000, 2)}))
+
+
 def create_app(settings: Settings | None = None) -> FastAPI:
     settings = settings or Settings()
 
@@ -61,31 +131,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         app.include_router(r)
     tokens = settings.token_set()
 
-    @app.middleware("http")
-    async def guard(request: Request, call_next):
-        t0 = time.perf_counter()
-        path = request.url.path
-        if tokens and path not in OPEN_PATHS:
-            auth = request.headers.get("authorization", "")
-            given = auth[7:] if auth.lower().startswith("bearer ") else ""
-            if not any(hmac.compare_digest(given, t) for t in tokens):
-                return _error(401, "unauthorized", "a valid bearer token is required",
-                              {"WWW-Authenticate": "Bearer"})
-        length = request.headers.get("content-length")
-        if length is not None and length.isdigit() and int(length) > settings.max_request_bytes:
-            return _error(413, "limit_exceeded", f"request body of {length} bytes exceeds the limit of "
-                                                 f"{settings.max_request_bytes}", limit="max_request_bytes")
-        response = await call_next(request)
-        dt = time.perf_counter() - t0
-        route = request.scope.get("route")
-        name = getattr(route, "path", "unmatched")
-        state = getattr(request.app.state, "veramp", None)
-        if state is not None:
-            state.metrics.requests.labels(request.method, name, str(response.status_code)).inc()
-            state.metrics.latency.labels(name).observe(dt)
-        log.info(json.dumps({"event": "request", "method": request.method, "route": name,
-                             "status": response.status_code, "ms": round(dt * 1000, 2)}))
-        return response
+    app.add_middleware(GuardMiddleware, settings=settings, tokens=tokens)
 
     @app.exception_handler(VerampError)
     async def engine_error(_req, exc: VerampError):

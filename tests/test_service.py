@@ -155,6 +155,10 @@ def test_limits_name_the_limit(tmp_path):
         assert r.status_code == 413 and r.json()["limit"] == "max_gates"
         r = client.post("/v1/circuits", json={"qasm": GHZ + "// " + "x" * 5000})
         assert r.status_code == 413 and r.json()["limit"] == "max_request_bytes"
+        # a streamed (chunked) body has no declared length: the bytes are counted as they arrive
+        chunks = (b'{"qasm": "' + b"x" * 1000 for _ in range(5))
+        r = client.post("/v1/circuits", content=chunks, headers={"content-type": "application/json"})
+        assert r.status_code == 413 and r.json()["limit"] == "max_request_bytes"
         r = client.post("/v1/circuits", json={"qasm": "OPENQASM 2.0; qreg q[11];"})
         assert r.status_code == 422 and "exceeds the limit of 10 qubits" in r.json()["message"]
 
