@@ -16,7 +16,7 @@ import numpy as np
 from .amplitudes import DEFAULT_MEMORY_BYTES, _dtype, choose_engine, network_plan
 from .calibration import MachineRate
 from .circuit import Circuit
-from .network import build_structure, fused_gates
+from .network import build_structure
 from .plan_store import PlanStore
 from .planner import PlannerOptions
 from .statevector import MAX_QUBITS as SV_MAX_QUBITS
@@ -50,12 +50,14 @@ class Estimate:
 def _statevector_estimate(circuit: Circuit, k: int, dtype: str, rate: MachineRate, reason: str,
                           cap: float) -> Estimate:
     n = circuit.num_qubits
-    gates = fused_gates(circuit)
-    madds = float(sum(2 ** n * 2 ** g.arity for g in gates))
+    # the fused gates the state-vector engine applies, counted from the layout (no matrices built)
+    arities = [len(src[1]) if src[0] == "gate" else 1 for src in build_structure(circuit).sources
+               if src[0] == "gate" or (src[0] == "proj" and src[2])]
+    madds = float(sum(2 ** n * 2 ** a for a in arities))
     itemsize = np.dtype(dtype).itemsize
     # the state, a transposed copy and the product are alive at once during a gate
     peak = 3 * 2 ** n * itemsize
-    seconds = rate.statevector_seconds_per_update * 2 ** n * len(gates) * (itemsize / 16)
+    seconds = rate.statevector_seconds_per_update * 2 ** n * len(arities) * (itemsize / 16)
     return Estimate("statevector", reason, n, k, dtype, madds, FLOPS_PER_MADD * madds, madds, float(n),
                     int(peak), 1, 1.0, seconds, int(cap))
 

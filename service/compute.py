@@ -105,11 +105,15 @@ def _save(sessions, content_hash: str, dtype: str, run) -> None:
 def compute(sessions: sessionmaker[Session], circuit: Circuit, bits: list[str], *, dtype: str, engine: str,
             planner: PlannerOptions, memory_bytes: float,
             on_chunk: Callable[[int], None] | None = None,
-            cancelled: Callable[[], bool] | None = None) -> tuple[list[ResultItem], dict]:
-    """Amplitudes for ``bits`` (input order), from the cache where possible. Returns (items, stats)."""
+            cancelled: Callable[[], bool] | None = None,
+            have: dict[str, ResultRow] | None = None) -> tuple[list[ResultItem], dict]:
+    """Amplitudes for ``bits`` (input order), from the cache where possible. Returns (items, stats).
+
+    ``have`` is the cache lookup when the caller has just made it (saves a second query)."""
     t0 = time.perf_counter()
-    with sessions() as s:
-        have = cached_results(s, circuit.content_hash, bits, dtype)
+    if have is None:
+        with sessions() as s:
+            have = cached_results(s, circuit.content_hash, bits, dtype)
     todo = [b for b in dict.fromkeys(bits) if b not in have]
     store = SqlPlanStore(sessions)
     fresh: dict[str, ResultItem] = {}

@@ -91,7 +91,8 @@ def post_amplitudes(body: AmplitudesIn, response: Response, state: AppState = De
     from ..compute import cached_results
 
     with state.sessions() as sess:
-        all_cached = len(cached_results(sess, circuit.content_hash, bits, body.dtype)) == len(set(bits))
+        have = cached_results(sess, circuit.content_hash, bits, body.dtype)
+    all_cached = len(have) == len(set(bits))
     if not all_cached and (predicted is None or predicted > s.sync_threshold_seconds):
         job = state.jobs.create(circuit.content_hash, bits, body.dtype, body.engine)
         state.metrics.queue_depth.set(state.jobs.depth)
@@ -100,7 +101,7 @@ def post_amplitudes(body: AmplitudesIn, response: Response, state: AppState = De
         return job_out(job)
     items, stats = compute(state.sessions, circuit, bits, dtype=body.dtype, engine=body.engine,
                            planner=PlannerOptions(budget_seconds=s.plan_budget_seconds),
-                           memory_bytes=s.memory_bytes)
+                           memory_bytes=s.memory_bytes, have=have)
     state.metrics.cache_hits.inc(stats["cached"])
     state.metrics.cache_misses.inc(stats["computed"])
     state.metrics.madds.inc(stats["madds"])
