@@ -1,42 +1,39 @@
 """Exact amplitudes <x|C|0...0> of a circuit for a list of bitstrings.
 
-Two engines:
+The request is answered by the engine :mod:`contraction.engine_choice` picks (state vector,
+batched network contractions or one contraction per bitstring) or the one the caller forces.
+Repeated bitstrings are computed once; results come back in input order; ``on_results`` receives
+each chunk's amplitudes as soon as the chunk is finished (the service stores them right away) and
+``progress`` counts finished tasks (a task is one chunk, or a run of one chunk's slices).
 
-* ``statevector``: build C|0...0> once (numpy) and read any number of amplitudes from it;
-  limited by memory to about 28 qubits;
-* ``network``: contract the circuit's tensor network once per bitstring with a cotengra plan
-  that depends only on the layout, so it is found once and reused.
-
-``auto`` picks the state vector for small circuits and the network otherwise, and says why.
+With ``open_qubits`` the bitstrings that agree on all other qubits form one group, and one
+contraction (with those qubits left open) gives the 2^k amplitudes of the whole group at once.
 """
 
 from __future__ import annotations
 
-import math
-import time
-from dataclasses import dataclass, replace
 import logging
-from typing import Iterable
+import time
+from dataclasses import dataclass, field
+from typing import Callable, Iterable, Sequence
 
 import numpy as np
 
 from .bitstrings import check_bitstrings
+from .calibration import MachineRate
 from .circuit import Circuit
-from .errors import MemoryLimitError, PlanError, VerampError
-from .executor import CancelCheck, ProgressCallback, contract_scalar
-from .network import NetworkStructure, build_structure, tensor_arrays
+from .engine_choice import DEFAULT_MEMORY_BYTES, Choice, Option, choose, network_plan  # noqa: F401 (re-exported)
+from .errors import VerampError
+from .executor import CancelCheck, Progress, ProgressCallback, combine_scaled
+from .network import tensor_arrays
+from .parallel import Runner, Task, make_runner, split_slices
 from .plan_store import PlanStore
-from .planner import Plan, PlannerOptions, find_plan
-from .statevector import MAX_QUBITS as SV_MAX_QUBITS
+from .planner import Plan, PlannerOptions
 from .statevector import state_vector
 
 log = logging.getLogger(__name__)
 
-ENGINES = ("auto", "network", "statevector")
 DTYPES = {"complex128": np.complex128, "complex64": np.complex64}
-
-#: the automatic choice uses the state vector up to this many qubits
-SV_AUTO_QUBITS = 22
 
 
 @dataclass(frozen=True)
@@ -61,23 +58,17 @@ class AmplitudeRun:
     wall_seconds: float
     plan: Plan | None = None
     plan_cached: bool = False
+    batch: int = 1                               # bitstrings (or groups) per contraction
+    chunks: int = 0                              # contractions run
+    madds: float = 0.0                           # complex multiply-adds of the whole request
+    predicted_seconds: float = 0.0
+    predictions: dict[str, float] = field(default_factory=dict)
 
-
-def choose_engine(circuit: Circuit, requested: str = "auto") -> tuple[str, str]:
-    """(engine, reason) for a circuit."""
-    n = circuit.num_qubits
-    if requested not in ENGINES:
-        raise VerampError(f"unknown engine {requested!r}; choose one of {', '.join(ENGINES)}")
-    if requested == "statevector":
-        if n > SV_MAX_QUBITS:
-            raise VerampError(f"the state-vector engine is limited to {SV_MAX_QUBITS} qubits; "
-                              f"this circuit has {n}")
-        return "statevector", "requested by the user"
-    if requested == "network":
-        return "network", "requested by the user"
-    if n <= SV_AUTO_QUBITS:
-        return "statevector", f"{n} qubits <= {SV_AUTO_QUBITS}: one state vector answers every bitstring"
-    return "network", f"{n} qubits > {SV_AUTO_QUBITS}: a state vector would need {2 ** n * 16:.3g} bytes"
+    def provenance(self) -> dict:
+        """How the numbers were made, for result records and reports."""
+        return {"engine": self.engine, "reason": self.reason, "batch": self.batch, "chunks": self.chunks,
+                "predicted_seconds": self.predicted_seconds, "predictions": self.predictions,
+                "plan_hash": self.plan.plan_hash if self.plan else None}
 
 
 def _dtype(name: str):
@@ -87,67 +78,115 @@ def _dtype(name: str):
         raise VerampError(f"unknown dtype {name!r}; choose complex128 or complex64") from None
 
 
-#: default memory cap of one contraction (peak bytes of all live tensors)
-DEFAULT_MEMORY_BYTES = 8 * 2 ** 30
-
-
-def network_plan(structure: NetworkStructure, store: PlanStore | None, options: PlannerOptions,
-                 memory_bytes: float = DEFAULT_MEMORY_BYTES, dtype="complex128"):
-    """``(plan, tree, from_store)`` for ``structure`` with a peak within ``memory_bytes``.
-
-    A stored plan is used when one fits the cap and passes validation against the network;
-    otherwise a new plan is searched and stored. Raises :class:`MemoryLimitError` when no plan
-    within the cap is found: a plan over the cap is never returned.
-    """
-    cap_elements = memory_bytes / np.dtype(dtype).itemsize
-    if store is not None:
-        plan = store.get(structure.key, cap_elements)
-        if plan is not None:
-            try:
-                return plan, plan.tree(structure), True
-            except PlanError as exc:
-                log.warning("stored plan rejected, planning again: %s", exc)
-    # the peak holds a contraction's two inputs and its output at once: aim each below a quarter
-    options = replace(options, max_elements=min(options.max_elements or math.inf, cap_elements / 4))
-    plan = find_plan(structure, options)
-    if plan.peak_elements > cap_elements:
-        raise MemoryLimitError(f"the best plan found needs {plan.peak_bytes(dtype):.4g} bytes at its peak, "
-                               f"over the memory cap of {memory_bytes:.4g} bytes")
-    if store is not None:
-        store.put(plan)
-    return plan, plan.tree(structure), False
+ResultsCallback = Callable[[list[Amplitude]], None]
 
 
 def amplitudes(circuit: Circuit, bitstrings: Iterable[str], *, dtype: str = "complex128",
                engine: str = "auto", planner: PlannerOptions | None = None,
                plan_store: PlanStore | None = None, memory_bytes: float = DEFAULT_MEMORY_BYTES,
                workers: int = 1, progress: ProgressCallback | None = None,
-               cancelled: CancelCheck | None = None) -> AmplitudeRun:
+               cancelled: CancelCheck | None = None, rate: MachineRate | None = None,
+               runner: Runner | None = None, on_results: ResultsCallback | None = None,
+               open_qubits: Sequence[int] = (),
+               on_choice: Callable[[Choice], None] | None = None) -> AmplitudeRun:
     """Exact amplitudes of ``circuit`` for ``bitstrings`` (qubit 0 first), in input order."""
     t0 = time.perf_counter()
     bits = check_bitstrings(bitstrings, circuit.num_qubits)
     dt = _dtype(dtype)
-    chosen, reason = choose_engine(circuit, engine)
-    if chosen == "statevector" and 2 ** circuit.num_qubits * np.dtype(dt).itemsize * 2 > memory_bytes:
-        if engine == "statevector":
-            raise MemoryLimitError(f"a {circuit.num_qubits}-qubit state vector does not fit the memory cap "
-                                   f"of {memory_bytes:.4g} bytes")
-        chosen, reason = "network", "a state vector would not fit the memory cap"
-    phase = np.exp(1j * circuit.global_phase)
-    if chosen == "statevector":
-        psi = state_vector(circuit, dtype=dt)
-        results = [Amplitude(b, complex(psi[int(b, 2)])) for b in bits]
-        return AmplitudeRun(results, chosen, reason, dtype, time.perf_counter() - t0)
-    structure = build_structure(circuit)
-    plan, tree, hit = network_plan(structure, plan_store, planner or PlannerOptions(), memory_bytes, dtype)
-    results = []
-    for b in bits:
-        arrays = tensor_arrays(structure, circuit, b, dt)
-        if plan.nslices > 1 and workers > 1:
-            from .parallel import contract_sliced_parallel
+    unique = list(dict.fromkeys(bits))
+    open_qubits = tuple(open_qubits)
+    groups = _groups(unique, open_qubits)
+    choice = choose(circuit, len(groups), engine=engine, dtype=dtype, rate=rate, store=plan_store,
+                    planner=planner, memory_bytes=memory_bytes, open_qubits=open_qubits)
+    if on_choice is not None:
+        on_choice(choice)
+    found: dict[str, complex] = {}
 
-            value = contract_sliced_parallel(plan, structure, arrays, workers, progress, cancelled)
-        else:
-            value = contract_scalar(tree, arrays, progress=progress, cancelled=cancelled)
-        results.append(Amplitude(b, complex(value * phase)))
-    return AmplitudeRun(results, chosen, reason, dtype, time.perf_counter() - t0, plan, hit)
+    def emit(values: dict[str, complex]) -> None:
+        found.update(values)
+        if on_results is not None:
+            on_results([Amplitude(b, v) for b, v in values.items()])
+
+    if choice.engine == "statevector":
+        psi = state_vector(circuit, dtype=dt)
+        emit({b: complex(psi[int(b, 2)]) for b in unique})
+        if progress is not None:
+            progress(Progress(1, 1, time.perf_counter() - t0))
+    else:
+        _run_network(circuit, choice.chosen, groups, open_qubits, dt, runner or make_runner(workers),
+                     emit, progress, cancelled)
+    o = choice.chosen
+    return AmplitudeRun([Amplitude(b, found[b]) for b in bits], choice.engine, choice.reason, dtype,
+                        time.perf_counter() - t0, o.plan, o.plan_cached, o.batch, max(1, o.chunks), o.madds,
+                        o.seconds, choice.predictions())
+
+
+def _groups(unique: list[str], open_qubits: tuple[int, ...]) -> dict[str, list[str]]:
+    """Bitstrings keyed by their bits on the projected qubits (open qubits' bits set to 0)."""
+    if not open_qubits:
+        return {b: [b] for b in unique}
+    out: dict[str, list[str]] = {}
+    for b in unique:
+        key = list(b)
+        for q in open_qubits:
+            key[q] = "0"
+        out.setdefault("".join(key), []).append(b)
+    return out
+
+
+def _run_network(circuit: Circuit, option: Option, groups: dict[str, list[str]], open_qubits: tuple[int, ...],
+                 dt, runner: Runner, emit, progress: ProgressCallback | None,
+                 cancelled: CancelCheck | None) -> None:
+    """Run the chunks of ``option.schedule`` (grouped by batch size, one plan each)."""
+    phase = np.exp(1j * circuit.global_phase)
+    keys = list(groups)
+    chunks: dict[int, list[tuple[int, list[str]]]] = {}     # batch size -> [(chunk number, group keys)]
+    pos = 0
+    for number, b in enumerate(option.schedule):
+        part = keys[pos:pos + b]
+        pos += len(part)
+        chunks.setdefault(b, []).append((number, part))
+    total_tasks = 0
+    plans = []
+    for b, items in chunks.items():
+        sub = option.parts[b]
+        pieces = split_slices(sub.plan.nslices, 4 * runner.workers if sub.plan.nslices > 1 else 1)
+        tasks, owner = [], []
+        for number, part in items:
+            padded = part + [part[-1]] * (b - len(part))
+            arrays = tensor_arrays(sub.structure, circuit, padded if sub.structure.batch else padded[0], dt)
+            for piece in pieces:
+                tasks.append(Task(arrays, piece))
+                owner.append(number)
+        plans.append((sub, items, tasks, owner, len(pieces)))
+        total_tasks += len(tasks)
+    done_tasks = 0
+    t0 = time.perf_counter()
+    for sub, items, tasks, owner, per_chunk in plans:
+        parts_of: dict[int, list] = {}
+        members = dict(items)
+
+        def done(k: int, results, sub=sub, owner=owner, members=members, parts_of=parts_of, per_chunk=per_chunk):
+            nonlocal done_tasks
+            number = owner[k]
+            parts_of.setdefault(number, []).extend(results)
+            done_tasks += 1
+            if len(parts_of[number]) == sub.plan.nslices:
+                value = combine_scaled(parts_of.pop(number)) * phase
+                emit(_pick(value, members[number], groups, open_qubits, bool(sub.structure.batch)))
+            if progress is not None:
+                progress(Progress(done_tasks, total_tasks, time.perf_counter() - t0))
+
+        runner.run(sub.plan, sub.structure, tasks, done, cancelled)
+
+
+def _pick(value: np.ndarray, part: list[str], groups: dict[str, list[str]], open_qubits: tuple[int, ...],
+          batched: bool) -> dict[str, complex]:
+    """The requested amplitudes out of one chunk's output (axes: batch?, open qubits)."""
+    out = {}
+    for i, key in enumerate(part):
+        block = value[i] if batched else value
+        for b in groups[key]:
+            idx = tuple(int(b[q]) for q in open_qubits)
+            out[b] = complex(block[idx])
+    return out

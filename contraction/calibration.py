@@ -77,8 +77,8 @@ def _network_time(rows: int, cols: int, cycles: int, repeats: int) -> tuple[floa
     store = MemoryPlanStore()
     opts = PlannerOptions(budget_seconds=0.0, max_repeats=1)
     bits = ["0" * c.num_qubits]
-    plan = amplitudes(c, bits, engine="network", planner=opts, plan_store=store).plan
-    t = _median_time(lambda: amplitudes(c, bits, engine="network", planner=opts, plan_store=store), repeats)
+    plan = amplitudes(c, bits, engine="single", planner=opts, plan_store=store).plan
+    t = _median_time(lambda: amplitudes(c, bits, engine="single", planner=opts, plan_store=store), repeats)
     return t, plan.madds, plan.writes, build_structure(c).num_tensors - 1
 
 

@@ -9,17 +9,15 @@ rates. It also says which engine would run and why.
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, field
 
-import numpy as np
-
-from .amplitudes import DEFAULT_MEMORY_BYTES, _dtype, choose_engine, network_plan
+from .amplitudes import _dtype
+from .engine_choice import DEFAULT_MEMORY_BYTES
 from .calibration import MachineRate
 from .circuit import Circuit
-from .network import build_structure
+from .engine_choice import choose, network_seconds  # noqa: F401  (network_seconds: re-exported)
 from .plan_store import PlanStore
 from .planner import PlannerOptions
-from .statevector import MAX_QUBITS as SV_MAX_QUBITS
 
 FLOPS_PER_MADD = 8
 
@@ -42,58 +40,31 @@ class Estimate:
     memory_cap_bytes: int
     plan_hash: str | None = None
     plan_cached: bool | None = None
+    batch: int = 1               # bitstrings per contraction
+    chunks: int = 1              # contractions
+    predictions: dict = field(default_factory=dict)   # predicted seconds of every option considered
 
     def to_dict(self) -> dict:
         return asdict(self)
 
 
-def _statevector_estimate(circuit: Circuit, k: int, dtype: str, rate: MachineRate, reason: str,
-                          cap: float) -> Estimate:
-    n = circuit.num_qubits
-    # the fused gates the state-vector engine applies, counted from the layout (no matrices built)
-    arities = [len(src[1]) if src[0] == "gate" else 1 for src in build_structure(circuit).sources
-               if src[0] == "gate" or (src[0] == "proj" and src[2])]
-    madds = float(sum(2 ** n * 2 ** a for a in arities))
-    itemsize = np.dtype(dtype).itemsize
-    # the state, a transposed copy and the product are alive at once during a gate
-    peak = 3 * 2 ** n * itemsize
-    seconds = rate.statevector_seconds_per_update * 2 ** n * len(arities) * (itemsize / 16)
-    return Estimate("statevector", reason, n, k, dtype, madds, FLOPS_PER_MADD * madds, madds, float(n),
-                    int(peak), 1, 1.0, seconds, int(cap))
-
-
-def network_seconds(plan, structure, rate: MachineRate, dtype: str = "complex128") -> float:
-    """Predicted seconds of one amplitude with ``plan`` (all slices)."""
-    steps = max(0, structure.num_tensors - 1) * plan.nslices
-    per = rate.contraction_seconds(plan.madds, plan.writes, steps)
-    if np.dtype(dtype).itemsize == 8:
-        per *= 0.5  # complex64 moves half the bytes (an assumption; the benchmark measures complex128)
-    return per
-
-
 def estimate(circuit: Circuit, bitstrings: int = 1, *, dtype: str = "complex128", engine: str = "auto",
              rate: MachineRate, planner: PlannerOptions | None = None, plan_store: PlanStore | None = None,
              memory_bytes: float = DEFAULT_MEMORY_BYTES) -> Estimate:
-    """The cost report for ``bitstrings`` amplitudes of ``circuit``."""
+    """The cost report for ``bitstrings`` distinct amplitudes of ``circuit``: the engine the
+    automatic choice (or ``engine``) would run, why, and what every option would take."""
     _dtype(dtype)
-    chosen, reason = choose_engine(circuit, engine)
-    n = circuit.num_qubits
-    sv_fits = n <= SV_MAX_QUBITS and 3 * 2 ** n * np.dtype(dtype).itemsize <= memory_bytes
-    if chosen == "statevector" and sv_fits:
-        return _statevector_estimate(circuit, bitstrings, dtype, rate, reason, memory_bytes)
-    if chosen == "statevector":
-        reason = "a state vector would not fit the memory cap"
-    structure = build_structure(circuit)
-    plan, _tree, hit = network_plan(structure, plan_store, planner or PlannerOptions(), memory_bytes, dtype)
-    per = network_seconds(plan, structure, rate, dtype)
-    return Estimate(
-        engine="network", reason=reason, num_qubits=n, bitstrings=bitstrings, dtype=dtype,
-        madds=plan.madds * bitstrings, flops=FLOPS_PER_MADD * plan.madds * bitstrings,
-        madds_per_bitstring=plan.madds, width=plan.width, peak_bytes=plan.peak_bytes(dtype),
-        slices=plan.nslices, slicing_overhead=plan.slicing_overhead,
-        predicted_seconds=per * bitstrings, memory_cap_bytes=int(memory_bytes),
-        plan_hash=plan.plan_hash, plan_cached=hit,
-    )
+    c = choose(circuit, bitstrings, engine=engine, dtype=dtype, rate=rate, store=plan_store, planner=planner,
+               memory_bytes=memory_bytes)
+    o, n = c.chosen, circuit.num_qubits
+    common = dict(engine=c.engine, reason=c.reason, num_qubits=n, bitstrings=bitstrings, dtype=dtype,
+                  madds=o.madds, flops=FLOPS_PER_MADD * o.madds, madds_per_bitstring=o.madds / max(1, bitstrings),
+                  peak_bytes=int(o.peak_bytes), predicted_seconds=o.seconds, memory_cap_bytes=int(memory_bytes),
+                  predictions=c.predictions())
+    if o.plan is None:
+        return Estimate(width=float(n), slices=1, slicing_overhead=1.0, **common)
+    return Estimate(width=o.plan.width, slices=o.plan.nslices, slicing_overhead=o.plan.slicing_overhead,
+                    plan_hash=o.plan.plan_hash, plan_cached=o.plan_cached, batch=o.batch, chunks=o.chunks, **common)
 
 
 def parse_bytes(text: str) -> int:

@@ -36,27 +36,29 @@ ProgressCallback = Callable[[Progress], None]
 CancelCheck = Callable[[], bool]
 
 
-def combine_scaled(parts: Sequence[tuple[complex, float]]) -> complex:
-    """Sum values given as (mantissa, base-10 exponent) pairs without overflow or underflow."""
-    nonzero = [(m, e) for m, e in parts if m != 0]
+def combine_scaled(parts: Sequence[tuple]) -> np.ndarray:
+    """Sum values (scalars or arrays of one shape) given as (mantissa, base-10 exponent) pairs
+    without overflow or underflow; returns an array (0-d for scalars)."""
+    nonzero = [(np.asarray(m, dtype=np.complex128), e) for m, e in parts if np.any(np.asarray(m) != 0)]
     if not nonzero:
-        return 0j
+        return np.zeros_like(np.asarray(parts[0][0], dtype=np.complex128)) if parts else np.zeros(())
     top = max(e for _, e in nonzero)
-    total = sum(complex(m) * 10.0 ** (e - top) for m, e in nonzero)
+    total = sum(m * 10.0 ** (e - top) for m, e in nonzero)
     return total * 10.0 ** top
 
 
-def contract_slice_scaled(tree, arrays, i: int) -> tuple[complex, float]:
-    """One slice of a scalar contraction as (mantissa, base-10 exponent)."""
+def contract_slice_scaled(tree, arrays, i: int) -> tuple[np.ndarray, float]:
+    """One slice of a contraction as (mantissa, base-10 exponent); the mantissa has the shape of
+    the output (0-d for an amplitude)."""
     if arrays[0].dtype == np.complex128:
-        value = complex(np.asarray(tree.contract_slice(arrays, i)).reshape(()))
-        if value != 0:
+        value = np.asarray(tree.contract_slice(arrays, i))
+        if np.any(value != 0):
             return value, 0.0
     m, e = tree.contract_slice(arrays, i, strip_exponent=True, check_zero=True)
-    m = complex(np.asarray(m).reshape(()))
     e = float(np.asarray(e).reshape(()))
+    m = np.asarray(m)
     if not math.isfinite(e):
-        return 0j, 0.0
+        return np.zeros_like(m), 0.0
     return m, e
 
 
@@ -64,6 +66,13 @@ def contract_scalar(tree, arrays: Sequence[np.ndarray], slices: Sequence[int] | 
                     progress: ProgressCallback | None = None,
                     cancelled: CancelCheck | None = None) -> complex:
     """Contract a scalar network over ``slices`` (default: all) of ``tree``."""
+    return complex(contract_array(tree, arrays, slices, progress, cancelled).reshape(()))
+
+
+def contract_array(tree, arrays: Sequence[np.ndarray], slices: Sequence[int] | None = None,
+                   progress: ProgressCallback | None = None,
+                   cancelled: CancelCheck | None = None) -> np.ndarray:
+    """Contract a network over ``slices`` (default: all) of ``tree``; complex128 output."""
     todo = list(range(tree.nslices)) if slices is None else list(slices)
     parts = []
     t0 = time.perf_counter()

@@ -6,8 +6,18 @@ none follows); that rule is decided by the layout, never by gate values, so ever
 of an architecture and every bitstring gives the same network and can share one contraction plan.
 
 Tensors, in order: one |0> vector per qubit, one tensor per multi-qubit gate (indices: outputs
-then inputs, first qubit most significant), one <x_q| projector per qubit. The projector values
-carry the bitstring; the structure does not.
+then inputs, first qubit most significant), one <x_q| projector per qubit that is not left open.
+The projector values carry the bitstring; the structure does not.
+
+Two variants share the builder:
+
+* a **batch** of B bitstrings: every projector gets a second index of size B shared by all of them
+  (a hyper-index, contracted by cotengra as a batch dimension), so one contraction gives B
+  amplitudes; B is part of the structure and therefore of the plan's key;
+* **open qubits**: no projector on those wires, whose final indices become output indices, so one
+  contraction gives all 2^k amplitudes of a block.
+
+The output axes are ``(batch?, open qubits in the order given)``.
 """
 
 from __future__ import annotations
@@ -42,10 +52,21 @@ class NetworkStructure:
     inputs: tuple[tuple[str, ...], ...]
     output: tuple[str, ...]
     sources: tuple[tuple, ...]
+    batch: int = 0                       # B > 0: projectors carry a shared batch index of size B
+    batch_label: str | None = None
+    open_qubits: tuple[int, ...] = ()
 
     @property
     def size_dict(self) -> dict[str, int]:
-        return {ix: 2 for term in self.inputs for ix in term}
+        sizes = {ix: 2 for term in self.inputs for ix in term}
+        if self.batch_label is not None:
+            sizes[self.batch_label] = self.batch
+        return sizes
+
+    @property
+    def output_shape(self) -> tuple[int, ...]:
+        sizes = self.size_dict
+        return tuple(sizes[ix] for ix in self.output)
 
     @property
     def num_tensors(self) -> int:
@@ -69,17 +90,20 @@ class NetworkStructure:
     def key(self) -> str:
         """Canonical hash of the network: indices relabelled in order of first appearance."""
         relabel = self.canonical
+        sizes = self.size_dict
         doc = {
             "inputs": [[relabel[ix] for ix in term] for term in self.inputs],
             "output": [relabel.get(ix, -1) for ix in self.output],
-            "sizes": [2] * len(relabel),
+            "sizes": [sizes[ix] for ix in relabel],
         }
         blob = json.dumps(doc, separators=(",", ":")).encode()
         return hashlib.sha256(b"veramp-network-v1\0" + blob).hexdigest()
 
 
-def build_structure(circuit: Circuit) -> NetworkStructure:
-    """The network of a single amplitude of ``circuit`` (a scalar: no output indices).
+def build_structure(circuit: Circuit, batch: int = 0, open_qubits: tuple[int, ...] = ()) -> NetworkStructure:
+    """The network of one amplitude of ``circuit`` (a scalar), of a batch of ``batch`` amplitudes
+    (output: the batch axis) and/or of the block of amplitudes on ``open_qubits`` (output axes in
+    that order).
 
     Layout-only fusion rules: single-qubit gates wait on their wire and are multiplied into the
     next multi-qubit gate there (or into the projector); a multi-qubit gate whose qubit set equals
@@ -121,11 +145,27 @@ def build_structure(circuit: Circuit) -> NetworkStructure:
         tensor_qubits[len(inputs)] = qs
         inputs.append(tuple(outs) + tuple(ins))
         sources.append(("gate", qs, steps + [("gate", gi)]))
+    open_qubits = tuple(int(q) for q in open_qubits)
+    if len(set(open_qubits)) != len(open_qubits) or any(not 0 <= q < n for q in open_qubits):
+        raise ValueError(f"open qubits {open_qubits} must be distinct qubits of 0..{n - 1}")
+    if batch < 0 or (batch and len(open_qubits) == n):
+        raise ValueError("a batch needs at least one projected qubit and a positive size")
+    blabel = _symbol(counter) if batch else None
+    output: list[str] = [blabel] if batch else []
     for q in range(n):
-        inputs.append((wire[q],))
+        if q in open_qubits:
+            # single-qubit gates after the last multi-qubit gate on an open wire: one more tensor
+            if pending[q]:
+                o = _symbol(counter + 1 + q)
+                inputs.append((o, wire[q]))
+                sources.append(("gate", (q,), tuple(("pre", (q,), q, tuple(pending[q])) for _ in [0])))
+                wire[q] = o
+            continue
+        inputs.append((wire[q], blabel) if batch else (wire[q],))
         sources.append(("proj", q, tuple(pending[q])))
+    output.extend(wire[q] for q in open_qubits)
     frozen = tuple((s[0], s[1], tuple(s[2])) if s[0] == "gate" else s for s in sources)
-    return NetworkStructure(n, tuple(inputs), (), frozen)
+    return NetworkStructure(n, tuple(inputs), tuple(output), frozen, batch, blabel, open_qubits)
 
 
 _ZERO = np.array([1.0, 0.0])
@@ -164,9 +204,14 @@ def _gate_tensor(circuit: Circuit, qubits: tuple[int, ...], steps) -> np.ndarray
     return m
 
 
-def tensor_arrays(structure: NetworkStructure, circuit: Circuit, bits: str,
+def tensor_arrays(structure: NetworkStructure, circuit: Circuit, bits,
                   dtype=np.complex128) -> list[np.ndarray]:
-    """The values of every tensor of ``structure`` for this circuit and bitstring."""
+    """The values of every tensor of ``structure`` for this circuit and bitstring (a list of
+    ``structure.batch`` bitstrings for a batch; the bits of open qubits are ignored)."""
+    if structure.batch:
+        if isinstance(bits, str) or len(bits) != structure.batch:
+            raise ValueError(f"a batch structure needs a list of {structure.batch} bitstrings")
+        table = np.array([[c == "1" for c in b] for b in bits], dtype=np.intp)  # (B, n)
     arrays: list[np.ndarray] = []
     for src in structure.sources:
         kind = src[0]
@@ -177,6 +222,13 @@ def tensor_arrays(structure: NetworkStructure, circuit: Circuit, bits: str,
             arrays.append(_ZERO.astype(dtype))
         else:
             q, post = src[1], src[2]
+            if structure.batch:
+                # (wire, batch): column b is <x_b[q]| (times the trailing single-qubit gates)
+                rows = np.eye(2, dtype=np.complex128)
+                if post:
+                    rows = rows @ _product(circuit, post)
+                arrays.append(np.ascontiguousarray(rows[table[:, q]].T).astype(dtype))
+                continue
             row = np.zeros(2, dtype=np.complex128)
             row[int(bits[q])] = 1.0
             if post:

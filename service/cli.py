@@ -92,10 +92,40 @@ class ProgressBar:
         width = 30
         filled = int(width * p.done / max(1, p.total))
         eta = "?" if p.eta_seconds is None else f"{p.eta_seconds:.0f}s"
-        sys.stderr.write(f"\r[{'#' * filled}{'.' * (width - filled)}] {p.done}/{p.total} slices, ETA {eta} ")
+        sys.stderr.write(f"\r[{'#' * filled}{'.' * (width - filled)}] {p.done}/{p.total} tasks, ETA {eta} ")
         if p.done >= p.total:
             sys.stderr.write("\n")
         sys.stderr.flush()
+
+
+def _stored_rate(settings):
+    """The stored calibration, or None (nominal rates) — never a silent calibration run."""
+    from contraction.calibration import MachineRate
+
+    try:
+        return MachineRate.from_dict(json.loads(Path(settings.calibration_path).read_text()))
+    except (OSError, ValueError, KeyError, TypeError):
+        return None
+
+
+def _qubit_list(text: str, n: int) -> tuple[int, ...]:
+    """'0,3,5' or '0-3,7' -> qubit numbers, checked against the circuit."""
+    from contraction.errors import VerampError
+
+    out: list[int] = []
+    try:
+        for part in text.split(","):
+            if "-" in part:
+                a, b = part.split("-", 1)
+                out.extend(range(int(a), int(b) + 1))
+            else:
+                out.append(int(part))
+    except ValueError:
+        raise VerampError(f"cannot read qubits from {text!r} (e.g. 0,3,5 or 0-3)") from None
+    bad = [q for q in out if not 0 <= q < n]
+    if bad or len(set(out)) != len(out) or not out:
+        raise VerampError(f"qubits {text!r} must be distinct numbers in 0..{n - 1}")
+    return tuple(out)
 
 
 def cmd_amplitudes(args) -> int:
@@ -108,13 +138,15 @@ def cmd_amplitudes(args) -> int:
     run = amplitudes(circuit, _bitstrings(args), dtype=args.dtype, engine=args.engine,
                      planner=PlannerOptions(budget_seconds=budget), plan_store=_plan_store(settings),
                      memory_bytes=_memory(args, settings), workers=settings.workers,
-                     progress=ProgressBar(sys.stderr.isatty()))
+                     progress=ProgressBar(sys.stderr.isatty()), rate=_stored_rate(settings),
+                     open_qubits=_qubit_list(args.open, circuit.num_qubits) if args.open else ())
     if args.format == "json":
         doc = {
             "circuit": {"num_qubits": circuit.num_qubits, "gates": len(circuit.gates),
                         "content_hash": circuit.content_hash, "structure_hash": circuit.structure_hash},
             "engine": run.engine, "engine_reason": run.reason, "dtype": run.dtype,
-            "wall_seconds": round(run.wall_seconds, 6),
+            "batch": run.batch, "chunks": run.chunks, "predicted_seconds": run.predicted_seconds,
+            "predictions": run.predictions, "wall_seconds": round(run.wall_seconds, 6),
             "results": [{"bitstring": r.bitstring, "amplitude": [r.amplitude.real, r.amplitude.imag],
                          "probability": r.probability} for r in run.results],
         }
@@ -383,18 +415,21 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("--bitstring", "-b", action="append", metavar="B", help="a bitstring (repeatable)")
     a.add_argument("--bitstrings", metavar="FILE", help="file with one bitstring per line")
     a.add_argument("--dtype", choices=["complex128", "complex64"], default="complex128")
-    a.add_argument("--engine", choices=["auto", "network", "statevector"], default="auto")
+    a.add_argument("--engine", choices=["auto", "statevector", "batch", "single"], default="auto")
     a.add_argument("--format", choices=["table", "json", "csv"], default="table")
     a.add_argument("--budget", type=float, metavar="SECONDS",
                    help="time budget for finding a contraction order (default: VERAMP_PLAN_BUDGET_SECONDS, 5)")
     a.add_argument("--memory", metavar="SIZE", help="peak memory cap, e.g. 8GiB (default VERAMP_MEMORY_BYTES)")
+    a.add_argument("--open", metavar="QUBITS",
+                   help="leave these qubits open (e.g. 0-3): bitstrings that agree on all other qubits "
+                        "share one contraction")
     a.set_defaults(func=cmd_amplitudes)
 
     e = sub.add_parser("estimate", help="cost of a run, before computing it")
     e.add_argument("circuit")
     e.add_argument("--bitstrings", type=int, default=1, metavar="K", help="number of amplitudes wanted")
     e.add_argument("--dtype", choices=["complex128", "complex64"], default="complex128")
-    e.add_argument("--engine", choices=["auto", "network", "statevector"], default="auto")
+    e.add_argument("--engine", choices=["auto", "statevector", "batch", "single"], default="auto")
     e.add_argument("--memory", metavar="SIZE", help="peak memory cap, e.g. 8GiB")
     e.add_argument("--budget", type=float, metavar="SECONDS", help="planning budget")
     e.add_argument("--format", choices=["table", "json"], default="table")

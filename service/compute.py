@@ -25,9 +25,6 @@ from contraction.planner import PlannerOptions
 
 from .db import CircuitRow, ResultRow, SqlPlanStore
 
-CHUNK = 64
-
-
 @dataclass
 class ResultItem:
     bitstring: str
@@ -88,11 +85,13 @@ def cached_results(s: Session, content_hash: str, bits: list[str], dtype: str) -
     return out
 
 
-def _save(sessions, content_hash: str, dtype: str, run) -> None:
+def _save(sessions, content_hash: str, dtype: str, results, engine: str, plan_hash: str | None) -> None:
     rows = [{"circuit_hash": content_hash, "bitstring": r.bitstring, "dtype": dtype,
-             "re": r.amplitude.real, "im": r.amplitude.imag, "engine": run.engine,
-             "plan_hash": run.plan.plan_hash if run.plan else None, "created": time.time()}
-            for r in run.results]
+             "re": r.amplitude.real, "im": r.amplitude.imag, "engine": engine,
+             "plan_hash": plan_hash, "created": time.time()}
+            for r in results]
+    if not rows:
+        return
     with sessions() as s:
         if s.bind.dialect.name == "sqlite":
             s.execute(sqlite_insert(ResultRow).values(rows).on_conflict_do_nothing())
@@ -106,36 +105,43 @@ def compute(sessions: sessionmaker[Session], circuit: Circuit, bits: list[str], 
             planner: PlannerOptions, memory_bytes: float,
             on_chunk: Callable[[int], None] | None = None,
             cancelled: Callable[[], bool] | None = None,
-            have: dict[str, ResultRow] | None = None) -> tuple[list[ResultItem], dict]:
+            have: dict[str, ResultRow] | None = None, rate=None, runner=None) -> tuple[list[ResultItem], dict]:
     """Amplitudes for ``bits`` (input order), from the cache where possible. Returns (items, stats).
 
+    Each finished chunk of new amplitudes is stored at once, so an interrupted job keeps it.
     ``have`` is the cache lookup when the caller has just made it (saves a second query)."""
     t0 = time.perf_counter()
     if have is None:
         with sessions() as s:
             have = cached_results(s, circuit.content_hash, bits, dtype)
     todo = [b for b in dict.fromkeys(bits) if b not in have]
-    store = SqlPlanStore(sessions)
-    fresh: dict[str, ResultItem] = {}
     stats = {"computed": 0, "cached": 0, "madds": 0.0, "engine": None, "plan_hash": None, "plan_cached": None}
-    done_unique = len(dict.fromkeys(bits)) - len(todo)
-    for i in range(0, len(todo), CHUNK):
-        if cancelled is not None and cancelled():
-            from contraction.errors import Cancelled
+    fresh: dict[str, ResultItem] = {}
+    if todo:
+        done_unique = len(dict.fromkeys(bits)) - len(todo)
+        # the engine is chosen before the first chunk finishes; rows are stamped with it
+        stamp: dict = {}
 
-            raise Cancelled("cancelled")
-        part = todo[i:i + CHUNK]
-        run = amplitudes(circuit, part, dtype=dtype, engine=engine, planner=planner, plan_store=store,
-                         memory_bytes=memory_bytes, cancelled=cancelled)
-        _save(sessions, circuit.content_hash, dtype, run)
-        ph = run.plan.plan_hash if run.plan else None
-        for r in run.results:
-            fresh[r.bitstring] = ResultItem(r.bitstring, r.amplitude.real, r.amplitude.imag, False, run.engine, ph)
-        stats.update(engine=run.engine, plan_hash=ph, plan_cached=run.plan_cached)
-        stats["madds"] += (run.plan.madds * len(part)) if run.plan else 0.0
-        done_unique += len(part)
-        if on_chunk is not None:
-            on_chunk(done_unique)
+        def on_results(results) -> None:
+            nonlocal done_unique
+            _save(sessions, circuit.content_hash, dtype, results, stamp["engine"], stamp["plan_hash"])
+            for r in results:
+                fresh[r.bitstring] = ResultItem(r.bitstring, r.amplitude.real, r.amplitude.imag, False,
+                                                stamp["engine"], stamp["plan_hash"])
+            done_unique += len(results)
+            if on_chunk is not None:
+                on_chunk(done_unique)
+
+        def chosen(choice) -> None:
+            stamp["engine"] = choice.engine
+            stamp["plan_hash"] = choice.chosen.plan.plan_hash if choice.chosen.plan else None
+
+        run = amplitudes(circuit, todo, dtype=dtype, engine=engine, planner=planner,
+                         plan_store=SqlPlanStore(sessions), memory_bytes=memory_bytes, cancelled=cancelled,
+                         rate=rate, runner=runner, on_results=on_results, on_choice=chosen)
+        stats.update(engine=run.engine, plan_hash=stamp["plan_hash"], plan_cached=run.plan_cached,
+                     madds=run.madds, reason=run.reason, batch=run.batch, chunks=run.chunks,
+                     predicted_seconds=run.predicted_seconds)
     items = []
     for b in bits:
         if b in fresh:

@@ -7,7 +7,7 @@ from typing import Any, Literal
 from pydantic import BaseModel, ConfigDict, Field
 
 Dtype = Literal["complex128", "complex64"]
-Engine = Literal["auto", "network", "statevector"]
+Engine = Literal["auto", "statevector", "batch", "single"]
 
 GHZ_EXAMPLE = 'OPENQASM 2.0;\ninclude "qelib1.inc";\nqreg q[3];\nh q[0];\ncx q[0],q[1];\ncx q[1],q[2];\n'
 
@@ -66,6 +66,10 @@ class Provenance(BaseModel):
     wall_seconds: float
     computed: int
     cached: int
+    reason: str | None = None               # why this engine (the automatic choice or "requested")
+    batch: int | None = None                # bitstrings per contraction
+    chunks: int | None = None               # contractions run
+    predicted_seconds: float | None = None
 
 
 class AmplitudesOut(BaseModel):

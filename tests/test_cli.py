@@ -32,7 +32,7 @@ def test_amplitudes_json(ghz_file, capsys):
     assert math.isclose(res[2]["probability"], 0.5, abs_tol=1e-15)
 
 
-@pytest.mark.parametrize("engine", ["network", "statevector"])
+@pytest.mark.parametrize("engine", ["single", "batch", "statevector"])
 def test_amplitudes_csv_from_file(ghz_file, tmp_path, capsys, engine):
     bits = tmp_path / "bits.txt"
     bits.write_text("# sampled\n000\n\n111\n")

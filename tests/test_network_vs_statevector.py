@@ -33,9 +33,9 @@ def test_network_equals_statevector(rows, cols, cycles, gates, rng, fast_planner
     psi = state_vector(c)
     ref = [psi[int(b, 2)] for b in bits]
     cache = MemoryPlanStore()
-    r128 = amplitudes(c, bits, engine="network", planner=fast_planner, plan_store=cache)
+    r128 = amplitudes(c, bits, engine="single", planner=fast_planner, plan_store=cache)
     assert _rel_err([r.amplitude for r in r128.results], ref) < 1e-10
-    r64 = amplitudes(c, bits, engine="network", dtype="complex64", planner=fast_planner, plan_store=cache)
+    r64 = amplitudes(c, bits, engine="single", dtype="complex64", planner=fast_planner, plan_store=cache)
     assert r64.plan_cached                       # same layout, same plan for every dtype and bitstring
     # complex64: float32 rounding (eps 6e-8) accumulates over hundreds of sums; an amplitude far
     # below the typical size 2^(-n/2) loses relative precision to cancellation, so the error is
@@ -62,7 +62,7 @@ def test_porter_thomas_moments_from_network(rng, fast_planner):
     n, N = c.num_qubits, 2 ** 12
     k = 400
     bits = random_bitstrings(rng, n, k)
-    run = amplitudes(c, bits, engine="network", planner=fast_planner)
+    run = amplitudes(c, bits, engine="single", planner=fast_planner)
     x = N * np.array([r.probability for r in run.results])
     # sample means with 5-sigma bands: sd(N p) = 1, sd((N p)^2) = sqrt(20)
     assert abs(x.mean() - 1) < 5 / np.sqrt(k)

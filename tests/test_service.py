@@ -81,11 +81,13 @@ def test_large_work_becomes_a_job(tmp_path):
     c = random_instance(grid_architecture(4, 6, 6), 3)       # 24 qubits: network engine, no plan stored
     psi_bits = ["0" * 24, "1" * 24, "01" * 12]
     with TestClient(create_app(make_settings(tmp_path, sync_threshold_seconds=0.0))) as client:
-        r = client.post("/v1/amplitudes", json={"circuit": {"qasm": write_qasm3(c)}, "bitstrings": psi_bits})
+        r = client.post("/v1/amplitudes", json={"circuit": {"qasm": write_qasm3(c)}, "bitstrings": psi_bits,
+                                                "engine": "batch"})
         assert r.status_code == 202 and r.headers["location"].startswith("/v1/jobs/")
         job = wait_job(client, r.json()["job_id"])
         assert job["status"] == "succeeded", job
-        assert job["progress"] == 1.0 and job["provenance"]["engine"] == "network"
+        assert job["progress"] == 1.0 and job["provenance"]["engine"] == "batch"
+        assert job["provenance"]["reason"] == "requested" and job["provenance"]["batch"] == 4
         page = client.get(f"/v1/jobs/{job['job_id']}/results?offset=1&limit=2").json()
         assert [x["bitstring"] for x in page["results"]] == psi_bits[1:3]
         nd = [json.loads(line) for line in client.get(f"/v1/jobs/{job['job_id']}/results.ndjson").text.splitlines()]

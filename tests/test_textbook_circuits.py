@@ -27,7 +27,7 @@ def test_ghz_44_qubits_network(dtype, tol, fast_planner):
     n = 44
     c = read_qasm(ghz_qasm(n))
     bits = ["0" * n, "1" * n, "01" * (n // 2), "1" + "0" * (n - 1)]
-    run = amplitudes(c, bits, engine="network", dtype=dtype, planner=fast_planner)
+    run = amplitudes(c, bits, engine="single", dtype=dtype, planner=fast_planner)
     amps = [r.amplitude for r in run.results]
     assert abs(amps[0] - 1 / math.sqrt(2)) < tol
     assert abs(amps[1] - 1 / math.sqrt(2)) < tol
@@ -50,7 +50,7 @@ def test_bernstein_vazirani_64_qubits(rng, fast_planner):
     c = read_qasm(bv_qasm(secret))
     assert c.num_qubits == 65
     other = secret[:10] + ("1" if secret[10] == "0" else "0") + secret[11:]
-    run = amplitudes(c, [secret + "1", other + "1", secret + "0"], engine="network", planner=fast_planner)
+    run = amplitudes(c, [secret + "1", other + "1", secret + "0"], engine="single", planner=fast_planner)
     p = [r.probability for r in run.results]
     assert abs(p[0] - 1.0) < 1e-12
     assert p[1] < 1e-24 and p[2] < 1e-24
@@ -68,7 +68,7 @@ def qft_qasm(n: int, j: int) -> str:
     return "\n".join(lines)
 
 
-@pytest.mark.parametrize("engine", ["statevector", "network"])
+@pytest.mark.parametrize("engine", ["statevector", "single", "batch"])
 def test_qft_of_basis_state(engine, rng, fast_planner):
     n, j = 10, 357
     N = 2 ** n
@@ -90,7 +90,7 @@ def test_tiny_amplitudes_do_not_underflow(fast_planner):
     expect = math.cos(theta / 2) ** n          # ≈ 9.7e-47
     # complex64: float32 rounding in each of ~80 rescaled pairwise contractions (common practice bound)
     for dtype, tol in (("complex128", 1e-12), ("complex64", 1e-4)):
-        run = amplitudes(c, ["0" * n], engine="network", dtype=dtype, planner=fast_planner)
+        run = amplitudes(c, ["0" * n], engine="single", dtype=dtype, planner=fast_planner)
         got = run.results[0].amplitude
         assert got != 0
         assert abs(got.real - expect) / expect < tol

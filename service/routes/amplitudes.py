@@ -2,10 +2,9 @@
 
 from fastapi import APIRouter, Depends, Response
 
-from contraction.amplitudes import choose_engine
 from contraction.bitstrings import check_bitstrings
-from contraction.estimate import estimate, network_seconds
-from contraction.network import build_structure
+from contraction.engine_choice import choose
+from contraction.estimate import estimate
 from contraction.planner import PlannerOptions
 
 from ..compute import compute, versions
@@ -31,15 +30,9 @@ def post_estimate(body: EstimateIn, state: AppState = Depends(get_state)) -> dic
 def _predicted_seconds(state: AppState, circuit, k: int, dtype: str, engine: str) -> float | None:
     """A prediction without planning: None when a plan would have to be searched first."""
     s = state.settings
-    chosen, _ = choose_engine(circuit, engine)
-    if chosen == "statevector":
-        return estimate(circuit, k, dtype=dtype, engine=engine, rate=state.rate(),
-                        memory_bytes=s.memory_bytes).predicted_seconds
-    structure = build_structure(circuit)
-    plan = SqlPlanStore(state.sessions).get(structure.key, s.memory_bytes / (16 if dtype == "complex128" else 8))
-    if plan is None:
-        return None
-    return k * network_seconds(plan, structure, state.rate(), dtype)
+    c = choose(circuit, k, engine=engine, dtype=dtype, rate=state.rate(), store=SqlPlanStore(state.sessions),
+               memory_bytes=s.memory_bytes, search=False)
+    return None if c is None else c.chosen.seconds
 
 
 def _all_cached(state: AppState, body: AmplitudesIn) -> AmplitudesOut | None:
@@ -107,7 +100,9 @@ def post_amplitudes(body: AmplitudesIn, response: Response, state: AppState = De
     state.metrics.madds.inc(stats["madds"])
     prov = Provenance(versions=versions(), engine=stats["engine"] or items[0].engine,
                       plan_hash=stats["plan_hash"] or items[0].plan_hash, dtype=body.dtype,
-                      wall_seconds=stats["wall_seconds"], computed=stats["computed"], cached=stats["cached"])
+                      wall_seconds=stats["wall_seconds"], computed=stats["computed"], cached=stats["cached"],
+                      reason=stats.get("reason"), batch=stats.get("batch"), chunks=stats.get("chunks"),
+                      predicted_seconds=stats.get("predicted_seconds"))
     return AmplitudesOut(circuit_id=circuit.content_hash, provenance=prov, results=[
         AmplitudeOut(bitstring=i.bitstring, amplitude=(i.re, i.im), probability=i.probability, cached=i.cached)
         for i in items])

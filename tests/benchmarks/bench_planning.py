@@ -32,10 +32,10 @@ def part_a(budget: float) -> dict:
     opts = PlannerOptions(budget_seconds=budget)
     bits = ["0" * 30]
     t = time.perf_counter()
-    first = amplitudes(random_instance(arch, 1), bits, engine="network", planner=opts, plan_store=store)
+    first = amplitudes(random_instance(arch, 1), bits, engine="single", planner=opts, plan_store=store)
     t_first = time.perf_counter() - t
     t = time.perf_counter()
-    second = amplitudes(random_instance(arch, 2), bits, engine="network", planner=opts, plan_store=store)
+    second = amplitudes(random_instance(arch, 2), bits, engine="single", planner=opts, plan_store=store)
     t_second = time.perf_counter() - t
     return {"part": "a_plan_reuse", "qubits": 30, "cycles": 14, "budget_s": budget,
             "first_instance_s": round(t_first, 3), "second_instance_s": round(t_second, 3),
@@ -50,14 +50,14 @@ def part_b(rate, budget: float) -> dict:
         circ = random_instance(grid_architecture(r, c, cy), seed=r * 100 + c + cy)
         store = MemoryPlanStore()
         opts = PlannerOptions(budget_seconds=budget)
-        est = estimate(circ, 1, engine="network", rate=rate, planner=opts, plan_store=store)
+        est = estimate(circ, 1, engine="single", rate=rate, planner=opts, plan_store=store)
         if est.predicted_seconds > 240:
             rows.append({"grid": f"{r}x{c}", "cycles": cy, "madds": est.madds,
                          "predicted_s": round(est.predicted_seconds, 2), "measured_s": None,
                          "skipped": "predicted over 240 s"})
             continue
         t = time.perf_counter()
-        amplitudes(circ, ["0" * circ.num_qubits], engine="network", planner=opts, plan_store=store)
+        amplitudes(circ, ["0" * circ.num_qubits], engine="single", planner=opts, plan_store=store)
         measured = time.perf_counter() - t
         rows.append({"grid": f"{r}x{c}", "cycles": cy, "madds": est.madds, "width": est.width,
                      "predicted_s": round(est.predicted_seconds, 4), "measured_s": round(measured, 4),
@@ -101,7 +101,7 @@ def part_d(rate, cycles: int, budget: float) -> dict:
     store = MemoryPlanStore()
     opts = PlannerOptions(budget_seconds=budget)
     t = time.perf_counter()
-    est = estimate(circ, 1, engine="network", rate=rate, planner=opts, plan_store=store,
+    est = estimate(circ, 1, engine="single", rate=rate, planner=opts, plan_store=store,
                    memory_bytes=16 * 2 ** 30)
     t_plan = time.perf_counter() - t
     out = {"part": "d_scale", "qubits": circ.num_qubits, "cycles": cycles, "madds": est.madds,
@@ -112,7 +112,7 @@ def part_d(rate, cycles: int, budget: float) -> dict:
         out["skipped"] = "predicted over 900 s"
         return out
     t = time.perf_counter()
-    run = amplitudes(circ, ["0" * circ.num_qubits], engine="network", planner=opts, plan_store=store,
+    run = amplitudes(circ, ["0" * circ.num_qubits], engine="single", planner=opts, plan_store=store,
                      memory_bytes=16 * 2 ** 30, workers=2)
     out["contract_seconds"] = round(time.perf_counter() - t, 2)
     out["total_seconds"] = round(out["contract_seconds"] + t_plan, 2)
