@@ -128,6 +128,55 @@ def _qubit_list(text: str, n: int) -> tuple[int, ...]:
     return tuple(out)
 
 
+def _print_block(args, qubits, values, header: list[str], engine: str, reason: str, seconds: float) -> None:
+    """Rows of a block or marginal: index, the qubits' values (first listed qubit first), value."""
+    k = len(qubits)
+    rows = [(i, format(i, f"0{k}b"), v) for i, v in enumerate(values)]
+    if args.format == "json":
+        print(json.dumps({"qubits": list(qubits), "engine": engine, "engine_reason": reason,
+                          "wall_seconds": round(seconds, 6),
+                          "values": [[v.real, v.imag] if isinstance(v, complex) else v for _, _, v in rows]}))
+        return
+    w = csv.writer(sys.stdout, lineterminator="\n")
+    w.writerow(["index", "bits"] + header)
+    for i, bits, v in rows:
+        w.writerow([i, bits] + ([repr(v.real), repr(v.imag)] if isinstance(v, complex) else [repr(v)]))
+    print(f"# qubits {','.join(map(str, qubits))} (first listed = first bit), engine {engine} ({reason}), "
+          f"{seconds:.3f} s", file=sys.stderr)
+
+
+def cmd_block(args) -> int:
+    from contraction.blocks import block_amplitudes
+    from contraction.planner import PlannerOptions
+
+    settings = _settings()
+    circuit = load_circuit_file(args.circuit)
+    qubits = _qubit_list(args.qubits, circuit.num_qubits)
+    fixed = args.fixed if args.fixed is not None else "0" * circuit.num_qubits
+    r = block_amplitudes(circuit, qubits, fixed, engine=args.engine,
+                         planner=PlannerOptions(budget_seconds=settings.plan_budget_seconds),
+                         plan_store=_plan_store(settings), memory_bytes=_memory(args, settings),
+                         rate=_stored_rate(settings))
+    _print_block(args, r.qubits, [complex(v) for v in r.values], ["amplitude_re", "amplitude_im"], r.engine,
+                 r.reason, r.wall_seconds)
+    return 0
+
+
+def cmd_marginal(args) -> int:
+    from contraction.blocks import marginal_probabilities
+    from contraction.planner import PlannerOptions
+
+    settings = _settings()
+    circuit = load_circuit_file(args.circuit)
+    qubits = _qubit_list(args.qubits, circuit.num_qubits)
+    r = marginal_probabilities(circuit, qubits, engine=args.engine,
+                               planner=PlannerOptions(budget_seconds=settings.plan_budget_seconds),
+                               plan_store=_plan_store(settings), memory_bytes=_memory(args, settings),
+                               rate=_stored_rate(settings))
+    _print_block(args, r.qubits, [float(v) for v in r.values], ["probability"], r.engine, r.reason, r.wall_seconds)
+    return 0
+
+
 def cmd_amplitudes(args) -> int:
     from contraction.amplitudes import amplitudes
     from contraction.planner import PlannerOptions
@@ -424,6 +473,28 @@ def build_parser() -> argparse.ArgumentParser:
                    help="leave these qubits open (e.g. 0-3): bitstrings that agree on all other qubits "
                         "share one contraction")
     a.set_defaults(func=cmd_amplitudes)
+
+    bl = sub.add_parser("block", help="all 2^k amplitudes on k qubits, the other qubits fixed",
+                        description="All 2^k amplitudes on the given qubits with the others fixed, from one "
+                                    "contraction. Row i: the qubits' values are the binary digits of i, the first "
+                                    "listed qubit first.")
+    bl.add_argument("circuit", help="OpenQASM 2/3 or veramp JSON file ('-' for stdin)")
+    bl.add_argument("--qubits", required=True, metavar="QUBITS", help="open qubits, e.g. 0-3 or 5,2,7")
+    bl.add_argument("--fixed", metavar="BITS", help="n-bit string for the other qubits (default all 0)")
+    bl.add_argument("--engine", choices=["auto", "statevector", "batch", "single"], default="auto")
+    bl.add_argument("--format", choices=["csv", "json"], default="csv")
+    bl.add_argument("--memory", metavar="SIZE", help="peak memory cap, e.g. 8GiB")
+    bl.set_defaults(func=cmd_block)
+
+    mg = sub.add_parser("marginal", help="marginal probabilities on k qubits",
+                        description="P(y) on the given qubits, summed over all other qubits. Row i: the "
+                                    "qubits' values are the binary digits of i, the first listed qubit first.")
+    mg.add_argument("circuit", help="OpenQASM 2/3 or veramp JSON file ('-' for stdin)")
+    mg.add_argument("--qubits", required=True, metavar="QUBITS", help="measured qubits, e.g. 0-3 or 5,2,7")
+    mg.add_argument("--engine", choices=["auto", "statevector", "network"], default="auto")
+    mg.add_argument("--format", choices=["csv", "json"], default="csv")
+    mg.add_argument("--memory", metavar="SIZE", help="peak memory cap, e.g. 8GiB")
+    mg.set_defaults(func=cmd_marginal)
 
     e = sub.add_parser("estimate", help="cost of a run, before computing it")
     e.add_argument("circuit")

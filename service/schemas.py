@@ -107,3 +107,39 @@ class ErrorOut(BaseModel):
     line: int | None = None
     column: int | None = None
     limit: str | None = None
+
+
+class BlockIn(CircuitRef):
+    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [
+        {"circuit": {"qasm": GHZ_EXAMPLE}, "qubits": [0, 2], "fixed": "000"}]})
+    qubits: list[int] = Field(..., min_length=1, max_length=20, description="the k open qubits, in output order")
+    fixed: str = Field(..., description="n-bit string giving the other qubits' values (open positions ignored)")
+    dtype: Dtype = "complex128"
+    engine: Engine = "auto"
+
+
+class BlockOut(BaseModel):
+    circuit_id: str
+    qubits: list[int]
+    order: str = Field(..., description="how entry i maps to the qubits' values")
+    amplitudes: list[tuple[float, float]]
+    engine: str
+    reason: str
+    wall_seconds: float
+
+
+class MarginalIn(CircuitRef):
+    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [
+        {"circuit": {"qasm": GHZ_EXAMPLE}, "qubits": [0, 2]}]})
+    qubits: list[int] = Field(..., min_length=1, max_length=20, description="the k measured qubits, in output order")
+    engine: Literal["auto", "statevector", "network"] = "auto"
+
+
+class MarginalOut(BaseModel):
+    circuit_id: str
+    qubits: list[int]
+    order: str
+    probabilities: list[float]
+    engine: str
+    reason: str
+    wall_seconds: float

@@ -121,3 +121,24 @@ def test_fit_command(tmp_path, capsys):
     assert doc["amplitude"] == pytest.approx(0.9, abs=1e-5)
     assert doc["extrapolations"]["20.0"][0] == pytest.approx(0.9 * 0.95 ** 20, rel=1e-4)
     assert b"<svg" in (tmp_path / "f.svg").read_bytes()[:2000]
+
+
+def test_marginal_and_block_commands(ghz_file, capsys):
+    # GHZ (Nielsen & Chuang 2010): P(q2, q0) = 1/2 on 00 and 11; amplitudes on (q0, q1) with q2 = 1:
+    # only |111> is non-zero, 1/sqrt 2, at row 3 (both listed qubits 1)
+    assert main(["marginal", ghz_file, "--qubits", "2,0"]) == 0
+    rows = capsys.readouterr().out.splitlines()
+    assert rows[0] == "index,bits,probability"
+    probs = [float(r.split(",")[2]) for r in rows[1:]]
+    assert probs == pytest.approx([0.5, 0, 0, 0.5], abs=1e-15)
+    assert main(["block", ghz_file, "--qubits", "0-1", "--fixed", "001", "--format", "json"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert doc["qubits"] == [0, 1]
+    flat = [x for pair in doc["values"] for x in pair]
+    assert flat == pytest.approx([0, 0, 0, 0, 0, 0, 1 / math.sqrt(2), 0], abs=1e-15)
+
+
+def test_bad_qubit_list_is_one_line_error(ghz_file, capsys):
+    assert main(["marginal", ghz_file, "--qubits", "0,7"]) != 0
+    err = capsys.readouterr().err
+    assert "0..2" in err and "Traceback" not in err

@@ -219,3 +219,23 @@ def test_fit_routes(client):
     assert img.status_code == 200 and img.content.startswith(b"\x89PNG")
     bad = client.post("/v1/xeb/fit", json={**body, "stderrs": [0.01] * 6})
     assert bad.status_code == 422 and "same length" in bad.json()["message"]
+
+
+def test_blocks_marginals_and_engine_provenance(client):
+    # GHZ (Nielsen & Chuang 2010): marginal on (q2, q0) is 1/2 on 00 and 11; the block on q1 with
+    # q0 = q2 = 1 holds <101| = 0 and <111| = 1/sqrt 2
+    m = client.post("/v1/marginals", json={"circuit": {"qasm": GHZ}, "qubits": [2, 0]})
+    assert m.status_code == 200, m.text
+    assert m.json()["probabilities"] == pytest.approx([0.5, 0, 0, 0.5], abs=1e-15)
+    b = client.post("/v1/blocks", json={"circuit": {"qasm": GHZ}, "qubits": [1], "fixed": "101", "engine": "single"})
+    assert b.status_code == 200, b.text
+    body = b.json()
+    assert body["engine"] == "single" and "first listed qubit" in body["order"]
+    assert [x for pair in body["amplitudes"] for x in pair] == pytest.approx([0, 0, 1 / math.sqrt(2), 0], abs=1e-15)
+    bad = client.post("/v1/marginals", json={"circuit": {"qasm": GHZ}, "qubits": [0, 5]})
+    assert bad.status_code == 422 and "0..2" in bad.json()["message"]
+    r = client.post("/v1/amplitudes", json={"circuit": {"qasm": GHZ}, "bitstrings": ["000", "011", "111", "110"],
+                                            "engine": "batch"}).json()
+    prov = r["provenance"]
+    assert prov["engine"] == "batch" and prov["reason"] == "requested" and prov["batch"] == 4 and prov["chunks"] == 1
+    assert r["results"][2]["probability"] == pytest.approx(0.5, abs=1e-15)

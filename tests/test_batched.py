@@ -1,0 +1,174 @@
+"""Batched contractions, open-qubit blocks, marginals and the engine choice.
+
+References outside the batching code: an einsum-based dense reference written here (one
+``np.einsum`` per gate, a different code path from the engine's transpose-and-multiply state
+vector), the textbook GHZ state (Nielsen & Chuang 2010, section 1.3.6: (|0...0> + |1...1>)/sqrt 2,
+so every k-qubit marginal is 1/2 on 0...0 and 1...1), and normalisation (sum of a marginal = 1 for a
+unitary circuit).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from contraction.amplitudes import amplitudes
+from contraction.blocks import block_amplitudes, light_cone, marginal_probabilities
+from contraction.engine_choice import batch_candidates, chunk_schedule, choose
+from contraction.network import build_structure
+from contraction.plan_store import MemoryPlanStore
+from contraction.qasm_reader import read_qasm
+from contraction.random_circuits import grid_architecture, random_instance
+from contraction.statevector import state_vector
+
+from .conftest import FAST_PLANNER, random_bitstrings
+
+
+def einsum_state(circuit) -> np.ndarray:
+    """C|0...0> with one einsum per gate (test-local reference)."""
+    n = circuit.num_qubits
+    psi = np.zeros((2,) * n, dtype=np.complex128)
+    psi[(0,) * n] = 1
+    letters = "abcdefghijklmnopqrstuvwxyz"
+    for g in circuit.gates:
+        k = len(g.qubits)
+        t = g.matrix.reshape((2,) * (2 * k))
+        outs = "".join("ABCDEFGH"[i] for i in range(k))
+        ins = "".join(letters[q] for q in g.qubits)
+        state_in = letters[:n]
+        state_out = "".join(outs[g.qubits.index(q)] if q in g.qubits else letters[q] for q in range(n))
+        psi = np.einsum(f"{outs}{ins},{state_in}->{state_out}", t, psi)
+    return psi.reshape(-1) * np.exp(1j * circuit.global_phase)
+
+
+@pytest.fixture(scope="module")
+def small():
+    return random_instance(grid_architecture(3, 4, 8), seed=5)          # 12 qubits, Haar gates
+
+
+@pytest.fixture(scope="module")
+def medium():
+    return random_instance(grid_architecture(4, 5, 8), seed=2)          # 20 qubits
+
+
+def _rel(a, b) -> float:
+    return abs(a - b) / abs(b)
+
+
+def test_reference_matches_engine_state_vector(small):
+    assert np.max(np.abs(einsum_state(small) - state_vector(small))) < 1e-12
+
+
+def test_batched_equals_single_equals_reference_with_duplicates_in_order(small, rng):
+    psi = einsum_state(small)
+    bits = random_bitstrings(rng, 12, 40)
+    bits = bits + bits[:7] + [bits[3]] * 3                  # repeats, in scattered positions
+    store = MemoryPlanStore()
+    seen: list = []
+    batch = amplitudes(small, bits, engine="batch", planner=FAST_PLANNER, plan_store=store, on_results=seen.extend)
+    single = amplitudes(small, bits, engine="single", planner=FAST_PLANNER, plan_store=store)
+    assert batch.engine == "batch" and batch.batch > 1 and batch.chunks < 40
+    assert [r.bitstring for r in batch.results] == bits == [r.bitstring for r in single.results]
+    # every distinct bitstring computed exactly once, streamed as chunks finished
+    assert sorted(r.bitstring for r in seen) == sorted(set(bits))
+    for rb, rs in zip(batch.results, single.results):
+        ref = psi[int(rb.bitstring, 2)]
+        assert _rel(rb.amplitude, ref) < 1e-10 and _rel(rs.amplitude, ref) < 1e-10
+    assert batch.results[3].amplitude == batch.results[-1].amplitude == batch.results[-2].amplitude
+
+
+def test_batch_structure_key_depends_on_batch_size(small):
+    keys = {build_structure(small).key, build_structure(small, batch=8).key, build_structure(small, batch=16).key}
+    assert len(keys) == 3
+    other = random_instance(grid_architecture(3, 4, 8), seed=99)         # same architecture, other values
+    assert build_structure(other, batch=8).key == build_structure(small, batch=8).key
+
+
+def test_batched_workers_and_complex64(medium, rng):
+    psi = state_vector(medium)
+    bits = random_bitstrings(rng, 20, 24)
+    r = amplitudes(medium, bits, engine="batch", planner=FAST_PLANNER, workers=2)
+    assert max(_rel(x.amplitude, psi[int(x.bitstring, 2)]) for x in r.results) < 1e-10
+    r64 = amplitudes(medium, bits, engine="batch", dtype="complex64", planner=FAST_PLANNER)
+    # complex64: 1e-5 relative to max(|a|, 2^-n/2) (float32 has 24 mantissa bits; common practice)
+    floor = 2.0 ** (-20 / 2)
+    assert max(abs(x.amplitude - psi[int(x.bitstring, 2)]) / max(abs(psi[int(x.bitstring, 2)]), floor)
+               for x in r64.results) < 1e-5
+
+
+def test_open_qubit_groups_share_one_contraction(small, rng):
+    psi = state_vector(small)
+    fixed = random_bitstrings(rng, 12, 3)
+    open_q = (1, 6, 10)
+    bits = []
+    for f in fixed:                                          # 3 groups x 8 values of the open qubits
+        for i in range(8):
+            b = list(f)
+            for j, q in enumerate(open_q):
+                b[q] = "01"[(i >> (2 - j)) & 1]
+            bits.append("".join(b))
+    rng.shuffle(bits)
+    r = amplitudes(small, bits, engine="single", open_qubits=open_q, planner=FAST_PLANNER)
+    assert r.chunks == 3                                     # one contraction per group, not per bitstring
+    assert [x.bitstring for x in r.results] == bits
+    assert max(_rel(x.amplitude, psi[int(x.bitstring, 2)]) for x in r.results) < 1e-10
+
+
+def test_block_order_is_documented_order(small):
+    psi = state_vector(small)
+    fixed = "101100111010"
+    qubits = (7, 2, 11)
+    for engine in ("single", "statevector"):
+        block = block_amplitudes(small, qubits, fixed, engine=engine, planner=FAST_PLANNER)
+        assert block.values.shape == (8,)
+        for i, v in enumerate(block.values):
+            b = list(fixed)
+            for j, q in enumerate(qubits):                   # first listed qubit = most significant bit of i
+                b[q] = format(i, "03b")[j]
+            assert _rel(v, psi[int("".join(b), 2)]) < 1e-10
+
+
+@pytest.mark.parametrize("engine", ["statevector", "network"])
+def test_marginals_match_state_vector_and_sum_to_one(small, engine):
+    p = np.abs(einsum_state(small).reshape((2,) * 12)) ** 2
+    qubits = (9, 0, 4)
+    m = marginal_probabilities(small, qubits, engine=engine, planner=FAST_PLANNER)
+    ref = p.sum(axis=tuple(q for q in range(12) if q not in qubits))     # axes in order 0, 4, 9
+    ref = ref.transpose(2, 0, 1).reshape(-1)                              # -> order 9, 0, 4
+    assert m.engine == engine
+    assert np.max(np.abs(m.values - ref)) < 1e-12
+    assert abs(m.values.sum() - 1) < 1e-12
+    # summing out the last listed qubit gives the marginal on the first two
+    two = marginal_probabilities(small, qubits[:2], engine=engine, planner=FAST_PLANNER)
+    assert np.max(np.abs(m.values.reshape(4, 2).sum(axis=1) - two.values)) < 1e-12
+
+
+def test_ghz_marginals_are_textbook():
+    n = 30
+    lines = ["OPENQASM 2.0;", 'include "qelib1.inc";', f"qreg q[{n}];", "h q[0];"]
+    lines += [f"cx q[{i}],q[{i + 1}];" for i in range(n - 1)]
+    ghz = read_qasm("\n".join(lines))
+    m = marginal_probabilities(ghz, (3, 17, 29), engine="network", planner=FAST_PLANNER)
+    assert np.allclose(m.values, [0.5, 0, 0, 0, 0, 0, 0, 0.5], atol=1e-12)
+    # reverse light cone of qubit 3: H, CNOTs 0-1, 1-2, 2-3, and 3-4 (it touches qubit 3; a cone
+    # built from the layout cannot tell a control from a target); the 25 later CNOTs are dropped
+    assert len(light_cone(ghz, (3,)).gates) == 5
+
+
+def test_chunk_schedule_follows_the_cost_model():
+    # hand-worked: per useful bitstring 64 -> 10/64, 8 -> 2/8, 1 -> 1; then 6 left: 8 -> 2/6 is best
+    assert chunk_schedule(70, {1: 1.0, 8: 2.0, 64: 10.0}) == [64, 8]
+    assert chunk_schedule(3, {1: 1.0, 8: 20.0}) == [1, 1, 1]
+    assert batch_candidates(1) == [] and batch_candidates(1000) == [16, 128, 1024]
+
+
+def test_engine_choice_reasons(medium, small):
+    store = MemoryPlanStore()
+    c = choose(small, 50, memory_bytes=8 * 2 ** 30)
+    assert c.engine == "statevector" and "qubits <=" in c.reason
+    # a memory cap below the 20-qubit state vector (3 x 2^20 x 16 bytes) forces the network engines
+    c = choose(medium, 64, memory_bytes=2 ** 24, planner=FAST_PLANNER, store=store)
+    assert c.engine in ("batch", "single") and "over the cap" in c.reason
+    assert set(c.predictions()) >= {"single"} and c.chosen.seconds == min(c.predictions().values())
+    with pytest.raises(Exception, match="memory cap"):
+        choose(medium, 4, engine="statevector", memory_bytes=2 ** 24)
