@@ -234,8 +234,15 @@ def test_blocks_marginals_and_engine_provenance(client):
     assert [x for pair in body["amplitudes"] for x in pair] == pytest.approx([0, 0, 1 / math.sqrt(2), 0], abs=1e-15)
     bad = client.post("/v1/marginals", json={"circuit": {"qasm": GHZ}, "qubits": [0, 5]})
     assert bad.status_code == 422 and "0..2" in bad.json()["message"]
-    r = client.post("/v1/amplitudes", json={"circuit": {"qasm": GHZ}, "bitstrings": ["000", "011", "111", "110"],
-                                            "engine": "batch"}).json()
-    prov = r["provenance"]
-    assert prov["engine"] == "batch" and prov["reason"] == "requested" and prov["batch"] == 4 and prov["chunks"] == 1
+    bits = ["000", "011", "111", "110"]
+    r = client.post("/v1/amplitudes", json={"circuit": {"qasm": GHZ}, "bitstrings": bits}).json()
+    prov = r["provenance"]                     # answered at once: 3 qubits, the automatic choice says why
+    assert prov["engine"] == "statevector" and "qubits <=" in prov["reason"]
     assert r["results"][2]["probability"] == pytest.approx(0.5, abs=1e-15)
+    # a forced batch: no plan stored yet, so the service answers with a job
+    r = client.post("/v1/amplitudes", json={"circuit": {"qasm": GHZ}, "bitstrings": bits, "engine": "batch",
+                                            "dtype": "complex64"})
+    assert r.status_code == 202
+    job = wait_job(client, r.json()["job_id"])
+    prov = job["provenance"]
+    assert prov["engine"] == "batch" and prov["reason"] == "requested" and prov["batch"] == 4 and prov["chunks"] == 1
