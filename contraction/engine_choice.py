@@ -122,8 +122,9 @@ def statevector_option(circuit: Circuit, count: int, dtype: str, rate: MachineRa
     itemsize = np.dtype(dtype).itemsize
     seconds = rate.statevector_seconds_per_update * 2 ** n * len(arities) * (itemsize / 16)
     madds = float(sum(2 ** n * 2 ** a for a in arities))
-    # the state, a transposed copy and the product are alive at once during a gate
-    return Option("statevector", seconds, 3.0 * 2 ** n * itemsize, madds=madds)
+    from .statevector import peak_elements
+
+    return Option("statevector", seconds, peak_elements(n) * itemsize, madds=madds)
 
 
 def network_seconds(plan: Plan, structure: NetworkStructure, rate: MachineRate, dtype: str = "complex128") -> float:

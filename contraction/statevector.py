@@ -12,8 +12,16 @@ import numpy as np
 
 from .circuit import Circuit, Gate
 
-#: largest state vector the engine builds by default (2^28 complex128 = 4 GiB)
-MAX_QUBITS = 28
+#: largest state vector the engine builds (2^32 complex64 = 32 GiB); the memory cap decides first
+MAX_QUBITS = 32
+#: from this size on, gates are applied in place chunk by chunk (peak: the state plus a few chunks)
+IN_PLACE_QUBITS = 25
+CHUNK_ELEMENTS = 2 ** 22
+
+
+def peak_elements(n: int) -> float:
+    """Peak elements alive while the engine applies a gate to an n-qubit state."""
+    return 3.0 * 2 ** n if n < IN_PLACE_QUBITS else 2 ** n + 3.0 * CHUNK_ELEMENTS
 
 
 def apply_gate(psi: np.ndarray, matrix: np.ndarray, qubits: Sequence[int]) -> np.ndarray:
@@ -29,7 +37,33 @@ def apply_gate(psi: np.ndarray, matrix: np.ndarray, qubits: Sequence[int]) -> np
     return np.ascontiguousarray(out.transpose(np.argsort(perm)))
 
 
+def apply_gate_in_place(psi: np.ndarray, matrix: np.ndarray, qubits: Sequence[int],
+                        chunk: int = CHUNK_ELEMENTS) -> None:
+    """Apply a gate to ``psi`` in place, a block of about ``chunk`` elements at a time: the loop
+    runs over the leading axes the gate does not touch, so every block holds whole gate orbits."""
+    import itertools
+
+    n = psi.ndim
+    free = [a for a in range(n) if a not in qubits]
+    m = 0
+    while m < len(free) and 2 ** (n - m) > chunk:
+        m += 1
+    loop = free[:m]
+    rest = [a for a in range(n) if a not in loop]
+    pos = [rest.index(q) for q in qubits]
+    for values in itertools.product((0, 1), repeat=m):
+        index = [slice(None)] * n
+        for a, v in zip(loop, values):
+            index[a] = v
+        block = psi[tuple(index)]
+        block[...] = apply_gate(block, matrix, pos)
+
+
 def apply_gates(psi: np.ndarray, gates: Sequence[Gate]) -> np.ndarray:
+    if psi.ndim >= IN_PLACE_QUBITS:
+        for g in gates:
+            apply_gate_in_place(psi, g.matrix, g.qubits)
+        return psi
     for g in gates:
         psi = apply_gate(psi, g.matrix, g.qubits)
     return psi

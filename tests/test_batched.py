@@ -172,3 +172,17 @@ def test_engine_choice_reasons(medium, small):
     assert set(c.predictions()) >= {"single"} and c.chosen.seconds == min(c.predictions().values())
     with pytest.raises(Exception, match="memory cap"):
         choose(medium, 4, engine="statevector", memory_bytes=2 ** 24)
+
+
+def test_in_place_state_vector_update_matches_copying_update(small):
+    from contraction.network import fused_gates
+    from contraction.statevector import apply_gate, apply_gate_in_place
+
+    ref = np.zeros((2,) * 12, dtype=np.complex128)
+    ref[(0,) * 12] = 1
+    chunked = ref.copy()
+    for g in fused_gates(small):
+        ref = apply_gate(ref, g.matrix, g.qubits)
+        apply_gate_in_place(chunked, g.matrix, g.qubits, chunk=2 ** 5)   # 128 blocks per gate
+    assert np.max(np.abs(chunked - ref)) < 1e-14
+    assert np.max(np.abs(chunked.reshape(-1) - einsum_state(small))) < 1e-12

@@ -1,0 +1,119 @@
+"""Batched amplitudes benchmark: one batched run against a per-bitstring loop and the state vector.
+
+Part a: 1,024 random bitstrings of a 30-qubit (5x6) 14-cycle Haar circuit.
+Part b: a 40-qubit (5x8) circuit, whose state vector (16 GiB complex128, plus work space) is over
+the memory cap used here.
+
+Every figure comes from this run. The loop and the state vector are too slow to run in full on two
+cores, so both are measured on a part and scaled: the loop on ``--loop-sample`` bitstrings with the
+stored plan (x count), the state vector on its first ``--sv-gates`` fused gates, in place
+(x number of fused gates). The JSON says which figures are scaled.
+
+    python tests/benchmarks/bench_batched.py [--parts ab] [--budget 30] [--loop-sample 2]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import time
+
+import numpy as np
+
+from contraction.amplitudes import amplitudes
+from contraction.calibration import measure
+from contraction.engine_choice import choose
+from contraction.network import fused_gates
+from contraction.plan_store import MemoryPlanStore
+from contraction.planner import PlannerOptions
+from contraction.random_circuits import grid_architecture, random_instance
+from contraction.statevector import apply_gate_in_place
+
+
+def emit(doc: dict) -> None:
+    print(json.dumps(doc), flush=True)
+
+
+def random_bits(n: int, k: int, seed: int) -> list[str]:
+    rng = np.random.default_rng(seed)
+    return ["".join("1" if b else "0" for b in rng.integers(0, 2, n)) for _ in range(k)]
+
+
+def statevector_seconds(circuit, gates_measured: int) -> tuple[float, int]:
+    """Seconds per fused gate on the full state (in place), and the number of fused gates."""
+    gates = fused_gates(circuit)
+    n = circuit.num_qubits
+    psi = np.zeros((2,) * n, dtype=np.complex128)
+    psi[(0,) * n] = 1
+    times = []
+    for g in gates[:gates_measured]:
+        t = time.perf_counter()
+        apply_gate_in_place(psi, g.matrix, g.qubits)
+        times.append(time.perf_counter() - t)
+    del psi
+    return float(np.median(times)), len(gates)
+
+
+def run_case(name: str, rows: int, cols: int, cycles: int, count: int, args, rate, memory: float,
+             with_sv: bool) -> dict:
+    circuit = random_instance(grid_architecture(rows, cols, cycles), seed=1)
+    n = circuit.num_qubits
+    bits = random_bits(n, count, seed=7)
+    store = MemoryPlanStore()
+    opts = PlannerOptions(budget_seconds=args.budget)
+    t = time.perf_counter()
+    choice = choose(circuit, count, rate=rate, store=store, planner=opts, memory_bytes=memory)
+    planning = time.perf_counter() - t
+    # batched, with the plans the choice just stored
+    t = time.perf_counter()
+    batched = amplitudes(circuit, bits, engine="batch", rate=rate, plan_store=store, planner=opts,
+                         memory_bytes=memory)
+    t_batched = time.perf_counter() - t
+    # the loop: one contraction per bitstring with the stored plan, on a sample
+    sample = bits[:args.loop_sample]
+    t = time.perf_counter()
+    single = amplitudes(circuit, sample, engine="single", rate=rate, plan_store=store, planner=opts,
+                        memory_bytes=memory)
+    t_loop = (time.perf_counter() - t) / len(sample) * count
+    err = max(abs(a.amplitude - b.amplitude) / abs(b.amplitude) for a, b in zip(batched.results, single.results))
+    doc = {"part": name, "qubits": n, "cycles": cycles, "bitstrings": count, "budget_s": args.budget,
+           "planning_s": round(planning, 2), "automatic_choice": choice.engine, "reason": choice.reason,
+           "predicted_s": {k: round(v, 2) for k, v in choice.predictions().items()},
+           "batched_s": round(t_batched, 2), "batch": batched.batch, "chunks": batched.chunks,
+           "batched_madds": batched.madds, "single_madds_each": single.plan.madds,
+           "loop_s_scaled": round(t_loop, 2), "loop_sample": len(sample),
+           "ratio_loop_over_batched": round(t_loop / t_batched, 2), "goal_ratio": 10,
+           "max_rel_diff_batched_vs_single": err}
+    measured = {"batch": t_batched, "single": t_loop}
+    if with_sv:
+        per_gate, ngates = statevector_seconds(circuit, args.sv_gates)
+        doc["statevector_s_scaled"] = round(per_gate * ngates, 2)
+        doc["statevector_gates"] = f"{args.sv_gates} of {ngates} fused gates measured"
+        measured["statevector"] = per_gate * ngates
+    fastest = min(measured, key=measured.get)
+    doc["fastest_measured"] = fastest
+    doc["choice_was_fastest"] = choice.engine == fastest
+    doc["achieved_madds_per_s_batched"] = batched.madds / max(t_batched, 1e-9)
+    doc["fraction_of_matmul"] = round(doc["achieved_madds_per_s_batched"] / rate.matmul_madds_per_second, 3)
+    return doc
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--parts", default="ab")
+    ap.add_argument("--budget", type=float, default=30.0)
+    ap.add_argument("--loop-sample", type=int, default=2)
+    ap.add_argument("--sv-gates", type=int, default=6)
+    ap.add_argument("--memory-gib", type=float, default=18.0)
+    args = ap.parse_args()
+    rate = measure()
+    emit({"part": "calibration", **rate.to_dict()})
+    memory = args.memory_gib * 2 ** 30
+    if "a" in args.parts:
+        emit(run_case("a_30q_1024", 5, 6, 14, 1024, args, rate, memory, with_sv=True))
+    if "b" in args.parts:
+        emit(run_case("b_40q", 5, 8, 10, 256, args, rate, min(memory, 8 * 2 ** 30), with_sv=False))
+
+
+if __name__ == "__main__":
+    main()
