@@ -184,11 +184,21 @@ def cmd_amplitudes(args) -> int:
     settings = _settings()
     circuit = load_circuit_file(args.circuit)
     budget = args.budget if args.budget is not None else settings.plan_budget_seconds
-    run = amplitudes(circuit, _bitstrings(args), dtype=args.dtype, engine=args.engine,
-                     planner=PlannerOptions(budget_seconds=budget), plan_store=_plan_store(settings),
-                     memory_bytes=_memory(args, settings), workers=settings.workers,
-                     progress=ProgressBar(sys.stderr.isatty()), rate=_stored_rate(settings),
-                     open_qubits=_qubit_list(args.open, circuit.num_qubits) if args.open else ())
+    runner = None
+    if settings.dask_scheduler:
+        from contraction.dask_runner import DaskRunner
+
+        runner = DaskRunner(settings.dask_scheduler)
+    try:
+        run = amplitudes(circuit, _bitstrings(args), dtype=args.dtype, engine=args.engine,
+                         planner=PlannerOptions(budget_seconds=budget), plan_store=_plan_store(settings),
+                         memory_bytes=_memory(args, settings), workers=settings.workers,
+                         progress=ProgressBar(sys.stderr.isatty()), rate=_stored_rate(settings),
+                         open_qubits=_qubit_list(args.open, circuit.num_qubits) if args.open else (),
+                         runner=runner)
+    finally:
+        if runner is not None:
+            runner.close()
     if args.format == "json":
         doc = {
             "circuit": {"num_qubits": circuit.num_qubits, "gates": len(circuit.gates),

@@ -39,7 +39,7 @@ def _init_worker() -> None:
     threadpool_limits(1)
 
 
-def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float) -> dict:
+def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_scheduler: str | None = None) -> dict:
     """Run one job to completion in a worker process; all state goes through the database."""
     from .compute import compute, load_circuit, versions
 
@@ -75,9 +75,19 @@ def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float) -> dic
         circuit = load_circuit(sessions, chash)
         if circuit is None:
             raise VerampError("the job's circuit is no longer stored")
-        items, stats = compute(sessions, circuit, bits, dtype=dtype, engine=engine,
-                               planner=PlannerOptions(budget_seconds=budget), memory_bytes=memory_bytes,
-                               on_chunk=on_chunk, cancelled=cancelled)
+        runner = None
+        if dask_scheduler:
+            from contraction.dask_runner import DaskRunner
+
+            runner = DaskRunner(dask_scheduler)
+        try:
+            items, stats = compute(sessions, circuit, bits, dtype=dtype, engine=engine,
+                                   planner=PlannerOptions(budget_seconds=budget), memory_bytes=memory_bytes,
+                                   on_chunk=on_chunk, cancelled=cancelled, runner=runner)
+        finally:
+            if runner is not None:
+                runner.close()
+        stats["runner"] = "dask" if runner is not None else "local"
         prov = {"versions": versions(), "dtype": dtype, **stats}
     except Cancelled:
         status = "cancelled"
@@ -127,7 +137,7 @@ class JobManager:
 
     def _submit(self, job_id: str) -> None:
         fut = self.pool.submit(run_job, job_id, self.settings.sqlalchemy_url, self.settings.memory_bytes,
-                               self.settings.plan_budget_seconds)
+                               self.settings.plan_budget_seconds, self.settings.dask_scheduler)
         with self._lock:
             self._active[job_id] = fut
         fut.add_done_callback(lambda f, j=job_id: self._done(j, f))

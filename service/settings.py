@@ -32,7 +32,8 @@ class Settings(BaseSettings):
     queue_size: int = 64
     tokens: str | None = Field(None, description="comma-separated bearer tokens")
     tokens_file: Path | None = Field(None, description="file with one bearer token per line")
-    dask_scheduler: str | None = None
+    dask_scheduler: str | None = Field(None, description="Dask scheduler address (tcp://host:port): slices and "
+                                                         "batch chunks of jobs run there instead of locally")
 
     @property
     def plan_dir(self) -> Path:
