@@ -15,6 +15,7 @@ from dataclasses import dataclass
 from typing import Callable
 
 from sqlalchemy import select
+from sqlalchemy.dialects.postgresql import insert as pg_insert
 from sqlalchemy.dialects.sqlite import insert as sqlite_insert
 from sqlalchemy.orm import Session, sessionmaker
 
@@ -53,6 +54,8 @@ def versions() -> dict:
 def store_circuit(sessions: sessionmaker[Session], circuit: Circuit) -> CircuitRow:
     import json
 
+    from sqlalchemy.exc import IntegrityError
+
     with sessions() as s:
         row = s.get(CircuitRow, circuit.content_hash)
         if row is None:
@@ -60,7 +63,11 @@ def store_circuit(sessions: sessionmaker[Session], circuit: Circuit) -> CircuitR
                              num_qubits=circuit.num_qubits, num_gates=len(circuit.gates),
                              document=json.dumps(to_document(circuit)), created=time.time())
             s.add(row)
-            s.commit()
+            try:
+                s.commit()
+            except IntegrityError:      # another replica stored the same circuit first: same content
+                s.rollback()
+                row = s.get(CircuitRow, circuit.content_hash)
         return row
 
 
@@ -93,8 +100,11 @@ def _save(sessions, content_hash: str, dtype: str, results, engine: str, plan_ha
     if not rows:
         return
     with sessions() as s:
-        if s.bind.dialect.name == "sqlite":
-            s.execute(sqlite_insert(ResultRow).values(rows).on_conflict_do_nothing())
+        dialect = s.bind.dialect.name
+        if dialect in ("sqlite", "postgresql"):
+            # rows another replica wrote first are equal by construction: keep theirs
+            insert = sqlite_insert if dialect == "sqlite" else pg_insert
+            s.execute(insert(ResultRow).values(rows).on_conflict_do_nothing())
         else:
             have = cached_results(s, content_hash, [r["bitstring"] for r in rows], dtype)
             s.add_all(ResultRow(**r) for r in rows if r["bitstring"] not in have)

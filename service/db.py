@@ -11,6 +11,7 @@ import json
 import time
 from typing import Iterator
 
+from sqlalchemy.exc import IntegrityError
 from sqlalchemy import Float, Integer, String, Text, create_engine, event, select
 from sqlalchemy.engine import Engine
 from sqlalchemy.orm import DeclarativeBase, Mapped, Session, mapped_column, sessionmaker
@@ -77,9 +78,11 @@ class JobRow(Base):
 
 
 def make_engine(url: str) -> Engine:
-    kwargs = {}
+    kwargs: dict = {}
     if url.startswith("sqlite"):
         kwargs["connect_args"] = {"check_same_thread": False, "timeout": 30}
+    else:
+        kwargs["pool_pre_ping"] = True          # survive a database restart between requests
     engine = create_engine(url, **kwargs)
     if url.startswith("sqlite"):
         @event.listens_for(engine, "connect")
@@ -127,5 +130,9 @@ class SqlPlanStore:
             row.madds = plan.madds
             row.plan_json = plan.to_json()
             row.updated = time.time()
-            s.commit()
+            try:
+                s.commit()
+            except IntegrityError:              # another replica stored a plan for this slot first
+                s.rollback()
+                return False
         return True

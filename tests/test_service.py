@@ -26,7 +26,7 @@ RATE = MachineRate(1e10, 0.5, 1e-8, 2e-5, 2e-8, 1, 0.0)
 
 def make_settings(tmp_path, **kw) -> Settings:
     d = tmp_path / "data"
-    d.mkdir(exist_ok=True)
+    d.mkdir(parents=True, exist_ok=True)
     (d / "calibration.json").write_text(json.dumps(RATE.to_dict()))   # skip the calibration run
     kw.setdefault("workers", 1)
     kw.setdefault("plan_budget_seconds", 0.3)
