@@ -300,8 +300,23 @@ def cmd_serve(args) -> int:
 
     settings = Settings(**overrides)
     logging.basicConfig(level=logging.INFO, format="%(message)s")
-    uvicorn.run(create_app(settings), host=args.host, port=args.port, log_level="warning")
+    uvicorn.run(create_app(settings), host=args.host or settings.host, port=args.port or settings.port,
+                log_level="warning")
     return 0
+
+
+def cmd_health(args) -> int:
+    import httpx
+
+    url = (args.url or f"http://127.0.0.1:{_settings().port}").rstrip("/") + "/v1/health"
+    try:
+        ok = httpx.get(url, timeout=args.timeout).status_code == 200
+    except httpx.HTTPError as exc:
+        print(f"veramp: unhealthy: {url}: {exc}", file=sys.stderr)
+        return 1
+    if not ok:
+        print(f"veramp: unhealthy: {url}", file=sys.stderr)
+    return 0 if ok else 1
 
 
 def cmd_xeb(args) -> int:
@@ -549,10 +564,15 @@ def build_parser() -> argparse.ArgumentParser:
     ft.set_defaults(func=cmd_fit)
 
     sv = sub.add_parser("serve", help="run the REST service (SQLite and a local worker pool by default)")
-    sv.add_argument("--host", default="127.0.0.1")
-    sv.add_argument("--port", type=int, default=8350)
+    sv.add_argument("--host", help="listen address (VERAMP_HOST, default 127.0.0.1)")
+    sv.add_argument("--port", type=int, help="port (VERAMP_PORT, default 8350)")
     sv.add_argument("--data-dir", metavar="DIR", help="database, plans and calibration (VERAMP_DATA_DIR)")
     sv.set_defaults(func=cmd_serve)
+
+    hc = sub.add_parser("health", help="exit 0 when the local service answers its health route (container checks)")
+    hc.add_argument("--url", help="service URL (default http://127.0.0.1:VERAMP_PORT)")
+    hc.add_argument("--timeout", type=float, default=3.0)
+    hc.set_defaults(func=cmd_health)
 
     cal = sub.add_parser("calibrate", help="re-measure this machine's rates used for time predictions")
     cal.set_defaults(func=cmd_calibrate)
