@@ -1,0 +1,77 @@
+"""Sliced contraction on a two-worker Dask LocalCluster against the local process pool.
+
+One 30-qubit (5x6) circuit, planned with slices whose largest intermediate is 2^22 elements (or
+what ``--max-log2`` says); the same plan and arrays run on two local worker processes and on a
+LocalCluster of two single-threaded worker processes on 127.0.0.1. Overhead per slice of the
+cluster path = (cluster time - local time) / slices, also as a share of the local time per slice.
+
+    python tests/benchmarks/bench_dask.py [--cycles 12] [--max-log2 22] [--repeats 3]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import statistics
+import time
+
+import numpy as np
+
+from contraction.dask_runner import DaskRunner
+from contraction.executor import combine_scaled
+from contraction.network import build_structure, tensor_arrays
+from contraction.parallel import ProcessRunner, Task, split_slices
+from contraction.planner import PlannerOptions, find_plan
+from contraction.random_circuits import grid_architecture, random_instance
+
+
+def timed_run(runner, plan, structure, arrays, pieces: int) -> tuple[float, complex]:
+    parts: list = []
+    tasks = [Task(arrays, p) for p in split_slices(plan.nslices, pieces)]
+    t = time.perf_counter()
+    runner.run(plan, structure, tasks, lambda k, res: parts.extend(res))
+    return time.perf_counter() - t, complex(combine_scaled(parts).reshape(()))
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--cycles", type=int, default=12)
+    ap.add_argument("--max-log2", type=int, default=22)
+    ap.add_argument("--budget", type=float, default=20.0)
+    ap.add_argument("--repeats", type=int, default=3)
+    args = ap.parse_args()
+    import distributed
+
+    circuit = random_instance(grid_architecture(5, 6, args.cycles), seed=3)
+    s = build_structure(circuit)
+    plan = find_plan(s, PlannerOptions(budget_seconds=args.budget, max_elements=2 ** args.max_log2))
+    arrays = tensor_arrays(s, circuit, "0" * 30)
+    local = ProcessRunner(2)
+    timed_run(local, plan, s, arrays, 2)                       # warm-up: worker start-up, page cache
+    t_local = [timed_run(local, plan, s, arrays, 2 * 4) for _ in range(args.repeats)]
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
+                                  dashboard_address=None) as cluster:
+        dask = DaskRunner(cluster.scheduler_address)
+        timed_run(dask, plan, s, arrays, 2)                    # warm-up: trees built on the workers
+        t_dask = [timed_run(dask, plan, s, arrays, plan.nslices) for _ in range(args.repeats)]
+        dask.close()
+    local_s = statistics.median(t for t, _ in t_local)
+    dask_s = statistics.median(t for t, _ in t_dask)
+    per_slice_local = local_s / plan.nslices * 2               # two workers: wall per slice per worker
+    overhead = (dask_s - local_s) / plan.nslices * 2
+    values = [v for _, v in t_local + t_dask]
+    print(json.dumps({
+        "qubits": 30, "cycles": args.cycles, "slices": plan.nslices, "width_log2": plan.width,
+        "madds": plan.madds, "local_pool_s_median": round(local_s, 3), "dask_s_median": round(dask_s, 3),
+        "dask_tasks": plan.nslices, "local_tasks": 8,
+        "ratio_dask_over_local": round(dask_s / local_s, 3),
+        "overhead_per_slice_s": round(overhead, 4), "overhead_share_of_slice": round(overhead / per_slice_local, 4),
+        "goal_overhead_share": 0.10,
+        "results_agree": bool(max(abs(v - values[0]) for v in values) <= 1e-12 * abs(values[0])),
+        "runs_local": [round(t, 3) for t, _ in t_local], "runs_dask": [round(t, 3) for t, _ in t_dask],
+    }))
+
+
+if __name__ == "__main__":
+    np.seterr(all="ignore")
+    main()
