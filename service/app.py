@@ -19,7 +19,7 @@ from .db import make_engine, session_factory
 from .deps import AppState, LimitExceeded
 from .jobs import JobManager, QueueFull
 from .metrics import Metrics
-from .routes import amplitudes, blocks, circuits, jobs, ops, xeb
+from .routes import amplitudes, blocks, circuits, jobs, ops, paths, xeb
 from .settings import Settings
 
 log = logging.getLogger("veramp.api")
@@ -127,7 +127,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app = FastAPI(title="veramp", version=__version__, lifespan=lifespan,
                   description="Exact amplitudes of quantum circuits for sampled bitstrings. "
                               "Bitstrings are written qubit 0 first.")
-    for r in (ops.router, circuits.router, amplitudes.router, blocks.router, jobs.router, xeb.router):
+    for r in (ops.router, circuits.router, amplitudes.router, blocks.router, jobs.router, xeb.router, paths.router):
         app.include_router(r)
     tokens = settings.token_set()
 

@@ -177,6 +177,79 @@ def cmd_marginal(args) -> int:
     return 0
 
 
+def _theta_list(text: str) -> list[float]:
+    """'0:1:21' (21 points from 0 to 1) or '0.1,0.5,1' -> values."""
+    import numpy as np
+
+    try:
+        if ":" in text:
+            a, b, k = text.split(":")
+            if int(k) < 1 or int(k) > 100_000:
+                raise ValueError
+            return [float(v) for v in np.linspace(float(a), float(b), int(k))]
+        return [float(v) for v in text.split(",")]
+    except ValueError:
+        raise VerampError(f"cannot read theta values from {text!r} (e.g. 0:1:21 or 0.1,0.5,1)") from None
+
+
+def cmd_path(args) -> int:
+    from contraction.bitstrings import check_bitstrings
+    from contraction.cayley import cayley_path, path_probabilities
+    from contraction.planner import PlannerOptions
+    from contraction.rational_fit import path_probabilities_mp, recover_path, recover_path_mp
+
+    settings = _settings()
+    circuit = load_circuit_file(args.circuit)
+    [bits] = check_bitstrings([args.bitstring], circuit.num_qubits)
+    path = cayley_path(circuit, args.seed)
+    thetas = _theta_list(args.thetas)
+    opts = dict(planner=PlannerOptions(budget_seconds=settings.plan_budget_seconds), plan_store=_plan_store(settings),
+                memory_bytes=_memory(args, settings), workers=settings.workers)
+    probs, engine = path_probabilities(path, bits, thetas, **opts)
+    doc = {"bitstring": bits, "seed": args.seed, "engine": engine, "degree_bound": path.degree_bound,
+           "theta": thetas, "probability": probs.tolist()}
+    recovery = None
+    if args.fit_nodes:
+        nodes = _theta_list(args.fit_nodes)
+        targets = _theta_list(args.targets)
+        if args.precision == "mp":
+            samples = path_probabilities_mp(path, bits, nodes, args.dps)
+            recovery = recover_path_mp(path, nodes, samples, targets, dps=args.dps)
+        else:
+            samples = path_probabilities(path, bits, nodes, **opts)[0]
+            if args.corrupt:
+                import numpy as np
+
+                # a seeded test of the error-tolerant recovery: scale the chosen samples by 1.5
+                samples = np.array(samples)
+                samples[[int(i) for i in args.corrupt.split(",")]] *= 1.5
+            recovery = recover_path(path, nodes, samples, targets, errors=args.errors)
+        recovery.exact = path_probabilities(path, bits, targets, **opts)[0].tolist()
+        recovery.actual_error = [abs(a - b) for a, b in zip(recovery.recovered, recovery.exact)]
+        doc["recovery"] = recovery.to_dict()
+    if args.plot:
+        from service.plots import path_plot
+
+        Path(args.plot).write_bytes(path_plot(thetas, probs, bits, recovery,
+                                              "svg" if args.plot.endswith(".svg") else "png"))
+    if args.format == "json":
+        print(json.dumps(doc))
+        return 0
+    print(f"{'theta':>12}  {'p(theta)':>24}")
+    for t, p in zip(thetas, probs):
+        print(f"{t:>12.6g}  {p:>24.16e}")
+    if recovery is not None:
+        print(f"# recovery: degree {recovery.degree} (bound 2*sum d_k), {len(recovery.nodes)} nodes on "
+              f"[{min(recovery.nodes):g}, {max(recovery.nodes):g}], {recovery.precision}"
+              + (f", corrupted samples found: {recovery.corrupted}" if args.errors else ""))
+        print(f"{'theta':>12}  {'recovered':>24}  {'estimated error':>16}  {'computed':>24}  {'actual error':>13}")
+        for row in zip(recovery.theta, recovery.recovered, recovery.estimated_error, recovery.exact,
+                       recovery.actual_error):
+            print(f"{row[0]:>12.6g}  {row[1]:>24.16e}  {row[2]:>16.3e}  {row[3]:>24.16e}  {row[4]:>13.3e}")
+    print(f"# engine {engine}, seed {args.seed}", file=sys.stderr)
+    return 0
+
+
 def cmd_amplitudes(args) -> int:
     from contraction.amplitudes import amplitudes
     from contraction.planner import PlannerOptions
@@ -520,6 +593,27 @@ def build_parser() -> argparse.ArgumentParser:
     mg.add_argument("--format", choices=["csv", "json"], default="csv")
     mg.add_argument("--memory", metavar="SIZE", help="peak memory cap, e.g. 8GiB")
     mg.set_defaults(func=cmd_marginal)
+
+    pa = sub.add_parser("path", help="p(theta) along the Cayley path from the circuit to a Haar deformation",
+                        description="Every gate C_k becomes C_k f(theta h_k), f the Cayley transform and h_k the "
+                                    "inverse transform of a seeded Haar-random H_k: theta=0 is the circuit, theta=1 "
+                                    "the circuit with gates C_k H_k. Optionally recover p from samples at other "
+                                    "nodes (least squares in a Chebyshev basis, Berlekamp–Welch with --errors).")
+    pa.add_argument("circuit", help="OpenQASM 2/3 or veramp JSON file ('-' for stdin)")
+    pa.add_argument("--bitstring", "-b", required=True, metavar="B")
+    pa.add_argument("--seed", type=int, default=0, help="seed of the Haar deformations")
+    pa.add_argument("--thetas", default="0:1:21", help="'a:b:k' (k points) or a list (default 0:1:21)")
+    pa.add_argument("--fit-nodes", metavar="THETAS", help="sample p here and recover it at --targets")
+    pa.add_argument("--targets", default="1", metavar="THETAS", help="where to evaluate the recovery (default 1)")
+    pa.add_argument("--errors", type=int, default=0, help="samples that may be corrupted (Berlekamp–Welch)")
+    pa.add_argument("--corrupt", metavar="I,J", help="scale these samples by 1.5 (to test --errors)")
+    pa.add_argument("--precision", choices=["double", "mp"], default="double",
+                    help="mp: samples and fit in mpmath (up to 8 qubits)")
+    pa.add_argument("--dps", type=int, default=50, help="decimal digits for --precision mp")
+    pa.add_argument("--plot", metavar="FILE", help="write the figure (PNG or SVG)")
+    pa.add_argument("--format", choices=["table", "json"], default="table")
+    pa.add_argument("--memory", metavar="SIZE", help="peak memory cap, e.g. 8GiB")
+    pa.set_defaults(func=cmd_path)
 
     e = sub.add_parser("estimate", help="cost of a run, before computing it")
     e.add_argument("circuit")

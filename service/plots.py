@@ -67,3 +67,21 @@ def depth_fit_plot(cycles: Sequence[float], fidelities: Sequence[float], stderrs
     ax.set_title(title or "XEB fidelity against depth")
     ax.legend()
     return _bytes(plt, fig, fmt)
+
+
+def path_plot(thetas: Sequence[float], probabilities: Sequence[float], bitstring: str, recovery=None,
+              fmt: str = "png") -> bytes:
+    """p(theta) along the Cayley path; with a recovery, the sample nodes and the recovered values
+    with their estimated error bars."""
+    plt, (fig, ax) = _figure()
+    ax.plot(thetas, probabilities, "-", color="#4477aa", label="p(θ), computed")
+    if recovery is not None:
+        ax.errorbar(recovery.theta, recovery.recovered, yerr=recovery.estimated_error, fmt="o", color="#ee6677",
+                    capsize=3, label="recovered from samples (± estimated error)")
+        lo, hi = min(recovery.nodes), max(recovery.nodes)
+        ax.axvspan(lo, hi, color="#bbbbbb", alpha=0.3, label=f"sample interval, {len(recovery.nodes)} nodes")
+    ax.set_xlabel("θ (0: the circuit, 1: its Haar deformation)")
+    ax.set_ylabel(f"p(θ) = |⟨{bitstring if len(bitstring) <= 12 else bitstring[:10] + '…'}|C(θ)|0⟩|²")
+    ax.set_title("Output probability along the Cayley path")
+    ax.legend(fontsize=8)
+    return _bytes(plt, fig, fmt)

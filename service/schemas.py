@@ -143,3 +143,32 @@ class MarginalOut(BaseModel):
     engine: str
     reason: str
     wall_seconds: float
+
+
+class RecoverIn(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+    nodes: list[float] = Field(..., min_length=2, max_length=2000, description="theta values to sample p at")
+    targets: list[float] = Field([1.0], min_length=1, max_length=200, description="where to evaluate the recovery")
+    errors: int = Field(0, ge=0, le=100, description="samples that may be corrupted (Berlekamp–Welch)")
+
+
+class PathIn(CircuitRef):
+    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [
+        {"circuit": {"qasm": GHZ_EXAMPLE}, "bitstring": "111", "seed": 7, "thetas": [0, 0.5, 1],
+         "recover": {"nodes": [0.0, 0.05, 0.1, 0.15, 0.2, 0.25, 0.3, 0.35, 0.4, 0.45, 0.5, 0.55, 0.6, 0.65, 0.7,
+                               0.75, 0.8, 0.85, 0.9, 0.95, 1.0], "targets": [0.33]}}]})
+    bitstring: str
+    seed: int = Field(0, ge=0, description="seed of the Haar deformations H_k")
+    thetas: list[float] = Field(..., min_length=1, max_length=2000)
+    recover: RecoverIn | None = None
+
+
+class PathOut(BaseModel):
+    circuit_id: str
+    bitstring: str
+    seed: int
+    engine: str
+    degree_bound: int = Field(..., description="sum of the gate dimensions d_k")
+    theta: list[float]
+    probability: list[float]
+    recovery: dict[str, Any] | None = None
