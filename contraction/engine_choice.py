@@ -207,6 +207,10 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
                       sv, [sv])
     if engine == "auto" and sv_fits:
         options.append(sv)
+        planning = planner.budget_seconds * (1 + len(batch_candidates(count))) if planner is not None else 0.0
+        if sv.seconds <= planning:
+            return Choice("statevector", f"state vector predicted {sv.seconds:.3g} s, less than planning the "
+                                         f"network engines would take (~{planning:.3g} s)", sv, [sv])
     errors = []
     planned: dict[int, Option] = {}
     sizes = ([1] if engine in ("auto", "single") or count < 2 else []) + \

@@ -39,7 +39,18 @@ def _init_worker() -> None:
     threadpool_limits(1)
 
 
-def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_scheduler: str | None = None) -> dict:
+def _stored_rate(path: str | None):
+    """The service's stored calibration (measured at start-up), or None for nominal rates."""
+    from contraction.calibration import MachineRate
+
+    try:
+        return MachineRate.from_dict(json.loads(open(path).read())) if path else None
+    except (OSError, ValueError, KeyError, TypeError):
+        return None
+
+
+def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_scheduler: str | None = None,
+            calibration_path: str | None = None) -> dict:
     """Run one job to completion in a worker process; all state goes through the database."""
     from .compute import compute, load_circuit, versions
 
@@ -83,7 +94,8 @@ def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_s
         try:
             items, stats = compute(sessions, circuit, bits, dtype=dtype, engine=engine,
                                    planner=PlannerOptions(budget_seconds=budget), memory_bytes=memory_bytes,
-                                   on_chunk=on_chunk, cancelled=cancelled, runner=runner)
+                                   on_chunk=on_chunk, cancelled=cancelled, runner=runner,
+                                   rate=_stored_rate(calibration_path))
         finally:
             if runner is not None:
                 runner.close()
@@ -137,7 +149,8 @@ class JobManager:
 
     def _submit(self, job_id: str) -> None:
         fut = self.pool.submit(run_job, job_id, self.settings.sqlalchemy_url, self.settings.memory_bytes,
-                               self.settings.plan_budget_seconds, self.settings.dask_scheduler)
+                               self.settings.plan_budget_seconds, self.settings.dask_scheduler,
+                               str(self.settings.calibration_path))
         with self._lock:
             self._active[job_id] = fut
         fut.add_done_callback(lambda f, j=job_id: self._done(j, f))

@@ -94,7 +94,7 @@ def post_amplitudes(body: AmplitudesIn, response: Response, state: AppState = De
         return job_out(job)
     items, stats = compute(state.sessions, circuit, bits, dtype=body.dtype, engine=body.engine,
                            planner=PlannerOptions(budget_seconds=s.plan_budget_seconds),
-                           memory_bytes=s.memory_bytes, have=have)
+                           memory_bytes=s.memory_bytes, have=have, rate=state.rate())
     state.metrics.cache_hits.inc(stats["cached"])
     state.metrics.cache_misses.inc(stats["computed"])
     state.metrics.madds.inc(stats["madds"])

@@ -43,7 +43,8 @@ def _probabilities(state: AppState, body: XebIn):
             raise LimitExceeded("sync_threshold_seconds", "these probabilities are not cached and would take "
                                 "a while: POST them to /v1/amplitudes (a job) first, then ask again", 409)
     items, _stats = compute(state.sessions, circuit, bits, dtype="complex128", engine="auto",
-                            planner=PlannerOptions(budget_seconds=s.plan_budget_seconds), memory_bytes=s.memory_bytes)
+                            planner=PlannerOptions(budget_seconds=s.plan_budget_seconds), memory_bytes=s.memory_bytes,
+                            rate=state.rate())
     return circuit, [i.probability for i in items]
 
 
