@@ -105,6 +105,7 @@ class Choice:
     reason: str
     chosen: Option
     options: list[Option] = field(default_factory=list)
+    planned: dict[int, Option] = field(default_factory=dict)   # every contraction size planned, per chunk
 
     def predictions(self) -> dict[str, float]:
         return {_label(o): o.seconds for o in self.options}
@@ -225,7 +226,9 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
     if 1 in planned:
         options.append(scheduled("single", count, {1: planned[1]}))
     if any(b > 1 for b in planned):
-        options.append(scheduled("batch", count, planned))
+        batched = scheduled("batch", count, planned)
+        if batched.batch > 1 or 1 not in planned:         # all chunks of one: that is the single engine
+            options.append(batched)
     if not options and not search:
         return None
     if not options:
@@ -236,6 +239,9 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
     else:
         others = ", ".join(f"{_label(o)} {o.seconds:.3g} s" for o in options if o is not best)
         reason = f"fastest predicted: {_label(best)} {best.seconds:.3g} s" + (f" (vs {others})" if others else "")
+        slower = [b for b in planned if b > 1 and planned[b].seconds / b >= planned.get(1, best).seconds]
+        if best.engine == "single" and slower:
+            reason += f"; batches of {'/'.join(map(str, sorted(slower)))} predicted slower per bitstring"
         if not sv_fits:
             reason += f"; a state vector needs {sv.peak_bytes:.3g} bytes, over the cap"
-    return Choice(best.engine, reason, best, options)
+    return Choice(best.engine, reason, best, options, planned)

@@ -69,11 +69,15 @@ def run_case(name: str, rows: int, cols: int, cycles: int, count: int, args, rat
            "planning_s": round(planning, 2), "automatic_choice": choice.engine, "reason": choice.reason,
            "predicted_s": {k: round(v, 2) for k, v in choice.predictions().items()}}
     emit({"progress": doc})
-    batch_opt = next(o for o in choice.options if o.engine == "batch")
     single_opt = next(o for o in choice.options if o.engine == "single")
-    b = batch_opt.batch
-    part = batch_opt.parts[b]
-    doc.update(batch=b, chunks=len(batch_opt.schedule), batch_plan={"madds": part.plan.madds,
+    # the batched run: the planned batch size (> 1) with the least predicted time per bitstring,
+    # even when the choice preferred another engine
+    b = min((k for k in choice.planned if k > 1), key=lambda k: choice.planned[k].seconds / k)
+    part = choice.planned[b]
+    chunks = -(-count // b)
+    doc.update(batch=b, chunks=chunks, predicted_per_bitstring_s={k: round(o.seconds / k, 3)
+                                                                   for k, o in choice.planned.items()},
+               batch_plan={"madds": part.plan.madds,
                "width": part.plan.width, "slices": part.plan.nslices},
                single_plan={"madds": single_opt.plan.madds, "width": single_opt.plan.width,
                             "slices": single_opt.plan.nslices})
@@ -85,7 +89,7 @@ def run_case(name: str, rows: int, cols: int, cycles: int, count: int, args, rat
     t = time.perf_counter()
     chunk_values = contract_array(part.tree, arrays)
     t_chunk = time.perf_counter() - t
-    t_batched = t_chunk * len(batch_opt.schedule)
+    t_batched = t_chunk * chunks
     # the loop: one contraction per bitstring with the stored plan, on a sample
     sample = bits[:args.loop_sample]
     t = time.perf_counter()
