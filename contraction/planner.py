@@ -110,7 +110,10 @@ class Plan:
             tree = ctg.ContractionTree.from_path(structure.inputs, structure.output, structure.size_dict,
                                                  ssa_path=[list(p) for p in self.ssa_path], check=True)
             labels = structure.labels
+            outer = set(structure.output)
             for c in self.sliced:
+                if labels[c] in outer:
+                    raise PlanError("stored plan slices an output index (its slices cannot be summed)")
                 tree.remove_ind_(labels[c])
         except PlanError:
             raise
@@ -119,6 +122,24 @@ class Plan:
         if structure.num_tensors > 1 and not math.isclose(tree.contraction_cost(), self.madds, rel_tol=1e-9):
             raise PlanError("stored plan's cost does not match its tree (corrupted)")
         return tree
+
+
+def _slice_inner(tree, target: int, minimize: str):
+    """Slice until the largest intermediate fits ``target``, reconfiguring subtrees between rounds
+    (cotengra's slice-and-reconfigure, with a stop when no inner index is left to slice). Output
+    indices (batch, open qubits) are never sliced: slices are summed, and summing over an output
+    index would add different amplitudes together."""
+    tree = tree.copy()
+    while tree.max_size() > target:
+        before = (tree.nslices, tree.max_size())
+        try:
+            tree.slice_(target_slices=2, minimize=minimize, allow_outer=False, max_repeats=16)
+        except (KeyError, ValueError):    # cotengra's slice finder when no candidate index is left
+            break
+        tree.subtree_reconfigure_(minimize=minimize)
+        if (tree.nslices, tree.max_size()) == before:
+            break                     # nothing left to slice: the caller reports the cap as unreachable
+    return tree
 
 
 def _checksum(doc: dict) -> str:
@@ -205,7 +226,7 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
             tree = tree.subtree_reconfigure(minimize=options.minimize)
             if options.max_elements is not None and tree.max_size() > options.max_elements:
                 target = max(2, int(options.max_elements))
-                tree = tree.slice_and_reconfigure(target_size=target, minimize=options.minimize)
+                tree = _slice_inner(tree, target, options.minimize)
     finally:
         random.setstate(state)
     if options.max_elements is not None and tree.max_size() > options.max_elements:

@@ -186,3 +186,34 @@ def test_in_place_state_vector_update_matches_copying_update(small):
         apply_gate_in_place(chunked, g.matrix, g.qubits, chunk=2 ** 5)   # 128 blocks per gate
     assert np.max(np.abs(chunked - ref)) < 1e-14
     assert np.max(np.abs(chunked.reshape(-1) - einsum_state(small))) < 1e-12
+
+
+def test_slicing_never_cuts_an_output_index(small, rng):
+    """Slices are summed, so a sliced batch index would add different bitstrings' amplitudes; a
+    tight memory target must slice inner indices only (and the result stays exact)."""
+    from contraction.planner import PlannerOptions, find_plan
+
+    s = build_structure(small, batch=8, open_qubits=(4,))
+    plan = find_plan(s, PlannerOptions(budget_seconds=0.3, max_repeats=4, max_elements=2 ** 6))
+    labels = s.labels
+    assert plan.nslices > 1 and not {labels[c] for c in plan.sliced} & set(s.output)
+    psi = state_vector(small)
+    bits = random_bitstrings(rng, 12, 8)
+    from contraction.executor import contract_array
+    from contraction.network import tensor_arrays
+
+    out = contract_array(plan.tree(s), tensor_arrays(s, small, bits))
+    for i, b in enumerate(bits):
+        for v in (0, 1):
+            x = b[:4] + str(v) + b[5:]
+            assert _rel(out[i, v], psi[int(x, 2)]) < 1e-10
+
+
+def test_unreachable_memory_target_is_an_error_not_a_hang(small):
+    from contraction.errors import MemoryLimitError
+    from contraction.planner import PlannerOptions, find_plan
+
+    # the output alone holds 8 x 2 = 16 elements, so a target of 8 cannot be met without slicing it
+    s = build_structure(small, batch=8, open_qubits=(4,))
+    with pytest.raises(MemoryLimitError, match="fits the cap"):
+        find_plan(s, PlannerOptions(budget_seconds=0.2, max_repeats=2, max_elements=2 ** 3))
