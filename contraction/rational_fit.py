@@ -78,8 +78,8 @@ def fit_polynomial(x: Sequence[float], y: Sequence[float], degree: int,
     residuals and the noise are measured on weight * sample."""
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
-    if len(x) < degree + 1:
-        raise VerampError(f"{len(x)} samples cannot determine a polynomial of degree {degree}")
+    if len(np.unique(x)) < degree + 1:
+        raise VerampError(f"{len(np.unique(x))} distinct nodes cannot determine a polynomial of degree {degree}")
     domain = domain or (float(x.min()), float(x.max()))
     w = np.ones_like(y) if weights is None else np.asarray(weights, dtype=float)
     scale = float(np.max(np.abs(w * y))) or 1.0
@@ -110,9 +110,11 @@ def berlekamp_welch(x: Sequence[float], y: Sequence[float], degree: int, errors:
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
     w = np.ones_like(y) if weights is None else np.asarray(weights, dtype=float)
-    k, t, d = len(x), int(errors), int(degree)
+    k, t, d = len(np.unique(x)), int(errors), int(degree)
+    if not (np.all(np.isfinite(y)) and np.all(np.isfinite(w))):
+        raise VerampError("the samples or their weights are not finite (theta too large for double precision?)")
     if k < d + 2 * t + 1:
-        raise VerampError(f"Berlekamp–Welch needs at least {d + 2 * t + 1} samples for degree {d} with "
+        raise VerampError(f"recovery needs at least {d + 2 * t + 1} distinct nodes for degree {d} with "
                           f"{t} errors; got {k}")
     if t == 0:
         return WelchResult(fit_polynomial(x, y, d, weights=weights))

@@ -2,6 +2,8 @@
 
 import math
 
+import numpy as np
+
 from fastapi import APIRouter, Depends, Query, Response
 
 from contraction.cayley import cayley_path, path_probabilities
@@ -16,12 +18,15 @@ from ..schemas import ErrorOut, PathIn, PathOut
 
 router = APIRouter(prefix="/v1", tags=["paths"])
 
+#: beyond this the known denominator overflows double precision for ordinary circuits
+MAX_THETA = 1e3
+
 
 def _compute(body: PathIn, state: AppState):
     circuit = resolve_circuit(state, body)
-    if not all(math.isfinite(t) for t in body.thetas + (body.recover.nodes + body.recover.targets
-                                                          if body.recover else [])):
-        raise VerampError("theta values must be finite numbers")
+    values = body.thetas + (body.recover.nodes + body.recover.targets if body.recover else [])
+    if not all(math.isfinite(t) and abs(t) <= MAX_THETA for t in values):
+        raise VerampError(f"theta values must be finite numbers of magnitude at most {MAX_THETA:g}")
     s = state.settings
     opts = dict(planner=PlannerOptions(budget_seconds=s.plan_budget_seconds), plan_store=SqlPlanStore(state.sessions),
                 memory_bytes=s.memory_bytes)
@@ -31,7 +36,10 @@ def _compute(body: PathIn, state: AppState):
     if body.recover is not None:
         r = body.recover
         samples, _ = path_probabilities(path, body.bitstring, r.nodes, **opts)
-        recovery = recover_path(path, r.nodes, samples, r.targets, errors=r.errors)
+        try:
+            recovery = recover_path(path, r.nodes, samples, r.targets, errors=r.errors)
+        except (np.linalg.LinAlgError, FloatingPointError, OverflowError) as exc:
+            raise VerampError(f"the recovery is numerically impossible for these nodes: {exc}") from None
     return circuit, path, probs, engine, recovery
 
 
