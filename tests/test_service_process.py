@@ -58,7 +58,8 @@ def test_job_survives_sigkill_and_client_reads_results(tmp_path):
     proc = start(data, port)
     try:
         with Client(f"http://127.0.0.1:{port}") as cl:
-            job = cl.amplitudes(bits, qasm=write_qasm3(c))
+            # one contraction per bitstring: each is a chunk of its own, so the job is seen mid-way
+            job = cl.amplitudes(bits, qasm=write_qasm3(c), engine="single")
             job_id = job["job_id"]
             for _ in range(600):                                    # wait until it is mid-way
                 j = cl.job(job_id)
