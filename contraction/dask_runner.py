@@ -23,9 +23,10 @@ from .planner import Plan
 _trees: dict[str, object] = {}
 
 
-def _task_on_worker(plan_json: str, plan_hash: str, structure: NetworkStructure, task: Task) -> SliceResults:
+def _task_on_worker(plan_blob: tuple, arrays: list, slices: list[int]) -> SliceResults:
     from threadpoolctl import threadpool_limits
 
+    plan_json, plan_hash, structure = plan_blob
     tree = _trees.get(plan_hash)
     if tree is None:
         tree = Plan.from_json(plan_json).tree(structure)
@@ -33,7 +34,7 @@ def _task_on_worker(plan_json: str, plan_hash: str, structure: NetworkStructure,
             _trees.clear()
         _trees[plan_hash] = tree
     with threadpool_limits(1):
-        return run_task(tree, task)
+        return run_task(tree, Task(arrays, slices))
 
 
 class DaskRunner:
@@ -63,11 +64,15 @@ class DaskRunner:
                                        f"allows {self.memory_limit:.4g} bytes")
         import distributed
 
-        plan_json, plan_hash = plan.to_json(), plan.plan_hash
-        [blob] = self.client.scatter([structure], broadcast=True, hash=False)
+        # the plan and every distinct array list travel to the workers once, not with every task
+        [blob] = self.client.scatter([(plan.to_json(), plan.plan_hash, structure)], broadcast=True, hash=False)
+        shared: dict[int, object] = {}
 
         def submit(task: Task):
-            return self.client.submit(_task_on_worker, plan_json, plan_hash, blob, task, pure=False)
+            key = id(task.arrays)
+            if key not in shared:
+                [shared[key]] = self.client.scatter([task.arrays], broadcast=True, hash=False)
+            return self.client.submit(_task_on_worker, blob, shared[key], task.slices, pure=False)
 
         def wait(fs, timeout, return_when):
             try:
