@@ -15,7 +15,7 @@ from .amplitudes import _dtype
 from .engine_choice import DEFAULT_MEMORY_BYTES
 from .calibration import MachineRate
 from .circuit import Circuit
-from .engine_choice import choose, network_seconds  # noqa: F401  (network_seconds: re-exported)
+from .engine_choice import choose
 from .plan_store import PlanStore
 from .planner import PlannerOptions
 

@@ -5,8 +5,8 @@ Sources (../shared/reference/check-values.md, "Cayley transform"):
   inverts it for unitary H without eigenvalue -1 (standard linear algebra);
 * p(theta) * prod_{k,j}(1 + theta^2 lambda_kj^2) is a polynomial of degree <= 2 sum_k d_k (derived);
 * Berlekamp–Welch: K >= d + 2t + 1 samples recover a degree-d polynomial with t corrupted samples
-  (Welch & Berlekamp, US patent 4,633,470 (1986); the linear-algebra form in e.g. Guruswami's
-  lecture notes, from memory).
+  (L. R. Welch & E. R. Berlekamp, US patent 4,633,470 (1986), from memory; the count is also in
+  check-values.md).
 """
 
 from __future__ import annotations
