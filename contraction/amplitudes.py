@@ -64,12 +64,6 @@ class AmplitudeRun:
     predicted_seconds: float = 0.0
     predictions: dict[str, float] = field(default_factory=dict)
 
-    def provenance(self) -> dict:
-        """How the numbers were made, for result records and reports."""
-        return {"engine": self.engine, "reason": self.reason, "batch": self.batch, "chunks": self.chunks,
-                "predicted_seconds": self.predicted_seconds, "predictions": self.predictions,
-                "plan_hash": self.plan.plan_hash if self.plan else None}
-
 
 def _dtype(name: str):
     try:
@@ -158,15 +152,15 @@ def _run_network(circuit: Circuit, option: Option, groups: dict[str, list[str]],
             for piece in pieces:
                 tasks.append(Task(arrays, piece))
                 owner.append(number)
-        plans.append((sub, items, tasks, owner, len(pieces)))
+        plans.append((sub, items, tasks, owner))
         total_tasks += len(tasks)
     done_tasks = 0
     t0 = time.perf_counter()
-    for sub, items, tasks, owner, per_chunk in plans:
+    for sub, items, tasks, owner in plans:
         parts_of: dict[int, list] = {}
         members = dict(items)
 
-        def done(k: int, results, sub=sub, owner=owner, members=members, parts_of=parts_of, per_chunk=per_chunk):
+        def done(k: int, results, sub=sub, owner=owner, members=members, parts_of=parts_of):
             nonlocal done_tasks
             number = owner[k]
             parts_of.setdefault(number, []).extend(results)

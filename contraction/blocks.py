@@ -87,9 +87,9 @@ def light_cone(circuit: Circuit, qubits) -> Circuit:
     return circuit.with_gates(list(reversed(keep)), global_phase=0.0)
 
 
-def marginal_structure(circuit: Circuit, qubits) -> tuple[NetworkStructure, Circuit]:
-    """The doubled network of the marginal on ``qubits`` (after light-cone pruning) and the pruned
-    circuit whose tensors (then their conjugates) fill it."""
+def marginal_structure(circuit: Circuit, qubits) -> tuple[NetworkStructure, Circuit, NetworkStructure]:
+    """The doubled network of the marginal on ``qubits`` (after light-cone pruning), the pruned
+    circuit, and its single-copy network whose tensors (then their conjugates) fill the doubled one."""
     qs = tuple(qubits)
     pruned = light_cone(circuit, qs)
     n = pruned.num_qubits
@@ -108,7 +108,7 @@ def marginal_structure(circuit: Circuit, qubits) -> tuple[NetworkStructure, Circ
         nxt += 1
     inputs = ket.inputs + tuple(tuple(bra_of[ix] for ix in term) for term in ket.inputs)
     output = tuple(final[q] for q in qs)
-    return NetworkStructure(n, inputs, output, ket.sources + ket.sources), pruned
+    return NetworkStructure(n, inputs, output, ket.sources + ket.sources), pruned, ket
 
 
 def marginal_probabilities(circuit: Circuit, qubits, *, dtype: str = "complex128", engine: str = "auto",
@@ -129,7 +129,7 @@ def marginal_probabilities(circuit: Circuit, qubits, *, dtype: str = "complex128
     plan = None
     small = sv_fits and circuit.num_qubits <= SV_AUTO_QUBITS
     if engine == "network" or (engine == "auto" and not small):
-        structure, pruned = marginal_structure(circuit, qs)
+        structure, pruned, ket_structure = marginal_structure(circuit, qs)
         plan, tree, _ = network_plan(structure, plan_store, planner or PlannerOptions(), memory_bytes, dtype)
         predicted = network_seconds(plan, structure, rate, dtype)
     if engine == "statevector" or (engine == "auto" and (small or (sv_fits and sv.seconds <= predicted))):
@@ -141,8 +141,7 @@ def marginal_probabilities(circuit: Circuit, qubits, *, dtype: str = "complex128
             f"state vector predicted {sv.seconds:.3g} s <= network {predicted:.3g} s")
         return BlockResult(qs, p.reshape(-1).astype(np.float64), "statevector", reason,
                            time.perf_counter() - t0, None)
-    ket = tensor_arrays(build_structure(pruned, open_qubits=tuple(range(pruned.num_qubits))), pruned,
-                        "0" * pruned.num_qubits, dt)
+    ket = tensor_arrays(ket_structure, pruned, "0" * pruned.num_qubits, dt)
     value = contract_array(tree, ket + [a.conj() for a in ket])
     reason = "requested" if engine == "network" else (
         f"network predicted {predicted:.3g} s" + (f" < state vector {sv.seconds:.3g} s" if sv_fits

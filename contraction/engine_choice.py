@@ -2,7 +2,8 @@
 
 Three ways to get N amplitudes of an n-qubit circuit:
 
-* ``statevector``: build C|0...0> once and read any number of amplitudes (memory 3 x 2^n elements);
+* ``statevector``: build C|0...0> once and read any number of amplitudes (memory: see
+  :func:`contraction.statevector.peak_elements`);
 * ``batch``: contract the network with a batch index of size B on the projectors, so one
   contraction gives B amplitudes; the chunk size B is chosen from the cost model among a few powers
   of two (each one planned, or its plan read from the store);
