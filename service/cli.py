@@ -651,7 +651,7 @@ def build_parser() -> argparse.ArgumentParser:
     sb.add_argument("--format", choices=["json", "csv"], default="csv")
     sb.set_defaults(func=cmd_submit)
 
-    ft = sub.add_parser("fit", help="fit XEB against cycles: F(d) = A(1-e)^d with a 95% interval on e")
+    ft = sub.add_parser("fit", help="fit XEB against cycles: F(d) = A(1-e)^d with a 95%% interval on e")
     ft.add_argument("table", help="rows 'cycles, fidelity, stderr' (CSV or whitespace)")
     ft.add_argument("--extrapolate", type=float, action="append", metavar="CYCLES")
     ft.add_argument("--plot", metavar="FILE", help="write the figure (.png or .svg)")

@@ -14,7 +14,8 @@ import time
 from dataclasses import dataclass
 from typing import Callable
 
-from sqlalchemy import select
+from sqlalchemy import String, any_, literal, select
+from sqlalchemy.dialects.postgresql import ARRAY
 from sqlalchemy.dialects.postgresql import insert as pg_insert
 from sqlalchemy.dialects.sqlite import insert as sqlite_insert
 from sqlalchemy.orm import Session, sessionmaker
@@ -81,13 +82,24 @@ def load_circuit(sessions: sessionmaker[Session], content_hash: str) -> Circuit 
         return from_document(json.loads(row.document), max_qubits=10 ** 9)
 
 
+#: bitstrings per cache lookup: an IN list binds one variable each on SQLite; PostgreSQL gets one
+#: array parameter (``= ANY(...)``), which its planner handles far faster than a long IN list
+_LOOKUP_ROWS = {"sqlite": 30000, "postgresql": 20000}
+
+
 def cached_results(s: Session, content_hash: str, bits: list[str], dtype: str) -> dict[str, ResultRow]:
+    """Stored results among ``bits`` for this circuit and dtype, keyed by bitstring."""
     out: dict[str, ResultRow] = {}
     unique = list(dict.fromkeys(bits))
-    for i in range(0, len(unique), 500):
-        part = unique[i:i + 500]
-        q = select(ResultRow).where(ResultRow.circuit_hash == content_hash, ResultRow.dtype == dtype,
-                                    ResultRow.bitstring.in_(part))
+    dialect = s.bind.dialect.name
+    step = _LOOKUP_ROWS.get(dialect, 500)
+    for i in range(0, len(unique), step):
+        part = unique[i:i + step]
+        if dialect == "postgresql":
+            match = ResultRow.bitstring == any_(literal(part, ARRAY(String)))
+        else:
+            match = ResultRow.bitstring.in_(part)
+        q = select(ResultRow).where(ResultRow.circuit_hash == content_hash, ResultRow.dtype == dtype, match)
         out.update({r.bitstring: r for r in s.scalars(q)})
     return out
 
@@ -104,7 +116,11 @@ def _save(sessions, content_hash: str, dtype: str, results, engine: str, plan_ha
         if dialect in ("sqlite", "postgresql"):
             # rows another replica wrote first are equal by construction: keep theirs
             insert = sqlite_insert if dialect == "sqlite" else pg_insert
-            s.execute(insert(ResultRow).values(rows).on_conflict_do_nothing())
+            # a multi-row insert binds one variable per column and row: stay far below SQLite's
+            # limit of 32,766 bound variables (and PostgreSQL's 65,535)
+            # executemany: SQLAlchemy batches the rows into multi-row INSERTs within the driver's
+            # limits on bound variables ("insertmanyvalues")
+            s.execute(insert(ResultRow).on_conflict_do_nothing(), rows)
         else:
             have = cached_results(s, content_hash, [r["bitstring"] for r in rows], dtype)
             s.add_all(ResultRow(**r) for r in rows if r["bitstring"] not in have)

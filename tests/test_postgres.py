@@ -117,3 +117,11 @@ def test_service_keeps_working_after_a_database_restart(postgres_url, tmp_path):
         time.sleep(0.2)
         r = client.post("/v1/amplitudes", json={"circuit": {"qasm": GHZ}, "bitstrings": ["111"]})
         assert r.status_code == 200 and math.isclose(r.json()["results"][0]["probability"], 0.5, abs_tol=1e-15)
+
+
+def test_documented_bitstring_limit_on_postgres(postgres_url, tmp_path):
+    from .test_service import check_bitstring_limit
+
+    s = make_settings(tmp_path, database_url=postgres_url)
+    with TestClient(create_app(s)) as c:
+        check_bitstring_limit(c, s.max_bitstrings)
