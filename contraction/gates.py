@@ -17,6 +17,7 @@ from __future__ import annotations
 import cmath
 import math
 from dataclasses import dataclass
+from fractions import Fraction
 from typing import Callable
 
 import numpy as np
@@ -34,6 +35,11 @@ def u_gate(theta: float, phi: float, lam: float) -> np.ndarray:
     c, s = math.cos(theta / 2), math.sin(theta / 2)
     return _m([[c, -cmath.exp(1j * lam) * s],
                [cmath.exp(1j * phi) * s, cmath.exp(1j * (phi + lam)) * c]])
+
+
+def u3_gate(theta: float, phi: float, lam: float) -> np.ndarray:
+    """``u3`` of both standards: ``e^{-i(φ+λ)/2} U(θ,φ,λ)`` = Rz(φ)Ry(θ)Rz(λ)."""
+    return cmath.exp(-0.5j * (phi + lam)) * u_gate(theta, phi, lam)
 
 
 def phase_gate(lam: float) -> np.ndarray:
@@ -94,17 +100,63 @@ def inverse(matrix: np.ndarray) -> np.ndarray:
     return matrix.conj().T
 
 
+#: exponents up to this size are applied by repeated multiplication (error ~ k·eps)
+_SMALL_POWER = 64
+#: an eigenphase this close to p·π/q (q <= _MAX_DENOMINATOR) is taken to be exactly that
+_SNAP = 1e-12
+_MAX_DENOMINATOR = 64
+#: largest phase error accepted in a power of a gate whose eigenphases are not rational multiples of π
+_POWER_PHASE_TOLERANCE = 1e-9
+_EIGENPHASE_ERROR = 1e-15
+
+
+def _snapped(phase: float) -> Fraction | None:
+    """``phase/π`` as an exact fraction p/q (q <= 64) when it is within 1e-12 of one, else None."""
+    from fractions import Fraction
+
+    x = phase / math.pi
+    f = Fraction(x).limit_denominator(_MAX_DENOMINATOR)
+    return f if abs(float(f) - x) <= _SNAP else None
+
+
 def power(matrix: np.ndarray, exponent: float) -> np.ndarray:
-    """``matrix**exponent`` for a unitary, principal branch of each eigenphase."""
-    if float(exponent).is_integer():
+    """``matrix**exponent`` for a unitary, as OpenQASM 3's ``pow(k) @`` (principal branch of each
+    eigenphase, phases in (-π, π]).
+
+    Small integer exponents are repeated products. Otherwise the matrix is diagonalised (complex
+    Schur form, exact for normal matrices) and each eigenphase φ becomes k·φ: phases within 1e-12 of
+    a rational multiple p/q·π (q <= 64) are taken as exactly that and k·p/q is reduced modulo 2 in
+    exact integer arithmetic, so ``pow(1e308) @ h`` is exactly the identity. Other phases are
+    multiplied in floating point; when the error that carries (k·1e-15) would exceed 1e-9, a
+    :class:`ValueError` is raised instead of returning an inaccurate matrix."""
+    from fractions import Fraction
+
+    exponent = float(exponent)
+    if not math.isfinite(exponent):
+        raise ValueError(f"the exponent {exponent} is not a finite number")
+    if exponent.is_integer() and abs(exponent) <= _SMALL_POWER:
         k = int(exponent)
         base = matrix if k >= 0 else matrix.conj().T
         return np.linalg.matrix_power(base, abs(k))
     from scipy.linalg import schur
 
-    t, z = schur(matrix, output="complex")
-    lam = np.diag(t)
-    return (z * np.exp(1j * exponent * np.angle(lam))[None, :]) @ z.conj().T
+    t, z = schur(np.asarray(matrix, dtype=np.complex128), output="complex")
+    k = Fraction(exponent)          # exact value of the double (an integer for every |x| >= 2^52)
+    phases = []
+    for lam in np.diag(t):
+        phi = float(np.angle(lam))
+        frac = _snapped(phi)
+        if frac is not None:
+            if frac == -1:
+                frac = Fraction(1)          # principal branch: the phase of -1 is +π
+            scaled = frac * k               # exact; reduce modulo 2 (in units of π)
+            phases.append(float(scaled - 2 * math.floor(scaled / 2)) * math.pi)
+            continue
+        if abs(exponent) * _EIGENPHASE_ERROR * max(1.0, abs(phi)) > _POWER_PHASE_TOLERANCE:
+            raise ValueError(f"pow({exponent:g}) of a gate with eigenphase {phi:.17g} (not a rational multiple of "
+                             f"pi): the result's phases would carry errors above {_POWER_PHASE_TOLERANCE:g}")
+        phases.append(math.remainder(phi * exponent, 2 * math.pi))
+    return (z * np.exp(1j * np.array(phases))[None, :]) @ z.conj().T
 
 
 def kron(*ms: np.ndarray) -> np.ndarray:
@@ -167,8 +219,10 @@ _COMMON = [
     _spec("sx", 1, 0, _const(SX)), _spec("sxdg", 1, 0, _const(SXDG)),
     _spec("rx", 1, 1, rx), _spec("ry", 1, 1, ry), _spec("rz", 1, 1, rz),
     _spec("p", 1, 1, phase_gate), _spec("u1", 1, 1, phase_gate), _spec("phase", 1, 1, phase_gate),
-    _spec("u2", 1, 2, lambda phi, lam: u_gate(math.pi / 2, phi, lam)),
-    _spec("u3", 1, 3, u_gate), _spec("u", 1, 3, u_gate),
+    # OpenQASM 3 stdgates.inc: u2(φ,λ) = gphase(-(φ+λ)/2) U(π/2,φ,λ), u3(θ,φ,λ) = gphase(-(φ+λ)/2)
+    # U(θ,φ,λ); in OpenQASM 2 (arXiv:1707.03429) U itself is Rz(φ)Ry(θ)Rz(λ), the same matrix
+    _spec("u2", 1, 2, lambda phi, lam: u3_gate(math.pi / 2, phi, lam)),
+    _spec("u3", 1, 3, u3_gate), _spec("u", 1, 3, u3_gate),
     _spec("cx", 2, 0, _const(CX)), _spec("CX", 2, 0, _const(CX)),
     _spec("cy", 2, 0, _const(CY)), _spec("cz", 2, 0, _const(CZ)), _spec("ch", 2, 0, _const(CH)),
     _spec("swap", 2, 0, _const(SWAP)),

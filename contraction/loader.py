@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from .circuit import Circuit
 from .circuit_json import read_json
-from .qasm_reader import read_qasm
+from .qasm_reader import DEFAULT_MAX_GATES, read_qasm
 
 DEFAULT_MAX_QUBITS = 4096
 
@@ -15,9 +15,11 @@ def detect_format(text: str) -> str:
 
 
 def load_circuit(text: str, source: str = "<circuit>", fmt: str = "auto",
-                 max_qubits: int = DEFAULT_MAX_QUBITS) -> Circuit:
+                 max_qubits: int = DEFAULT_MAX_QUBITS, max_gates: int = DEFAULT_MAX_GATES) -> Circuit:
+    """Read ``text`` as OpenQASM or a JSON document; OpenQASM programs whose expansion would exceed
+    ``max_gates`` gates are refused before anything is expanded."""
     if fmt == "auto":
         fmt = detect_format(text)
     if fmt == "json":
         return read_json(text, source, max_qubits)
-    return read_qasm(text, source, max_qubits)
+    return read_qasm(text, source, max_qubits, max_gates)

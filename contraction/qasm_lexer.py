@@ -20,10 +20,13 @@ _TOKEN_RE = re.compile(
      (?P<ws>[ \t\r\n\f]+)
     |(?P<comment>//[^\n]*|/\*.*?\*/|\#pragma[^\n]*)
     |(?P<opencomment>/\*)
-    |(?P<num>(?:\d[\d_]*\.[\d_]*|\.\d[\d_]*|\d[\d_]*)(?:[eE][+-]?\d+)?(?![A-Za-z_]))
-    |(?P<id>[A-Za-z_\u03c0\u03c4\u2107][A-Za-z0-9_]*|\$\d+)
+    |(?P<duration>(?:\d[\d_]*\.[\d_]*|\.\d[\d_]*|\d[\d_]*)(?:[eE][+-]?\d+)?(?:ns|us|\u00b5s|ms|s|dt)(?!\w))
+    |(?P<num>0[xX][0-9a-fA-F_]+(?!\w)|0[oO][0-7_]+(?!\w)|0[bB][01_]+(?!\w)
+        |(?:\d[\d_]*\.[\d_]*|\.\d[\d_]*|\d[\d_]*)(?:[eE][+-]?\d+)?(?!\w))
+    |(?P<badnum>\d\w*)
+    |(?P<id>[^\W\d]\w*|\$\d+)
     |(?P<str>"[^"\n]*"|'[^'\n]*')
-    |(?P<op>->|\*\*|==|!=|<=|>=|<<|>>|&&|\|\||[-+*/^%(){}\[\];,@:=<>!~&|])
+    |(?P<op>->|\+\+|\*\*|==|!=|<=|>=|<<|>>|&&|\|\||[-+*/^%(){}\[\];,@:=<>!~&|])
     |(?P<bad>.)
     """,
     re.X | re.S,
@@ -75,6 +78,12 @@ def tokenize(src: Source) -> list[Token]:
             continue
         if kind == "bad":
             raise src.error(f"unexpected character {m.group()!r}", m.start())
+        if kind == "badnum":
+            text = m.group()
+            what = ("imaginary literals are not supported (amplitudes take real gate parameters)"
+                    if text.endswith("im") else f"{text!r} is not a number this reader understands (decimal, 0x, "
+                                                "0o or 0b integers, floats, or a duration such as 100ns)")
+            raise src.error(what, m.start())
         if kind == "opencomment":
             raise src.error("unterminated /* comment", m.start())
         append((kind, m.group(), m.start()))
@@ -100,27 +109,66 @@ def _binop(op: str, a: float, b: float) -> float:
     return math.pow(a, b)  # ^ and **
 
 
-def evaluate(node: tuple, env: dict[str, float], src: Source) -> float:
+#: nesting of parentheses, unary signs, powers and function calls in one expression
+MAX_EXPRESSION_DEPTH = 100
+
+
+def _apply_node(node: tuple, args: list[float], src: Source) -> float:
     tag = node[0]
-    if tag == "num":
-        return node[1]
-    if tag == "var":
-        try:
-            return env[node[1]]
-        except KeyError:
-            raise src.error(f"unknown identifier {node[1]!r} in expression", node[2]) from None
     if tag == "neg":
-        return -evaluate(node[1], env, src)
+        return -args[0]
     try:
         if tag == "bin":
-            value = _binop(node[1], evaluate(node[2], env, src), evaluate(node[3], env, src))
+            value = _binop(node[1], args[0], args[1])
         else:
-            value = FUNCTIONS[node[1]](evaluate(node[2], env, src))
+            value = FUNCTIONS[node[1]](args[0])
     except (ValueError, ZeroDivisionError, OverflowError) as exc:
         raise src.error(f"cannot evaluate expression: {exc}", node[-1]) from None
     if isinstance(value, complex) or not math.isfinite(value):
         raise src.error("expression does not give a finite real number", node[-1])
     return float(value)
+
+
+def evaluate(node: tuple, env: dict[str, float], src: Source) -> float:
+    """The value of an expression tree; iterative, so a long chain ``a+1+1+...`` cannot exhaust
+    Python's recursion limit."""
+    # post-order walk with an explicit stack: (node, children done?)
+    stack: list[tuple[tuple, bool]] = [(node, False)]
+    values: list[float] = []
+    while stack:
+        n, done = stack.pop()
+        tag = n[0]
+        if tag == "num":
+            values.append(n[1])
+        elif tag == "var":
+            try:
+                values.append(env[n[1]])
+            except KeyError:
+                raise src.error(f"unknown identifier {n[1]!r} in expression", n[2]) from None
+        elif not done:
+            stack.append((n, True))
+            children = (n[2], n[3]) if tag == "bin" else (n[1],) if tag == "neg" else (n[2],)
+            for c in reversed(children):
+                stack.append((c, False))
+        else:
+            k = 2 if tag == "bin" else 1
+            args = values[-k:]
+            del values[-k:]
+            values.append(_apply_node(n, args, src))
+    return values[0]
+
+
+def number_value(text: str, pos: int, src: Source) -> float:
+    """A numeric literal as a finite double (decimal, or 0x/0o/0b integers); out of range is an error."""
+    clean = text.replace("_", "")
+    low = clean.lower()
+    if low.startswith(("0x", "0o", "0b")):
+        value = float(int(clean, 0))  # may raise OverflowError for > 1.8e308
+    else:
+        value = float(clean)
+    if not math.isfinite(value):
+        raise src.error(f"the number {text} is out of range (larger than a double, 1.8e308)", pos)
+    return value
 
 
 class ExpressionParser:
@@ -161,12 +209,22 @@ class ExpressionParser:
             node = self._fold(("bin", op, node, self._unary(), pos))
         return node
 
+    def _nest(self, pos: int) -> None:
+        self.depth = getattr(self, "depth", 0) + 1
+        if self.depth > MAX_EXPRESSION_DEPTH:
+            raise self.src.error(f"expression nested more than {MAX_EXPRESSION_DEPTH} deep (parentheses, signs, "
+                                 f"powers or function calls)", pos)
+
     def _unary(self) -> tuple:
         tok = self.toks[self.i]
         if tok[0] == "op" and tok[1] in ("-", "+"):
-            self.i += 1
+            # a run of signs is read without recursion: only its parity matters
+            negative = False
+            while self.toks[self.i][0] == "op" and self.toks[self.i][1] in ("-", "+"):
+                negative ^= self.toks[self.i][1] == "-"
+                self.i += 1
             inner = self._unary()
-            if tok[1] == "+":
+            if not negative:
                 return inner
             return ("num", -inner[1]) if inner[0] == "num" else ("neg", inner)
         return self._power()
@@ -176,28 +234,35 @@ class ExpressionParser:
         tok = self.toks[self.i]
         if tok[0] == "op" and tok[1] in ("^", "**"):
             self.i += 1
-            return self._fold(("bin", "^", base, self._unary(), tok[2]))
+            self._nest(tok[2])
+            node = self._fold(("bin", "^", base, self._unary(), tok[2]))
+            self.depth -= 1
+            return node
         return base
 
     def _atom(self) -> tuple:
         kind, text, pos = self.toks[self.i]
         if kind == "num":
             self.i += 1
-            return ("num", float(text.replace("_", "")))
+            return ("num", number_value(text, pos, self.src))
         if kind == "id":
             self.i += 1
             if text in FUNCTIONS and self.toks[self.i][1] == "(":
                 self.i += 1
+                self._nest(pos)
                 arg = self.expression()
                 self.expect(")")
+                self.depth -= 1
                 return self._fold(("call", text, arg, pos))
             if text in CONSTANTS:
                 return ("num", CONSTANTS[text])
             return ("var", text, pos)
         if text == "(" and kind == "op":
             self.i += 1
+            self._nest(pos)
             node = self.expression()
             self.expect(")")
+            self.depth -= 1
             return node
         shown = text if kind != "eof" else "end of file"
         raise self.src.error(f"expected an expression, found {shown!r}", pos)

@@ -1,13 +1,17 @@
-"""Read OpenQASM 2.0 and the unitary core of OpenQASM 3 into a :class:`Circuit`.
+"""Read OpenQASM 2.0 and the unitary part of OpenQASM 3 into a :class:`Circuit`.
 
 Supported: ``OPENQASM``, ``include`` of the built-in ``qelib1.inc``/``stdgates.inc`` (never a file
-read), ``qreg``/``creg``/``qubit``/``bit`` declarations (several registers), register broadcast,
-``gate`` definitions, ``opaque`` declarations, the modifiers ``ctrl``/``negctrl``/``inv``/``pow``,
-``U``, ``CX`` and ``gphase``, ``const`` numeric declarations, ``barrier`` (ignored),
-``measure`` at the end of a qubit's life (ignored) and ``reset`` of a qubit still in |0> (a no-op).
+read), ``qreg``/``creg``/``qubit``/``bit`` declarations (sizes are constant expressions), register
+broadcast, slices, index sets and negative indices, ``let`` aliases, ``gate`` definitions, ``opaque``
+declarations, the modifiers ``ctrl``/``negctrl``/``inv``/``pow``, ``U``, ``CX`` and ``gphase``,
+``const`` numeric declarations, ``for`` loops over constant ranges and sets (unrolled), ``box``,
+``barrier`` and ``delay`` (ignored), ``measure`` at the end of a qubit's life (ignored) and ``reset``
+of a qubit still in |0> (a no-op).
 
-Rejected with a message: classical control, gates after a measurement, a reset of a used qubit,
-loops, subroutines and other constructs with no meaning for a pure amplitude.
+Rejected with a message: classical control, ``while``, gates after a measurement, a reset of a used
+qubit, subroutines and other constructs with no meaning for a pure amplitude. Work is bounded before
+it is done: the expanded gate count is computed from the definitions before expansion, definition
+and expression nesting are limited, and dense gate matrices are limited to ``MAX_DENSE_QUBITS``.
 """
 
 from __future__ import annotations
@@ -23,20 +27,22 @@ from .qasm_lexer import CONSTANTS, ExpressionParser, Source, evaluate, tokenize
 from .statevector import compose
 
 DEFAULT_MAX_QUBITS = 4096
+#: gates a program may expand to (counted from the definitions before anything is expanded)
+DEFAULT_MAX_GATES = 1_000_000
+#: qubits of one dense gate matrix (modified gates, composed definitions): 2^10 x 2^10 entries
+MAX_DENSE_QUBITS = 10
+#: nesting of gate definitions (a definition calling one that calls one ...)
+MAX_DEFINITION_DEPTH = 200
 
 _UNSUPPORTED = {
     "if": "classical control ('if') has no meaning for a pure amplitude",
-    "while": "loops ('while') are not supported",
-    "for": "loops ('for') are not supported",
+    "while": "'while' loops depend on run-time values; only 'for' loops over constant ranges and sets are read",
     "def": "subroutines ('def') are not supported",
     "defcal": "calibration blocks ('defcal') have no meaning for an amplitude",
     "cal": "calibration blocks ('cal') have no meaning for an amplitude",
-    "box": "'box' is not supported",
-    "delay": "'delay' has no meaning for an ideal amplitude",
     "extern": "'extern' is not supported",
     "input": "'input' parameters are not supported; substitute values before submitting",
     "output": "'output' declarations are not supported",
-    "let": "'let' aliases are not supported",
     "switch": "classical control ('switch') has no meaning for a pure amplitude",
     "return": "'return' is not supported", "break": "'break' is not supported",
     "continue": "'continue' is not supported", "end": "'end' is not supported",
@@ -46,10 +52,15 @@ _TYPES = {"int", "uint", "float", "angle", "bool", "complex", "duration", "stret
 
 @dataclass
 class _GateDef:
+    name: str
     params: list[str]
     qargs: list[str]
-    body: list[tuple]  # (mods, name, param exprs, qarg names, offset)
+    # (mods, name, param exprs, qarg names, offset, callee): callee is the _GateDef the name meant
+    # where the definition was read (None: a built-in), so a later definition never changes it
+    body: list[tuple]
     offset: int
+    emitted: int = 0       # gates one call appends to the circuit once unrolled
+    depth: int = 1         # nesting of definitions below and including this one
 
 
 @dataclass
@@ -62,11 +73,15 @@ class _Sink:
 
 
 class QasmReader(ExpressionParser):
-    def __init__(self, text: str, source: str = "<circuit>", max_qubits: int = DEFAULT_MAX_QUBITS):
+    def __init__(self, text: str, source: str = "<circuit>", max_qubits: int = DEFAULT_MAX_QUBITS,
+                 max_gates: int = DEFAULT_MAX_GATES):
         self.src = Source(text, source)
         self.toks = tokenize(self.src)
         self.i = 0
+        self.depth = 0
         self.max_qubits = max_qubits
+        self.max_gates = max_gates
+        self._composed: dict[tuple, np.ndarray] = {}
         self.qregs: dict[str, tuple[int, int]] = {}
         self.cregs: dict[str, int] = {}
         self.num_qubits = 0
@@ -77,6 +92,8 @@ class QasmReader(ExpressionParser):
         self.measured: set[int] = set()
         self.touched: set[int] = set()
         self.sink = _Sink([], top=True)
+        self.aliases: dict[str, list[int]] = {}       # 'let' names -> qubits
+        self.loop_iterations = 0
 
     # ------------------------------------------------------------------ helpers
     def _err(self, message: str, offset: int, cls=ParseError) -> ParseError:
@@ -91,11 +108,14 @@ class QasmReader(ExpressionParser):
         return text, pos
 
     def _int(self, what: str) -> int:
-        kind, text, pos = self.toks[self.i]
-        if kind != "num" or not text.replace("_", "").isdigit():
-            raise self._err(f"expected {what} (a whole number), found {text!r}", pos)
-        self.i += 1
-        return int(text.replace("_", ""))
+        """A whole-number expression of constants (sizes, indices, loop bounds)."""
+        pos = self.toks[self.i][2]
+        value = evaluate(self.expression(), self.consts, self.src)
+        if not float(value).is_integer():
+            raise self._err(f"expected {what} (a whole number), found {value:g}", pos)
+        if abs(value) > 2 ** 53:
+            raise self._err(f"{what} {value:g} is out of range", pos)
+        return int(value)
 
     # ------------------------------------------------------------------ entry point
     def read(self) -> Circuit:
@@ -170,10 +190,25 @@ class QasmReader(ExpressionParser):
                     raise self._err("expected ';'", self.toks[self.i][2])
                 self.i += 1
             self.opaque.add(name)
-        elif word == "barrier":
+        elif word in ("barrier", "delay"):
+            # no effect on an ideal amplitude; OpenQASM 3 allows a duration and no operands
             self.i += 1
-            self._arguments()
+            if word == "delay" or self.toks[self.i][1] == "[":
+                self._duration_argument(word)
+            if self.toks[self.i][1] != ";":
+                self._arguments()
             self.expect(";")
+        elif word == "box":
+            self.i += 1
+            if self.toks[self.i][1] == "[":
+                self._duration_argument(word)
+            self._block()
+        elif word == "let":
+            self.i += 1
+            self._let()
+        elif word == "for":
+            self.i += 1
+            self._for_loop(pos)
         elif word == "measure":
             self.i += 1
             qubits = self._arguments()
@@ -266,23 +301,152 @@ class QasmReader(ExpressionParser):
         return out
 
     def _operand(self) -> list[int]:
+        """One qubit operand: a register, an alias, or either indexed by ``[i]`` (negative from the
+        end), a range ``[a:b]``/``[a:step:b]`` (end included) or a set ``[{i, j}]``."""
         name, pos = self._ident("a qubit operand")
         if name.startswith("$"):
             raise self._err("physical qubits ('$n') are not supported; declare a register", pos,
                             UnsupportedError)
-        if name not in self.qregs:
-            if name in self.cregs:
-                raise self._err(f"{name!r} is a classical register, not qubits", pos)
+        if name in self.aliases:
+            qubits = self.aliases[name]
+        elif name in self.qregs:
+            offset, size = self.qregs[name]
+            qubits = list(range(offset, offset + size))
+        elif name in self.cregs:
+            raise self._err(f"{name!r} is a classical register, not qubits", pos)
+        else:
             raise self._err(f"unknown quantum register {name!r}", pos)
-        offset, size = self.qregs[name]
-        if self.accept("["):
-            kind, text, ipos = self.toks[self.i]
-            idx = self._int("a qubit index")
-            if idx >= size:
-                raise self._err(f"qubit index {idx} is out of range for {name}[{size}]", ipos)
+        while self.accept("["):
+            qubits = self._select(name, qubits)
             self.expect("]")
-            return [offset + idx]
-        return list(range(offset, offset + size))
+        return qubits
+
+    def _select(self, name: str, qubits: list[int]) -> list[int]:
+        size = len(qubits)
+
+        def index() -> int:
+            ipos = self.toks[self.i][2]
+            i = self._int("a qubit index")
+            j = i + size if i < 0 else i
+            if not 0 <= j < size:
+                raise self._err(f"qubit index {i} is out of range for {name}[{size}]", ipos)
+            return j
+
+        if self.accept("{"):
+            picked = [index()]
+            while self.accept(","):
+                picked.append(index())
+            self.expect("}")
+        else:
+            first = index()
+            if not self.accept(":"):
+                return [qubits[first]]
+            parts = [first, index()]
+            if self.accept(":"):
+                parts.append(index())
+            start, step, stop = (parts[0], 1, parts[1]) if len(parts) == 2 else parts
+            if step == 0:
+                raise self._err("a range step of 0", self.toks[self.i][2])
+            picked = list(range(start, stop + (1 if step > 0 else -1), step))   # the end is included
+        if len(set(picked)) != len(picked):
+            raise self._err(f"index set repeats a qubit of {name}", self.toks[self.i][2])
+        return [qubits[j] for j in picked]
+
+    def _duration_argument(self, word: str) -> None:
+        self.expect("[")
+        kind, text, pos = self.toks[self.i]
+        if kind not in ("duration", "id", "num"):
+            raise self._err(f"'{word}' expects a duration in brackets, found {text!r}", pos)
+        self.i += 1
+        self.expect("]")
+
+    def _block(self) -> None:
+        """``{ statements }`` read in the current scope."""
+        open_pos = self.toks[self.i][2]
+        self.expect("{")
+        while not self.accept("}"):
+            if self.toks[self.i][0] == "eof":
+                raise self._err("missing '}' for this block", open_pos)
+            self._statement(False)
+
+    def _let(self) -> None:
+        name, npos = self._ident("an alias name")
+        if name in self.qregs or name in self.cregs or name in self.consts or name in self.aliases:
+            raise self._err(f"{name!r} is already declared", npos)
+        self.expect("=")
+        qubits = self._operand()
+        while self.accept("++"):
+            qubits = qubits + self._operand()
+        if len(set(qubits)) != len(qubits):
+            raise self._err(f"alias {name!r} names a qubit twice", npos)
+        self.expect(";")
+        self.aliases[name] = qubits
+
+    def _for_loop(self, pos: int) -> None:
+        """``for [type] i in [a:b] / [a:step:b] / {v, ...} { body }``: the body is read once per
+        value with ``i`` bound as a constant (the loop is unrolled)."""
+        if self.toks[min(self.i + 1, len(self.toks) - 1)][1] != "in":   # an optional type before the variable
+            ty, tpos = self._ident("a loop variable type")
+            if ty not in ("int", "uint", "float", "angle"):
+                raise self._err(f"loop variables of type {ty!r} are not supported", tpos, UnsupportedError)
+            if self.accept("["):
+                self._int("a type width")
+                self.expect("]")
+        var, vpos = self._ident("a loop variable")
+        self.expect("in")
+        if self.accept("{"):
+            values = [evaluate(self.expression(), self.consts, self.src)]
+            while self.accept(","):
+                values.append(evaluate(self.expression(), self.consts, self.src))
+            self.expect("}")
+        else:
+            self.expect("[")
+            parts = [self._int("a range bound")]
+            while self.accept(":"):
+                parts.append(self._int("a range bound"))
+            self.expect("]")
+            if len(parts) not in (2, 3):
+                raise self._err("a loop range is [start:stop] or [start:step:stop]", vpos)
+            start, step, stop = (parts[0], 1, parts[1]) if len(parts) == 2 else parts
+            if step == 0:
+                raise self._err("a loop range with step 0", vpos)
+            values = range(start, stop + (1 if step > 0 else -1), step)
+        self._count_iterations(len(values), pos)
+        if self.toks[self.i][1] != "{":
+            raise self._err("a loop body in braces is expected", self.toks[self.i][2])
+        body = self.i
+        saved = self.consts.get(var)
+        shadow = var in self.consts
+        end = None
+        for v in values:
+            self.consts[var] = v
+            self.i = body
+            self._block()
+            end = self.i
+        if end is None:                                  # no iteration: skip the body unread
+            self.i = self._matching_brace(body)
+        if shadow:
+            self.consts[var] = saved
+        else:
+            self.consts.pop(var, None)
+
+    def _count_iterations(self, count: int, pos: int) -> None:
+        self.loop_iterations += count
+        if self.loop_iterations > self.max_gates:
+            raise self._err(f"loops run {self.loop_iterations:,} iterations, over the limit of {self.max_gates:,}",
+                            pos)
+
+    def _matching_brace(self, at: int) -> int:
+        depth = 0
+        for j in range(at, len(self.toks)):
+            t = self.toks[j]
+            if t[0] == "op" and t[1] == "{":
+                depth += 1
+            elif t[0] == "op" and t[1] == "}":
+                depth -= 1
+                if depth == 0:
+                    return j + 1
+        raise self._err("missing '}' for this block", self.toks[at][2])
 
     # ------------------------------------------------------------------ gate definitions
     def _gate_definition(self) -> None:
@@ -323,8 +487,20 @@ class QasmReader(ExpressionParser):
                 if a not in qargs:
                     raise self._err(f"gate {name!r}: {a!r} is not one of its qubit arguments", gpos)
             self._check_arity(gname, len(exprs), len(args), mods, gpos, local=set(params))
-            body.append((mods, gname, exprs, args, gpos))
-        self.defs[name] = _GateDef(params, qargs, body, npos)
+            body.append((mods, gname, exprs, args, gpos, self.defs.get(gname)))
+        d = _GateDef(name, params, qargs, body, npos)
+        expanded, depth = 0, 1
+        for _m, _n, _e, _a, bpos, callee in body:
+            if callee is not None:
+                depth = max(depth, callee.depth + 1)
+                expanded += 1 if _m else callee.emitted
+            else:
+                expanded += 1
+        if depth > MAX_DEFINITION_DEPTH:
+            raise self._err(f"gate {name!r}: definitions nested {depth} deep exceed the limit of "
+                            f"{MAX_DEFINITION_DEPTH}", npos)
+        d.depth, d.emitted = depth, expanded
+        self.defs[name] = d
         self.available.discard(name)  # a user definition shadows a library gate of the same name
 
     # ------------------------------------------------------------------ gate calls
@@ -387,14 +563,21 @@ class QasmReader(ExpressionParser):
             if word in ("ctrl", "negctrl"):
                 if arg is None:
                     extra += 1
-                elif arg[0] == "num" and float(arg[1]).is_integer() and arg[1] >= 1:
+                elif arg[0] == "num" and float(arg[1]).is_integer() and 1 <= arg[1] <= MAX_DENSE_QUBITS:
                     extra += int(arg[1])
+                elif arg[0] == "num" and float(arg[1]).is_integer() and arg[1] > MAX_DENSE_QUBITS:
+                    raise self._err(f"'{word}({arg[1]:.0f})': at most {MAX_DENSE_QUBITS} qubits per gate matrix",
+                                    mpos, UnsupportedError)
                 else:
                     raise self._err(f"'{word}' needs a positive whole number of controls", mpos)
         if nparams != want_p:
             raise self._err(f"gate {name!r} takes {want_p} parameter(s), got {nparams}", pos)
         if nqubits != want_q + extra:
             raise self._err(f"gate {name!r} acts on {want_q + extra} qubit(s), got {nqubits}", pos)
+        if mods and want_q + extra > MAX_DENSE_QUBITS:
+            raise self._err(f"a modified gate on {want_q + extra} qubits is over the limit of {MAX_DENSE_QUBITS} "
+                            f"qubits for one gate matrix (2^{MAX_DENSE_QUBITS} x 2^{MAX_DENSE_QUBITS} entries)", pos,
+                            UnsupportedError)
 
     def _gate_call(self) -> None:
         mods, name, pos, exprs = self._call_head()
@@ -407,6 +590,11 @@ class QasmReader(ExpressionParser):
         if len(sizes) > 1:
             raise self._err(f"registers of different sizes {sorted(sizes)} in one broadcast", pos)
         reps = sizes.pop() if sizes else 1
+        d = self.defs.get(name)
+        adds = reps * (d.emitted if d is not None and not mods else 1)
+        if len(self.sink.gates) + adds > self.max_gates:
+            raise self._err(f"this statement expands to {adds:,} gates; with the {len(self.sink.gates):,} before it "
+                            f"the program exceeds the limit of {self.max_gates:,} gates", pos)
         for r in range(reps):
             qubits = tuple(g[r] if len(g) > 1 else g[0] for g in groups)
             if len(set(qubits)) != len(qubits):
@@ -416,16 +604,20 @@ class QasmReader(ExpressionParser):
                     raise self._err(f"gate {name!r} acts on a qubit after it was measured; amplitudes need "
                                     f"measurements at the end", pos, UnsupportedError)
             self.touched.update(qubits)
-            self._apply(name, params, qubits, mods, pos, self.sink)
+            self._apply(name, params, qubits, mods, pos, self.sink, self.defs.get(name))
 
-    def _apply(self, name, params, qubits, mods, pos, sink: _Sink) -> None:
+    def _apply(self, name, params, qubits, mods, pos, sink: _Sink, d: _GateDef | None) -> None:
+        """Append gate ``name`` (the user definition ``d``, or a built-in when None) to ``sink``."""
         if mods:
-            m = self._matrix(name, params, pos)
+            m = self._matrix(name, params, pos, d)
             for word, arg, mpos in reversed(mods):
                 if word == "inv":
                     m = G.inverse(m)
                 elif word == "pow":
-                    m = G.power(m, arg)
+                    try:
+                        m = G.power(m, arg)
+                    except ValueError as exc:
+                        raise self._err(str(exc), mpos, UnsupportedError) from None
                 else:
                     n = 1 if arg is None else int(arg)
                     m = G.controlled(m, n, (2 ** n - 1) if word == "ctrl" else 0)
@@ -434,34 +626,47 @@ class QasmReader(ExpressionParser):
             else:
                 sink.gates.append(Gate(qubits, m, name))
             return
-        d = self.defs.get(name)
         if d is not None:
             env = dict(self.consts)
             env.update(zip(d.params, params))
-            for bmods, bname, bexprs, bargs, bpos in d.body:
+            for bmods, bname, bexprs, bargs, bpos, callee in d.body:
                 bq = tuple(qubits[d.qargs.index(a)] for a in bargs)
                 bp = [evaluate(e, env, self.src) for e in bexprs]
                 bm = [(w, None if a is None else evaluate(a, env, self.src), p) for w, a, p in bmods]
-                self._apply(bname, bp, bq, bm, bpos, sink)
+                self._apply(bname, bp, bq, bm, bpos, sink, callee)
             return
         if name == "gphase":
             sink.phase += params[0]
             return
-        sink.gates.append(Gate(qubits, self._matrix(name, params, pos), name, name, tuple(params)))
+        sink.gates.append(Gate(qubits, self._matrix(name, params, pos, None), name, name, tuple(params)))
 
-    def _matrix(self, name, params, pos) -> np.ndarray:
-        """The matrix of a named gate (library or user-defined) on its own qubits."""
+    def _matrix(self, name, params, pos, d: _GateDef | None) -> np.ndarray:
+        """The matrix of a gate (the user definition ``d``, or the built-in ``name``) on its own qubits."""
+        if d is not None:
+            key = (id(d), tuple(params))
+            if key not in self._composed:
+                if len(d.qargs) > MAX_DENSE_QUBITS:
+                    raise self._err(f"gate {name!r} acts on {len(d.qargs)} qubits: over the limit of "
+                                    f"{MAX_DENSE_QUBITS} qubits for one gate matrix", pos, UnsupportedError)
+                if d.emitted > self.max_gates:
+                    raise self._err(f"gate {name!r} expands to {d.emitted:,} gates, over the limit of "
+                                    f"{self.max_gates:,}", pos)
+                local = _Sink([])
+                env = dict(self.consts)
+                env.update(zip(d.params, params))
+                for bmods, bname, bexprs, bargs, bpos, callee in d.body:
+                    bq = tuple(d.qargs.index(a) for a in bargs)
+                    bp = [evaluate(e, env, self.src) for e in bexprs]
+                    bm = [(w, None if a is None else evaluate(a, env, self.src), p) for w, a, p in bmods]
+                    self._apply(bname, bp, bq, bm, bpos, local, callee)
+                self._composed[key] = compose(len(d.qargs), local.gates, local.phase)
+            return self._composed[key]
         if name == "U":
             return G.u_gate(*params)
         if name == "CX":
             return G.CX
         if name == "gphase":
             return np.array([[np.exp(1j * params[0])]])
-        if name in self.defs:
-            d = self.defs[name]
-            local = _Sink([])
-            self._apply(name, params, tuple(range(len(d.qargs))), [], pos, local)
-            return compose(len(d.qargs), local.gates, local.phase)
         if name in G.BODY_DEFINED:
             return _body_matrix(name)
         return G.LIBRARY[name].factory(*params)
@@ -483,6 +688,10 @@ def _body_matrix(name: str) -> np.ndarray:
     return _BODY_CACHE[name]
 
 
-def read_qasm(text: str, source: str = "<circuit>", max_qubits: int = DEFAULT_MAX_QUBITS) -> Circuit:
-    """Parse OpenQASM 2.0 or 3 text into a :class:`Circuit` (raises :class:`ParseError`)."""
-    return QasmReader(text, source, max_qubits).read()
+def read_qasm(text: str, source: str = "<circuit>", max_qubits: int = DEFAULT_MAX_QUBITS,
+              max_gates: int = DEFAULT_MAX_GATES) -> Circuit:
+    """Parse OpenQASM 2.0 or 3 text into a :class:`Circuit` (raises :class:`ParseError`).
+
+    ``max_gates`` bounds the expanded gate count; it is checked from the gate definitions before
+    anything is expanded."""
+    return QasmReader(text, source, max_qubits, max_gates).read()

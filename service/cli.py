@@ -39,9 +39,13 @@ def _read_text(path: str) -> str:
 
 
 def load_circuit_file(path: str):
+    """Read a circuit file within the configured limits (VERAMP_MAX_QUBITS, VERAMP_MAX_GATES)."""
     from contraction.loader import load_circuit
 
-    return load_circuit(_read_text(path), source=path)
+    from .settings import get_settings
+
+    s = get_settings()
+    return load_circuit(_read_text(path), source=path, max_qubits=s.max_qubits, max_gates=s.max_gates)
 
 
 def _bitstrings(args) -> list[str]:

@@ -51,7 +51,7 @@ def parse_circuit(state: AppState, body: CircuitIn) -> Circuit:
     if (body.qasm is None) == (body.document is None):
         raise LimitExceeded("circuit", "give exactly one of 'qasm' or 'document'", 422)
     if body.qasm is not None:
-        circuit = load_circuit(body.qasm, "<request>", "qasm", max_qubits=s.max_qubits)
+        circuit = load_circuit(body.qasm, "<request>", "qasm", max_qubits=s.max_qubits, max_gates=s.max_gates)
     else:
         from contraction.circuit_json import from_document
 

@@ -48,7 +48,21 @@ QASM_CASES = [
     ("gate-after-measure", H2 + "creg c[3];\nmeasure q[0] -> c[0];\nh q[0];", UnsupportedError,
      "after it was measured", 6),
     ("reset-used-qubit", H2 + "h q[0];\nreset q[0];", UnsupportedError, "no longer in |0>", 5),
-    ("for-loop", H3 + "for int i in [0:2] { h q[i]; }", UnsupportedError, "loops", 4),
+    ("while-loop", H3 + "bit c;\nwhile (c) { h q[0]; }", UnsupportedError, "'while' loops", 5),
+    # hostile programs: each is refused before any expansion or deep recursion (common practice:
+    # bounded work per request; the limits are ours and named in the message)
+    ("expansion-2^40", H2 + "".join(f"gate g{k} a {{ {f'g{k - 1} a; ' * 16 if k else 'h a;'} }}\n" for k in range(11))
+     + "g10 q[0];", ParseError, "exceeds the limit of", 15),
+    ("deep-parentheses", H2 + "rx(" + "(" * 1000 + "1" + ")" * 1000 + ") q[0];", ParseError, "nested more than", 4),
+    ("huge-literal", H2 + "rx(1e400) q[0];", ParseError, "out of range", 4),
+    ("huge-product", H2 + "rx(1e300*1e300) q[0];", ParseError, "finite", 4),
+    ("ctrl-20", H3 + "ctrl(20) @ x q[0], q[1];", UnsupportedError, "at most 10 qubits", 4),
+    ("pow-huge-irrational", H3 + "pow(1e12) @ rx(0.3) q[0];", UnsupportedError, "not a rational multiple", 4),
+    ("pow-infinite", H3 + "pow(1e400) @ h q[0];", ParseError, "out of range", 4),
+    ("imaginary-literal", H3 + "rx(1im) q[0];", ParseError, "imaginary literals", 4),
+    ("loop-too-long", H3 + "for int i in [0:100000000000] { h q[0]; }", ParseError, "iterations", 4),
+    ("deep-definitions", H2 + "gate d0 a { h a; }\n" + "".join(f"gate d{k} a {{ d{k - 1} a; }}\n"
+                                                               for k in range(1, 260)), ParseError, "nested", 204),
     ("classical-variable", H3 + "float x = 1.0;", UnsupportedError, "classical variables", 4),
     ("opaque-gate-use", H2 + "opaque magic a;\nmagic q[0];", UnsupportedError, "opaque", 5),
     ("broadcast-mismatch", 'OPENQASM 2.0;\ninclude "qelib1.inc";\nqreg a[2];\nqreg b[3];\ncx a,b;',
