@@ -209,7 +209,7 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
                       sv, [sv])
     if engine == "auto" and sv_fits:
         options.append(sv)
-        planning = planner.budget_seconds * (1 + len(batch_candidates(count))) if planner is not None else 0.0
+        planning = planner.budget_seconds if planner is not None else 0.0
         if sv.seconds <= planning:
             return Choice("statevector", f"state vector predicted {sv.seconds:.3g} s, less than planning the "
                                          f"network engines would take (~{planning:.3g} s)", sv, [sv])
@@ -217,9 +217,11 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
     planned: dict[int, Option] = {}
     sizes = ([1] if engine in ("auto", "single") or count < 2 else []) + \
         (batch_candidates(count) if engine in ("auto", "batch") else [])
+    # the planning budget is for the whole request: shared by every contraction size planned
+    per_size = None if planner is None else replace(planner, budget_seconds=planner.budget_seconds / max(1, len(sizes)))
     for b in sizes:
         try:
-            planned[b] = network_option(circuit, b, dtype, rate, store, planner, memory_bytes, open_qubits)
+            planned[b] = network_option(circuit, b, dtype, rate, store, per_size, memory_bytes, open_qubits)
         except MemoryLimitError as exc:
             errors.append(f"{b} per contraction: {exc}")
         except NoStoredPlan:

@@ -1,0 +1,155 @@
+"""53-qubit scale: planning under a memory cap against quimb + cotengra called directly, one
+amplitude with the stored plan, and the time bound of ``estimate`` on large textbook circuits.
+
+Prints one JSON line per part; every ratio is against a baseline measured in this same run.
+
+    python tests/benchmarks/bench_scale53.py [--parts pae] [--budget 300] [--cycles 12]
+        [--cap-log2 30] [--estimate-budget 60]
+
+Part p: veramp's ``find_plan`` (structure-only simplification, slicing inside every trial, whole
+budget, two processes) and the baseline — quimb's ``full_simplify`` on the same network's arrays,
+then cotengra's ``HyperOptimizer`` with slicing to the same target inside each trial, same budget,
+same two processes — side by side. Both slice the largest intermediate to a quarter of the cap (the
+peak of a pairwise contraction holds two inputs and the output).
+Part a: one amplitude in complex64 with the stored plan, wall time and peak RSS of this process
+and its workers (measured, not estimated), against the plan's prediction.
+Part e: ``estimate`` with a 60 s budget on a 32-qubit quantum-volume circuit of depth 32, a
+63-qubit QFT and a 45-qubit ripple-carry adder (generated from their published definitions).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import resource
+import time
+
+import numpy as np
+
+
+def emit(doc: dict) -> None:
+    print(json.dumps(doc), flush=True)
+
+
+def w53(cycles: int):
+    from contraction.random_circuits import grid_architecture, random_instance
+
+    return random_instance(grid_architecture(6, 9, cycles, removed=frozenset({53})), 1, gates="discrete")
+
+
+def part_plan(cycles: int, budget: float, cap_log2: int) -> tuple[dict, object]:
+    import cotengra as ctg
+    import quimb.tensor as qtn
+
+    from contraction.network import build_structure, tensor_arrays
+    from contraction.planner import PlannerOptions, find_plan
+
+    circ = w53(cycles)
+    s = build_structure(circ)
+    target = 2 ** cap_log2 / 4
+    t = time.perf_counter()
+    plan = find_plan(s, PlannerOptions(budget_seconds=budget, max_elements=target, parallel=2, minimize="flops"))
+    ours_s = time.perf_counter() - t
+    # baseline: quimb simplification + cotengra's hyper search, called directly
+    t = time.perf_counter()
+    arrays = tensor_arrays(s, circ, "0" * circ.num_qubits, dtype="complex64")
+    tn = qtn.TensorNetwork([qtn.Tensor(a, inds=ix) for a, ix in zip(arrays, s.inputs)])
+    tn.full_simplify_(output_inds=s.output)
+    opt = ctg.HyperOptimizer(methods=["greedy", "kahypar"], minimize="flops", max_repeats=10 ** 6,
+                             max_time=budget - (time.perf_counter() - t), parallel=2, progbar=False,
+                             slicing_opts=dict(target_size=int(target)), on_trial_error="ignore")
+    tree = opt.search([x.inds for x in tn], s.output, {ix: d for x in tn for ix, d in zip(x.inds, x.shape)})
+    base_s = time.perf_counter() - t
+    unsliced = tree.copy()
+    unsliced.unslice_all_()
+    doc = {"part": "p_plan", "qubits": circ.num_qubits, "cycles": cycles, "budget_s": budget,
+           "cap_elements_log2": cap_log2, "target_intermediate_log2": math.log2(target),
+           "veramp": {"seconds": round(ours_s, 1), "log10_madds": round(math.log10(plan.madds), 3),
+                      "log10_madds_unsliced": round(math.log10(plan.madds_unsliced), 3),
+                      "slicing_overhead": round(plan.slicing_overhead, 3), "slices": plan.nslices,
+                      "width_log2": plan.width, "trials": plan.options.get("trials"),
+                      "tensors_after_simplify": plan.options.get("tensors_after_simplify")},
+           "baseline_quimb_cotengra": {"seconds": round(base_s, 1),
+                                       "log10_madds": round(math.log10(tree.contraction_cost()), 3),
+                                       "log10_madds_unsliced": round(math.log10(unsliced.contraction_cost()), 3),
+                                       "slices": tree.nslices, "width_log2": tree.contraction_width(),
+                                       "trials": len(opt.scores), "tensors_after_simplify": tn.num_tensors},
+           "goal": {"log10_madds_max": 12.7, "slicing_overhead_max": 1.5, "budget_overrun_max": 1.1}}
+    doc["ratio_veramp_over_baseline_madds"] = round(plan.madds / tree.contraction_cost(), 3)
+    doc["budget_overrun"] = round(ours_s / budget, 3)
+    return doc, plan
+
+
+def part_amplitude(cycles: int, plan, cap_log2: int) -> dict:
+    from contraction.amplitudes import amplitudes
+    from contraction.calibration import matmul_rate
+    from contraction.plan_store import MemoryPlanStore
+
+    circ = w53(cycles)
+    rate = matmul_rate(dtype=np.complex64)
+    predicted = plan.madds / rate
+    out = {"part": "a_amplitude", "madds": plan.madds, "matmul_madds_per_s": rate,
+           "seconds_at_matmul_rate": round(predicted, 1)}
+    if predicted > 1800:
+        out["skipped"] = "over 30 minutes even at the matrix-multiply rate"
+        return out
+    store = MemoryPlanStore()
+    store.put(plan)
+    t = time.perf_counter()
+    run = amplitudes(circ, ["0" * circ.num_qubits], engine="single", dtype="complex64", plan_store=store,
+                     planner=None, memory_bytes=2 ** cap_log2 * 8, workers=2)
+    dt = time.perf_counter() - t
+    rss = max(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss,
+              resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss) * 1024
+    out.update(seconds=round(dt, 1), peak_rss_bytes=rss, cap_bytes=2 ** cap_log2 * 8,
+               amplitude=[run.results[0].amplitude.real, run.results[0].amplitude.imag],
+               madds_per_s=plan.madds / dt, fraction_of_matmul=round(plan.madds / dt / rate, 3),
+               goal={"seconds": 600, "peak_rss_bytes": 8 * 2 ** 30})
+    return out
+
+
+def part_estimate(budget: float) -> dict:
+    from contraction.calibration import measure
+    from contraction.estimate import estimate
+    from contraction.errors import MemoryLimitError
+    from contraction.planner import PlannerOptions
+    from contraction.textbook_circuits import qft, quantum_volume, ripple_carry_adder
+
+    rate = measure()
+    rows = []
+    for name, circ in [("quantum_volume_32x32", quantum_volume(32, 32, seed=1)), ("qft_63", qft(63)),
+                       ("ripple_carry_adder_45", ripple_carry_adder(22))]:
+        t = time.perf_counter()
+        try:
+            est = estimate(circ, 1, engine="single", rate=rate, planner=PlannerOptions(budget_seconds=budget, parallel=2))
+            row = {"madds": est.madds, "predicted_s": est.predicted_seconds, "slices": est.slices}
+        except MemoryLimitError as exc:
+            row = {"not_feasible": str(exc)}
+        row.update(circuit=name, qubits=circ.num_qubits, gates=len(circ.gates),
+                   seconds=round(time.perf_counter() - t, 1), budget_s=budget)
+        row["within_budget_plus_10pct"] = row["seconds"] <= 1.1 * budget
+        rows.append(row)
+    return {"part": "e_estimate_bound", "cases": rows}
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--parts", default="pae")
+    ap.add_argument("--budget", type=float, default=300.0)
+    ap.add_argument("--cycles", type=int, default=12)
+    ap.add_argument("--cap-log2", type=int, default=30)
+    ap.add_argument("--estimate-budget", type=float, default=60.0)
+    args = ap.parse_args()
+    plan = None
+    if "p" in args.parts or "a" in args.parts:
+        doc, plan = part_plan(args.cycles, args.budget, args.cap_log2)
+        emit(doc)
+    if "a" in args.parts:
+        emit(part_amplitude(args.cycles, plan, args.cap_log2))
+    if "e" in args.parts:
+        emit(part_estimate(args.estimate_budget))
+
+
+if __name__ == "__main__":
+    main()
