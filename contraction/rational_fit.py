@@ -1,26 +1,31 @@
-"""Recovering p(theta) along a Cayley path from samples.
+"""Recovering p(theta) along a Cayley path from samples, with error bounds that hold.
 
-p(theta) is rational in theta with a known denominator (:meth:`CayleyPath.denominator`), so
-q(theta) = p(theta) * prod_{k,j}(1 + theta^2 lambda_kj^2) is a real polynomial of degree at most
-2 sum_k d_k. We recover q from samples:
+p(theta) = N(theta) / D(theta) where D(theta) = prod_{k,j}(1 + theta^2 lambda_kj^2) is known exactly
+(:meth:`CayleyPath.denominator`) and N is a real polynomial of degree at most 2 sum_k d_k. D spans
+tens of orders of magnitude once some lambda are large (eigenphases near pi), which double precision
+cannot hold, so everything here runs in ball arithmetic (Arb, through python-flint): every number
+carries a guaranteed enclosure, and the working precision is raised until the arithmetic error is
+negligible next to the reported bound — the precision follows the measured conditioning.
 
-* least squares in the Chebyshev basis on the sample interval (well conditioned for interpolation);
-* Berlekamp–Welch for up to t corrupted samples: find E (degree t, leading coefficient 1) and N
-  (degree d + t) with N(theta_i) = q_i E(theta_i) at every node — a linear system, solvable when
-  K >= d + 2t + 1 — then q = N / E; samples where q disagrees are the corrupted ones, and q is
-  refitted without them;
-* an honest error estimate at any theta: a least-squares fit is linear in the samples,
-  q(theta) = sum_i w_i(theta) q_i, so a sample error of size delta moves the value by at most
-  sum_i |w_i(theta)| * delta (the Lebesgue function of the fit). We take delta from the fit's
-  residuals and the working precision; far outside the sample interval sum |w_i| explodes, and the
-  estimate says so.
-
-Extended precision (mpmath) is available for small cases: the samples are computed with an mpmath
-state vector and the fit solved in mpmath.
+* Fit: weighted least squares of p itself, in the basis T_j(u(theta)) / D(theta) (Chebyshev
+  polynomials T_j on the sample interval, Trefethen, *Approximation Theory and Approximation
+  Practice*, SIAM 2013, ch. 3-4), so residuals are in units of p, where the samples' errors live.
+* Error bound: the fit is linear in the samples, p~(theta) = sum_i w_i(theta) p_i, so sample errors
+  |delta_i| move the value by at most sum_i |w_i(theta)| |delta_i| (the weighted Lebesgue function,
+  Trefethen ch. 15). The sample error is bounded from the working precision of the samples (double:
+  a rounding bound per gate) or given as a relative noise level. Where the bound exceeds
+  ``max_relative_error`` of the value, no value is returned and the reason is.
+* Corrupted samples: the Berlekamp–Welch decoder (L. R. Welch & E. R. Berlekamp, US patent
+  4,633,470 (1986), from memory; any coding-theory text on Reed–Solomon decoding): an error locator
+  E of degree t and N of degree d + t with N(theta_i)/D(theta_i) = p_i E(theta_i) at every node —
+  linear, solvable when K >= d + 2t + 1; E vanishes at the corrupted nodes, which are then dropped and
+  the fit repeated. Samples whose residual exceeds their bound are reported as corrupted.
 """
 
 from __future__ import annotations
 
+import math
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from typing import Sequence
 
@@ -29,157 +34,265 @@ import numpy as np
 from .errors import VerampError
 
 EPS = np.finfo(float).eps
+#: precisions tried, in bits (53 = double); the first whose arithmetic error is negligible wins
+PRECISIONS = (128, 256, 512, 1024, 2048, 4096, 8192)
+#: size limits of one recovery (its cost grows as nodes x degree^2 at several hundred bits)
+MAX_DEGREE = 600
+MAX_NODES = 1000
+#: arithmetic error allowed, as a share of the reported error bound
+ARITHMETIC_SHARE = 1e-6
 
 
-def _to_unit(x, domain: tuple[float, float]):
-    a, b = domain
-    return (2 * np.asarray(x, dtype=float) - (a + b)) / (b - a)
+@contextmanager
+def _precision(bits: int):
+    from flint import ctx
+
+    old = ctx.prec
+    ctx.prec = bits
+    try:
+        yield
+    finally:
+        ctx.prec = old
 
 
-def chebyshev_basis(x, degree: int, domain: tuple[float, float]) -> np.ndarray:
-    return np.polynomial.chebyshev.chebvander(_to_unit(x, domain), degree)
+def double_sample_error(p: np.ndarray, gate_dims: int) -> np.ndarray:
+    """A bound on the error of probabilities computed in double precision: the amplitude carries at
+    most 8·eps per unit of gate dimension applied (a generous version of the standard rounding bound
+    for matrix-vector products, Higham, *Accuracy and Stability of Numerical Algorithms*, §3.5), and
+    |delta p| <= 2 sqrt(p) delta_A + delta_A^2."""
+    da = 8.0 * EPS * max(1, gate_dims)
+    return 2.0 * np.sqrt(np.abs(p)) * da + da * da
 
 
 @dataclass
-class PolyFit:
-    """A polynomial as Chebyshev coefficients on ``domain``, with the data it was fitted to."""
+class Fit:
+    """A weighted least-squares fit of p = N / D at one precision (arb balls throughout)."""
 
-    coef: np.ndarray
-    domain: tuple[float, float]
     nodes: np.ndarray
-    scale: float                      # weighted samples were divided by this before fitting
-    residual: float                   # max weight * |fit - sample| at the nodes
-    noise: float                      # error of a weighted sample assumed for the estimate
-    weights: np.ndarray | None = None
+    domain: tuple[float, float]
+    degree: int
+    lam2: np.ndarray
+    bits: int
+    coef: object = None                 # arb_mat (degree+1) x 1
+    gram_inv_bt: object = None          # arb_mat (degree+1) x K: maps samples to coefficients
 
-    @property
-    def degree(self) -> int:
-        return len(self.coef) - 1
+    def row(self, theta: float):
+        """[T_j(u(theta)) / D(theta)] for j = 0..degree, as an arb_mat 1 x (degree+1)."""
+        from flint import arb, arb_mat
 
-    def __call__(self, x) -> np.ndarray:
-        return self.scale * np.polynomial.chebyshev.chebval(_to_unit(x, self.domain), self.coef)
+        a, b = self.domain
+        u = (2 * arb(theta) - (arb(a) + arb(b))) / (arb(b) - arb(a))
+        den = arb(1)
+        t2 = arb(theta) * arb(theta)
+        for l2 in self.lam2:
+            den *= 1 + t2 * arb(float(l2))
+        ts = [arb(1), u]
+        while len(ts) < self.degree + 1:
+            ts.append(2 * u * ts[-1] - ts[-2])
+        return arb_mat([[ts[j] / den for j in range(self.degree + 1)]])
 
-    def lebesgue(self, x) -> np.ndarray:
-        """sum_i |w_i(x)|: how much a unit error in every weighted sample can move the value at x."""
-        a = chebyshev_basis(self.nodes, self.degree, self.domain)
-        if self.weights is not None:
-            a = a * self.weights[:, None]
-        w = chebyshev_basis(np.atleast_1d(x), self.degree, self.domain) @ np.linalg.pinv(a)
-        return np.abs(w).sum(axis=1)
+    def weights(self, theta: float):
+        """w(theta) with p~(theta) = sum_i w_i p_i (arb_mat 1 x K)."""
+        return self.row(theta) * self.gram_inv_bt
 
-    def error_bound(self, x) -> np.ndarray:
-        return self.lebesgue(x) * self.noise
-
-
-def fit_polynomial(x: Sequence[float], y: Sequence[float], degree: int,
-                   domain: tuple[float, float] | None = None, noise: float | None = None,
-                   weights: Sequence[float] | None = None) -> PolyFit:
-    """(Weighted) least squares in the Chebyshev basis (needs len(x) >= degree + 1). With weights,
-    residuals and the noise are measured on weight * sample."""
-    x = np.asarray(x, dtype=float)
-    y = np.asarray(y, dtype=float)
-    if len(np.unique(x)) < degree + 1:
-        raise VerampError(f"{len(np.unique(x))} distinct nodes cannot determine a polynomial of degree {degree}")
-    domain = domain or (float(x.min()), float(x.max()))
-    w = np.ones_like(y) if weights is None else np.asarray(weights, dtype=float)
-    scale = float(np.max(np.abs(w * y))) or 1.0
-    a = chebyshev_basis(x, degree, domain) * w[:, None]
-    coef, *_ = np.linalg.lstsq(a, w * y / scale, rcond=None)
-    coef = coef * scale
-    residual = float(np.max(np.abs(a @ coef - w * y)))
-    if noise is None:
-        # round-off of the samples themselves, and what the fit could not explain
-        noise = max(residual, 64 * EPS * scale)
-    return PolyFit(coef, domain, x, 1.0, residual, noise, None if weights is None else w)
+    def value(self, theta: float):
+        return (self.row(theta) * self.coef)[0, 0]
 
 
-@dataclass
-class WelchResult:
-    fit: PolyFit
-    corrupted: list[int] = field(default_factory=list)     # indices of samples judged corrupted
+def _fit(nodes: np.ndarray, samples: np.ndarray, degree: int, lam2: np.ndarray, bits: int,
+         domain: tuple[float, float]) -> Fit:
+    from flint import arb, arb_mat
+
+    f = Fit(nodes, domain, degree, lam2, bits)
+    b = arb_mat([[x for x in f.row(float(t)).entries()] for t in nodes])
+    bt = b.transpose()
+    try:
+        f.gram_inv_bt = (bt * b).solve(bt)
+    except ZeroDivisionError:
+        raise _Singular() from None
+    f.coef = f.gram_inv_bt * arb_mat([[arb(float(y))] for y in samples])
+    return f
 
 
-def berlekamp_welch(x: Sequence[float], y: Sequence[float], degree: int, errors: int,
-                    tolerance: float = 1e-6, weights: Sequence[float] | None = None) -> WelchResult:
-    """Recover a degree-``degree`` polynomial from samples of which at most ``errors`` are wrong.
-
-    Samples whose weighted value differs from the recovered polynomial by more than ``tolerance``
-    times the largest weighted sample are reported as corrupted (common practice: a relative
-    threshold well above the round-off of double precision); the polynomial is then refitted on
-    the others. Weights put the samples on a common scale (for p(theta): 1 / denominator)."""
-    x = np.asarray(x, dtype=float)
-    y = np.asarray(y, dtype=float)
-    w = np.ones_like(y) if weights is None else np.asarray(weights, dtype=float)
-    k, t, d = len(np.unique(x)), int(errors), int(degree)
-    if not (np.all(np.isfinite(y)) and np.all(np.isfinite(w))):
-        raise VerampError("the samples or their weights are not finite (theta too large for double precision?)")
-    if k < d + 2 * t + 1:
-        raise VerampError(f"recovery needs at least {d + 2 * t + 1} distinct nodes for degree {d} with "
-                          f"{t} errors; got {k}")
-    if t == 0:
-        return WelchResult(fit_polynomial(x, y, d, weights=weights))
-    domain = (float(x.min()), float(x.max()))
-    scale = float(np.max(np.abs(w * y))) or 1.0
-    # the locator system N(x_i) = y_i E(x_i), unweighted, columns equilibrated (measured: weighting
-    # the rows by 1/denominator made it rank-deficient when the denominator spans 1e9)
-    top = float(np.max(np.abs(y))) or 1.0
-    tn = chebyshev_basis(x, d + t, domain)              # N: d + t + 1 unknowns
-    te = chebyshev_basis(x, t, domain)                  # E: T_t coefficient fixed to 1, t unknowns
-    system = np.hstack([tn, -(y / top)[:, None] * te[:, :t]])
-    rhs = y / top * te[:, t]
-    norms = np.linalg.norm(system, axis=0)
-    norms[norms == 0] = 1.0
-    sol, *_ = np.linalg.lstsq(system / norms, rhs, rcond=None)
-    sol = sol / norms
-    e_coef = np.concatenate([sol[d + t + 1:], [1.0]])
-    # the error locator E vanishes at the corrupted nodes: take the node nearest to each real root
-    roots = np.polynomial.chebyshev.chebroots(e_coef)
-    u = _to_unit(x, domain)
-    suspects = sorted({int(np.argmin(np.abs(u - r.real))) for r in roots
-                       if abs(r.imag) < 1e-3 and -1.05 <= r.real <= 1.05})
-    fit = fit_polynomial(np.delete(x, suspects), np.delete(y, suspects), d, domain, weights=np.delete(w, suspects))
-    # a root that fell on a good sample (fewer errors than t): that sample agrees with the fit
-    resid = np.abs(fit(x) - y) * w / scale
-    bad = [i for i in suspects if resid[i] > tolerance]
-    keep = np.setdiff1d(np.arange(k), bad)
-    if np.max(resid[keep]) > tolerance or len(keep) < d + 1:
-        raise VerampError(f"more than {t} samples disagree with every degree-{d} polynomial; "
-                          "raise the error count or the number of samples")
-    return WelchResult(fit_polynomial(x[keep], y[keep], d, domain, weights=w[keep]), bad)
+class _Singular(Exception):
+    """The normal equations could not be solved precisely enough at this precision."""
 
 
 @dataclass
 class PathRecovery:
-    """p(theta) recovered from samples: values and error estimates at the requested points."""
+    """p(theta) recovered from samples: values, error bounds and, where declined, the reason."""
 
-    degree: int
+    fitted_degree: int                    # degree of the numerator N fitted: 2 sum_k d_k
+    gate_dimension_sum: int               # sum_k d_k of the path's gates
     nodes: list[float]
     corrupted: list[int]
     theta: list[float]
-    recovered: list[float]
-    estimated_error: list[float]
+    recovered: list[float | None]
+    error_bound: list[float | None]       # |recovered - p(theta)| <= error_bound, given the sample errors
+    declined: list[str | None]            # why no value was returned at that theta
+    precision_bits: int
+    sample_error: str                     # how the samples' error was bounded
     exact: list[float] | None = None
-    actual_error: list[float] | None = None
-    precision: str = "double"
+    actual_error: list[float | None] | None = None
 
     def to_dict(self) -> dict:
         return dict(self.__dict__)
 
 
+def _sample_bounds(samples: np.ndarray, gate_dims: int, noise: float | None) -> tuple[np.ndarray, str]:
+    if noise is None:
+        return double_sample_error(samples, gate_dims), "double-precision rounding bound"
+    if not (0 <= noise < 1):
+        raise VerampError("the relative sample noise must be in [0, 1)")
+    return noise * np.abs(samples) + double_sample_error(samples, gate_dims), f"relative noise {noise:g}"
+
+
+def recover(nodes: Sequence[float], samples: Sequence[float], lam2: Sequence[float], targets: Sequence[float], *,
+            degree: int, gate_dims: int, errors: int = 0, noise: float | None = None,
+            max_relative_error: float = 0.1) -> PathRecovery:
+    """Recover p at ``targets`` from samples ``p(nodes)`` of p = N / D, N of degree ``degree`` and
+    D = prod(1 + theta^2 lam2). ``errors``: samples that may be corrupted (Berlekamp–Welch);
+    ``noise``: relative noise of the samples (default: they are exact up to double rounding)."""
+    x = np.asarray(nodes, dtype=float)
+    y = np.asarray(samples, dtype=float)
+    lam2 = np.asarray(lam2, dtype=float)
+    if x.shape != y.shape or x.ndim != 1:
+        raise VerampError("nodes and samples must be two lists of the same length")
+    if not (np.all(np.isfinite(x)) and np.all(np.isfinite(y)) and np.all(np.isfinite(lam2))):
+        raise VerampError("nodes and samples must be finite numbers")
+    k, t, d = len(np.unique(x)), int(errors), int(degree)
+    if k != len(x):
+        raise VerampError("the nodes must be distinct")
+    if t < 0:
+        raise VerampError("the number of corrupted samples cannot be negative")
+    if d > MAX_DEGREE or k > MAX_NODES:
+        raise VerampError(f"recovery is offered up to numerator degree {MAX_DEGREE} and {MAX_NODES} nodes "
+                          f"(asked: degree {d}, {k} nodes); the ball-arithmetic fit grows as nodes x degree^2")
+    if k < d + 2 * t + 1:
+        raise VerampError(f"recovery needs at least {d + 2 * t + 1} distinct nodes for degree {d} with "
+                          f"{t} corrupted samples; got {k}")
+    domain = (float(x.min()), float(x.max()))
+    delta, how = _sample_bounds(y, gate_dims, noise)
+    targets = [float(v) for v in targets]
+    # start where the denominator's dynamic range says double-and-then-some is needed (log2 of its
+    # span plus 100 bits of headroom); more bits follow when the balls say so
+    span = max(np.sum(np.log2(1 + np.multiply.outer(np.array([*x, *targets]) ** 2, lam2)), axis=-1), default=0.0)
+    for bits in (b for b in PRECISIONS if b >= min(PRECISIONS[-1], 2 * span + 100) or b == PRECISIONS[-1]):
+        with _precision(bits):
+            try:
+                bad = _locate(x, y, d, t, lam2, bits, domain) if t else []
+                keep = np.setdiff1d(np.arange(k), bad)
+                fit = _fit(x[keep], y[keep], d, lam2, bits, domain)
+                corrupted, unseen = _check_residuals(fit, x, y, delta, keep, t)
+                if corrupted != sorted(bad):
+                    keep = np.setdiff1d(np.arange(k), corrupted)
+                    if len(keep) < d + 1:
+                        raise VerampError(f"more than {t} samples disagree with every degree-{d} numerator")
+                    fit = _fit(x[keep], y[keep], d, lam2, bits, domain)
+                    corrupted2, unseen = _check_residuals(fit, x, y, delta, keep, t)
+                    if corrupted2 != corrupted:
+                        raise VerampError("the corrupted samples cannot be told apart from the good ones; add "
+                                          "nodes or lower --errors")
+                # with t corrupted samples allowed, up to t - (found) may still hide among the kept
+                hidden = max(0, t - len(corrupted))
+                values, bounds, reasons, fine = [], [], [], True
+                for th in targets:
+                    v = fit.value(th)
+                    w = fit.weights(th)
+                    absw = np.array([abs(float(w[0, i].mid())) for i in range(len(keep))])
+                    amp = float(absw @ delta[keep])
+                    if hidden:
+                        # the worst of the undetectable corruptions the decoder could have missed
+                        amp += float(np.sum(np.sort(absw * unseen)[-hidden:]))
+                    arith = float(v.rad())
+                    if arith > ARITHMETIC_SHARE * max(amp, EPS * abs(float(v.mid())), 1e-300):
+                        fine = False                # not yet precise enough: try more bits
+                        break
+                    # the weights are exact to far below their size at this precision; a 1 % margin
+                    # covers their own rounding
+                    bound = 1.01 * amp + arith
+                    val = float(v.mid())
+                    if not math.isfinite(bound) or bound > max_relative_error * abs(val):
+                        values.append(None)
+                        bounds.append(bound if math.isfinite(bound) else None)
+                        reasons.append(f"error bound {bound:.3g} exceeds {max_relative_error:g} of the value "
+                                       f"{val:.3g}: the samples do not determine p here")
+                    else:
+                        values.append(val)
+                        bounds.append(bound)
+                        reasons.append(None)
+                if not fine:
+                    continue
+            except _Singular:
+                continue
+        return PathRecovery(d, d // 2, x.tolist(), [int(i) for i in corrupted], targets, values, bounds, reasons,
+                            bits, how)
+    raise VerampError(f"the fit is too ill-conditioned even at {PRECISIONS[-1]} bits; use nodes spread over "
+                      "the interval of interest")
+
+
+def _check_residuals(fit: Fit, x, y, delta, keep, t: int) -> tuple[list[int], np.ndarray]:
+    """Samples whose residual exceeds what their error bound allows (at most ``t`` may), and for
+    each kept sample the largest error it could carry unnoticed: a sample with error e leaves the
+    residual (1 - h) e, h its leverage (the fit's weight on itself), so the check at threshold c
+    lets through up to c / (1 - h)."""
+    out = []
+    deltas = np.asarray(delta)[keep]
+    position = {int(j): n for n, j in enumerate(keep)}
+    unseen = np.zeros(len(keep))
+    for i in range(len(x)):
+        w = fit.weights(float(x[i]))
+        spread = sum(abs(float(w[0, j].mid())) * float(dj) for j, dj in enumerate(deltas))
+        v = fit.value(float(x[i]))
+        if float(v.rad()) > ARITHMETIC_SHARE * (spread + delta[i]):
+            raise _Singular()                # not precise enough yet: the caller tries more bits
+        resid = abs(float(v.mid()) - y[i])
+        threshold = 4 * (spread + delta[i]) + 1e-300
+        if resid > threshold:
+            out.append(i)
+        elif i in position:
+            h = float(w[0, position[i]].mid())
+            unseen[position[i]] = threshold / (1 - h) if 1 - h > 1e-12 else math.inf
+    if len(out) > t:
+        raise VerampError(f"{len(out)} samples disagree with the fitted p(theta) beyond their error bounds "
+                          f"(allowed corrupted: {t}); raise --errors, or give the samples' noise")
+    return sorted(out), unseen
+
+
+def _locate(x, y, d: int, t: int, lam2, bits: int, domain) -> list[int]:
+    """Berlekamp–Welch: the nodes nearest to the real roots of the error locator E."""
+    from flint import arb, arb_mat
+
+    f = Fit(x, domain, d + t, lam2, bits)
+    a, b = domain
+    rows, rhs = [], []
+    for ti, yi in zip(x, y):
+        r = f.row(float(ti)).entries()                        # T_j / D, j <= d + t
+        u = (2 * arb(float(ti)) - (arb(a) + arb(b))) / (arb(b) - arb(a))
+        ts = [arb(1), u]
+        while len(ts) < t + 1:
+            ts.append(2 * u * ts[-1] - ts[-2])
+        rows.append(list(r) + [-arb(float(yi)) * ts[j] for j in range(t)])
+        rhs.append([arb(float(yi)) * ts[t]])
+    m = arb_mat(rows)
+    mt = m.transpose()
+    try:
+        sol = (mt * m).solve(mt * arb_mat(rhs))
+    except ZeroDivisionError:
+        raise _Singular() from None
+    e = [float(sol[d + t + 1 + j, 0].mid()) for j in range(t)] + [1.0]
+    roots = np.polynomial.chebyshev.chebroots(e)
+    u = (2 * x - (a + b)) / (b - a)
+    return sorted({int(np.argmin(np.abs(u - r.real))) for r in roots
+                   if abs(r.imag) < 1e-3 and -1.05 <= r.real <= 1.05})
+
+
 def recover_path(path, nodes: Sequence[float], samples: Sequence[float], targets: Sequence[float], *,
-                 degree: int | None = None, errors: int = 0, tolerance: float = 1e-6) -> PathRecovery:
-    """Recover p at ``targets`` from p sampled at ``nodes`` (double precision)."""
-    nodes = np.asarray(nodes, dtype=float)
-    d = 2 * path.degree_bound if degree is None else int(degree)
-    den_nodes = path.denominator(nodes)
-    q = np.asarray(samples, dtype=float) * den_nodes
-    # weights 1/denominator: residuals and noise in units of p, where the samples' errors live
-    res = berlekamp_welch(nodes, q, d, errors, tolerance, weights=1.0 / den_nodes)
-    t = np.asarray(targets, dtype=float)
-    den = path.denominator(t)
-    rec = res.fit(t) / den
-    err = res.fit.error_bound(t) / den
-    return PathRecovery(d, nodes.tolist(), res.corrupted, t.tolist(), rec.tolist(), err.tolist())
+                 errors: int = 0, noise: float | None = None, max_relative_error: float = 0.1) -> PathRecovery:
+    """Recover p at ``targets`` from p sampled at ``nodes`` along ``path`` (see :func:`recover`)."""
+    lam2 = np.concatenate([g.eigvals ** 2 for g in path.gates])
+    return recover(nodes, samples, lam2, targets, degree=2 * path.degree_bound, gate_dims=path.degree_bound,
+                   errors=errors, noise=noise, max_relative_error=max_relative_error)
 
 
 def path_probabilities_mp(path, bitstring: str, thetas: Sequence, dps: int = 50) -> list:
@@ -232,34 +345,3 @@ def _apply_mp(psi: list, m, qubits: tuple[int, ...], n: int) -> list:
     return out
 
 
-def recover_path_mp(path, nodes: Sequence, samples: Sequence, targets: Sequence, *, degree: int | None = None,
-                    dps: int = 50) -> PathRecovery:
-    """The least-squares recovery in mpmath (Chebyshev basis, QR), for small cases."""
-    import mpmath as mp
-
-    d = 2 * path.degree_bound if degree is None else int(degree)
-    with mp.workdps(dps):
-        lam2 = [mp.mpf(float(v)) ** 2 for g in path.gates for v in g.eigvals]
-
-        def den(t):
-            return mp.fprod(1 + mp.mpf(t) ** 2 * l2 for l2 in lam2)
-
-        a_, b_ = mp.mpf(min(nodes)), mp.mpf(max(nodes))
-
-        def row(t):
-            u = (2 * mp.mpf(t) - (a_ + b_)) / (b_ - a_)
-            return [mp.chebyt(j, u) for j in range(d + 1)]
-
-        a = mp.matrix([row(t) for t in nodes])
-        q = mp.matrix([mp.mpf(s) * den(t) for s, t in zip(samples, nodes)])
-        coef, _res = mp.qr_solve(a, q)
-        rec = [mp.fsum(c * r for c, r in zip(coef, row(t))) / den(t) for t in targets]
-        # round-off of the working precision amplified by the fit (same rule as in double precision)
-        pinv = mp.inverse(a.T * a) * a.T
-        err = []
-        for t in targets:
-            w = mp.matrix([row(t)]) * pinv
-            err.append(float(mp.fsum(abs(w[0, i]) for i in range(w.cols)) * max(abs(v) for v in q)
-                             * mp.mpf(10) ** (-dps + 2) / den(t)))
-        return PathRecovery(d, [float(t) for t in nodes], [], [float(t) for t in targets], [float(v) for v in rec],
-                            err, precision=f"mpmath {dps} digits")

@@ -200,7 +200,7 @@ def cmd_path(args) -> int:
     from contraction.bitstrings import check_bitstrings
     from contraction.cayley import cayley_path, path_probabilities
     from contraction.planner import PlannerOptions
-    from contraction.rational_fit import path_probabilities_mp, recover_path, recover_path_mp
+    from contraction.rational_fit import path_probabilities_mp, recover_path
 
     settings = _settings()
     circuit = load_circuit_file(args.circuit)
@@ -210,26 +210,20 @@ def cmd_path(args) -> int:
     opts = dict(planner=PlannerOptions(budget_seconds=settings.plan_budget_seconds), plan_store=_plan_store(settings),
                 memory_bytes=_memory(args, settings), workers=settings.workers)
     probs, engine = path_probabilities(path, bits, thetas, **opts)
-    doc = {"bitstring": bits, "seed": args.seed, "engine": engine, "degree_bound": path.degree_bound,
-           "theta": thetas, "probability": probs.tolist()}
+    doc = {"bitstring": bits, "seed": args.seed, "engine": engine, "gate_dimension_sum": path.degree_bound,
+           "fitted_degree": 2 * path.degree_bound, "theta": thetas, "probability": probs.tolist()}
     recovery = None
     if args.fit_nodes:
         nodes = _theta_list(args.fit_nodes)
         targets = _theta_list(args.targets)
         if args.precision == "mp":
-            samples = path_probabilities_mp(path, bits, nodes, args.dps)
-            recovery = recover_path_mp(path, nodes, samples, targets, dps=args.dps)
+            samples = [float(v) for v in path_probabilities_mp(path, bits, nodes, args.dps)]
         else:
             samples = path_probabilities(path, bits, nodes, **opts)[0]
-            if args.corrupt:
-                import numpy as np
-
-                # a seeded test of the error-tolerant recovery: scale the chosen samples by 1.5
-                samples = np.array(samples)
-                samples[[int(i) for i in args.corrupt.split(",")]] *= 1.5
-            recovery = recover_path(path, nodes, samples, targets, errors=args.errors)
+        recovery = recover_path(path, nodes, samples, targets, errors=args.errors, noise=args.noise,
+                                max_relative_error=args.max_relative_error)
         recovery.exact = path_probabilities(path, bits, targets, **opts)[0].tolist()
-        recovery.actual_error = [abs(a - b) for a, b in zip(recovery.recovered, recovery.exact)]
+        recovery.actual_error = [None if a is None else abs(a - b) for a, b in zip(recovery.recovered, recovery.exact)]
         doc["recovery"] = recovery.to_dict()
     if args.plot:
         from service.plots import path_plot
@@ -243,13 +237,17 @@ def cmd_path(args) -> int:
     for t, p in zip(thetas, probs):
         print(f"{t:>12.6g}  {p:>24.16e}")
     if recovery is not None:
-        print(f"# recovery: degree {recovery.degree} (bound 2*sum d_k), {len(recovery.nodes)} nodes on "
-              f"[{min(recovery.nodes):g}, {max(recovery.nodes):g}], {recovery.precision}"
+        print(f"# recovery: numerator degree {recovery.fitted_degree} (2 x sum d_k = 2 x {recovery.gate_dimension_sum}), "
+              f"{len(recovery.nodes)} nodes on [{min(recovery.nodes):g}, {max(recovery.nodes):g}], "
+              f"{recovery.precision_bits}-bit ball arithmetic, sample error: {recovery.sample_error}"
               + (f", corrupted samples found: {recovery.corrupted}" if args.errors else ""))
-        print(f"{'theta':>12}  {'recovered':>24}  {'estimated error':>16}  {'computed':>24}  {'actual error':>13}")
-        for row in zip(recovery.theta, recovery.recovered, recovery.estimated_error, recovery.exact,
-                       recovery.actual_error):
-            print(f"{row[0]:>12.6g}  {row[1]:>24.16e}  {row[2]:>16.3e}  {row[3]:>24.16e}  {row[4]:>13.3e}")
+        print(f"{'theta':>12}  {'recovered':>24}  {'error bound':>12}  {'computed':>24}  {'actual error':>13}")
+        for t, v, e, x, a, why in zip(recovery.theta, recovery.recovered, recovery.error_bound, recovery.exact,
+                                      recovery.actual_error, recovery.declined):
+            if v is None:
+                print(f"{t:>12.6g}  {'declined':>24}  {'':>12}  {x:>24.16e}  {'':>13}  # {why}")
+            else:
+                print(f"{t:>12.6g}  {v:>24.16e}  {e:>12.3e}  {x:>24.16e}  {a:>13.3e}")
     print(f"# engine {engine}, seed {args.seed}", file=sys.stderr)
     return 0
 
@@ -602,7 +600,8 @@ def build_parser() -> argparse.ArgumentParser:
                         description="Every gate C_k becomes C_k f(theta h_k), f the Cayley transform and h_k the "
                                     "inverse transform of a seeded Haar-random H_k: theta=0 is the circuit, theta=1 "
                                     "the circuit with gates C_k H_k. Optionally recover p from samples at other "
-                                    "nodes (least squares in a Chebyshev basis, Berlekamp–Welch with --errors).")
+                                    "nodes (weighted least squares of N/D in ball arithmetic with error bounds; Berlekamp–Welch with "
+                                    "--errors).")
     pa.add_argument("circuit", help="OpenQASM 2/3 or veramp JSON file ('-' for stdin)")
     pa.add_argument("--bitstring", "-b", required=True, metavar="B")
     pa.add_argument("--seed", type=int, default=0, help="seed of the Haar deformations")
@@ -610,9 +609,13 @@ def build_parser() -> argparse.ArgumentParser:
     pa.add_argument("--fit-nodes", metavar="THETAS", help="sample p here and recover it at --targets")
     pa.add_argument("--targets", default="1", metavar="THETAS", help="where to evaluate the recovery (default 1)")
     pa.add_argument("--errors", type=int, default=0, help="samples that may be corrupted (Berlekamp–Welch)")
-    pa.add_argument("--corrupt", metavar="I,J", help="scale these samples by 1.5 (to test --errors)")
+    pa.add_argument("--noise", type=float, metavar="EPS",
+                    help="relative noise of the samples, for the error bounds (default: double rounding only)")
+    pa.add_argument("--max-relative-error", type=float, default=0.1, metavar="R",
+                    help="decline targets whose error bound exceeds this share of the value (default 0.1)")
     pa.add_argument("--precision", choices=["double", "mp"], default="double",
-                    help="mp: samples and fit in mpmath (up to 8 qubits)")
+                    help="mp: compute the samples with an mpmath state vector (up to 8 qubits); the fit always "
+                         "runs in ball arithmetic at the precision it needs")
     pa.add_argument("--dps", type=int, default=50, help="decimal digits for --precision mp")
     pa.add_argument("--plot", metavar="FILE", help="write the figure (PNG or SVG)")
     pa.add_argument("--format", choices=["table", "json"], default="table")

@@ -76,8 +76,15 @@ def path_plot(thetas: Sequence[float], probabilities: Sequence[float], bitstring
     plt, (fig, ax) = _figure()
     ax.plot(thetas, probabilities, "-", color="#4477aa", label="p(θ), computed")
     if recovery is not None:
-        ax.errorbar(recovery.theta, recovery.recovered, yerr=recovery.estimated_error, fmt="o", color="#ee6677",
-                    capsize=3, label="recovered from samples (± estimated error)")
+        got = [(t, v, e) for t, v, e in zip(recovery.theta, recovery.recovered, recovery.error_bound) if v is not None]
+        if got:
+            ts, vs, es = zip(*got)
+            ax.errorbar(ts, vs, yerr=es, fmt="o", color="#ee6677", capsize=3,
+                        label="recovered from samples (± error bound)")
+        for t in [t for t, v in zip(recovery.theta, recovery.recovered) if v is None]:
+            ax.axvline(t, color="#ee6677", linestyle=":", linewidth=1)
+        if any(v is None for v in recovery.recovered):
+            ax.plot([], [], ":", color="#ee6677", label="declined: not determined by the samples")
         lo, hi = min(recovery.nodes), max(recovery.nodes)
         ax.axvspan(lo, hi, color="#bbbbbb", alpha=0.3, label=f"sample interval, {len(recovery.nodes)} nodes")
     ax.set_xlabel("θ (0: the circuit, 1: its Haar deformation)")

@@ -147,9 +147,13 @@ class MarginalOut(BaseModel):
 
 class RecoverIn(BaseModel):
     model_config = ConfigDict(extra="forbid")
-    nodes: list[float] = Field(..., min_length=2, max_length=2000, description="theta values to sample p at")
+    nodes: list[float] = Field(..., min_length=2, max_length=1000, description="theta values to sample p at")
     targets: list[float] = Field([1.0], min_length=1, max_length=200, description="where to evaluate the recovery")
     errors: int = Field(0, ge=0, le=100, description="samples that may be corrupted (Berlekamp–Welch)")
+    noise: float | None = Field(None, ge=0, lt=1, description="relative noise of the samples (default: exact up to "
+                                                              "double-precision rounding)")
+    max_relative_error: float = Field(0.1, gt=0, le=1, description="decline a target whose error bound exceeds "
+                                                                   "this share of its value")
 
 
 class PathIn(CircuitRef):
@@ -168,7 +172,9 @@ class PathOut(BaseModel):
     bitstring: str
     seed: int
     engine: str
-    degree_bound: int = Field(..., description="sum of the gate dimensions d_k")
+    gate_dimension_sum: int = Field(..., description="sum_k d_k of the gate dimensions: the degree of the "
+                                                     "amplitude's numerator and denominator")
+    fitted_degree: int = Field(..., description="degree of the numerator of p(theta): 2 sum_k d_k")
     theta: list[float]
     probability: list[float]
     recovery: dict[str, Any] | None = None

@@ -1,12 +1,13 @@
 """Cayley path and rational-function recovery.
 
-Sources (../shared/reference/check-values.md, "Cayley transform"):
+Sources:
 * f(theta h) = (1 + i theta h)(1 - i theta h)^-1 is unitary for Hermitian h; h = -i(H - 1)(H + 1)^-1
   inverts it for unitary H without eigenvalue -1 (standard linear algebra);
 * p(theta) * prod_{k,j}(1 + theta^2 lambda_kj^2) is a polynomial of degree <= 2 sum_k d_k (derived);
 * Berlekamp–Welch: K >= d + 2t + 1 samples recover a degree-d polynomial with t corrupted samples
-  (L. R. Welch & E. R. Berlekamp, US patent 4,633,470 (1986), from memory; the count is also in
-  check-values.md).
+  (L. R. Welch & E. R. Berlekamp, US patent 4,633,470 (1986), from memory);
+* Chebyshev points and Lebesgue functions: L. N. Trefethen, Approximation Theory and Approximation
+  Practice (SIAM 2013), ch. 2 and 15; the error bounds are checked against p computed directly.
 """
 
 from __future__ import annotations
@@ -18,8 +19,7 @@ from contraction.cayley import cayley, cayley_path, inverse_cayley, path_probabi
 from contraction.circuit import Circuit, Gate
 from contraction.errors import VerampError
 from contraction.random_circuits import grid_architecture, haar_unitary, random_instance
-from contraction.rational_fit import (berlekamp_welch, fit_polynomial, path_probabilities_mp, recover_path,
-                                      recover_path_mp)
+from contraction.rational_fit import path_probabilities_mp, recover, recover_path
 from contraction.statevector import state_vector
 
 from .conftest import FAST_PLANNER
@@ -81,65 +81,118 @@ def tiny():
     return cayley_path(c, seed=9)                                           # sum d_k = 6
 
 
-def test_degree_bound_holds_and_one_less_fails(tiny):
+def test_degree_holds_and_one_less_fails(tiny):
+    """p = N / D with deg N <= 2 sum d_k (derived in contraction/cayley.py): a fit of that degree
+    reproduces held-out values to round-off; one degree less cannot."""
     d = 2 * tiny.degree_bound                                               # 12
     nodes = np.linspace(0, 1, 41)
     p, _ = path_probabilities(tiny, "10", nodes)
-    q = p * tiny.denominator(nodes)
+    lam2 = np.concatenate([g.eigvals ** 2 for g in tiny.gates])
     train, held = nodes[::2], nodes[1::2]
-    exact = fit_polynomial(train, q[::2], d)
-    short = fit_polynomial(train, q[::2], d - 1)
-    err_exact = np.max(np.abs(exact(held) - q[1::2])) / np.max(np.abs(q))
-    err_short = np.max(np.abs(short(held) - q[1::2])) / np.max(np.abs(q))
-    assert err_exact < 1e-11                                                # fits to round-off
-    assert err_short > 1e3 * err_exact                                      # one degree less does not
+    exact = recover(train, p[::2], lam2, held, degree=d, gate_dims=d // 2)
+    for v, e, w in zip(exact.recovered, exact.error_bound, p[1::2]):
+        assert abs(v - w) <= e and abs(v - w) < 1e-10
+    with pytest.raises(VerampError, match="disagree"):
+        recover(train, p[::2], lam2, held, degree=d - 1, gate_dims=d // 2)
 
 
-def test_recovery_at_held_out_points_and_extrapolation_error_is_honest(tiny):
-    targets = [0.137, 0.61, 1.0]
-    exact, _ = path_probabilities(tiny, "10", targets)
-    nodes = np.linspace(0, 1, 40)
-    p, _ = path_probabilities(tiny, "10", nodes)
-    r = recover_path(tiny, nodes, p, targets)
-    assert np.max(np.abs(np.array(r.recovered) - exact)) < 1e-10
-    # from [0, 0.5] to theta = 1: extrapolation; the estimate must cover the actual error
-    near = np.linspace(0, 0.5, 40)
-    pn, _ = path_probabilities(tiny, "10", near)
-    r = recover_path(tiny, near, pn, [1.0])
-    actual = abs(r.recovered[0] - exact[2])
-    assert actual <= r.estimated_error[0]
-    assert r.estimated_error[0] > 100 * EPS_REL * exact[2]                  # and it says it is not exact
+def layered(n: int, layers: int, seed: int) -> Circuit:
+    """Haar single-qubit gates on every qubit, then Haar two-qubit gates on alternating pairs."""
+    rng = np.random.default_rng(seed)
+    gates = []
+    for layer in range(layers):
+        gates += [Gate((q,), haar_unitary(2, rng)) for q in range(n)]
+        gates += [Gate((i, (i + 1) % n), haar_unitary(4, rng)) for i in range(layer % 2, n, 2)]
+    return Circuit(n, gates)
 
 
-EPS_REL = np.finfo(float).eps
+def chebyshev_nodes(k: int, a: float = 0.0, b: float = 1.0) -> np.ndarray:
+    """Chebyshev points of the first kind mapped to [a, b] (Trefethen, ATAP, ch. 2)."""
+    return a + (b - a) * (1 - np.cos(np.pi * (np.arange(k) + 0.5) / k)) / 2
 
 
-def test_berlekamp_welch_finds_seeded_corruptions(tiny):
-    nodes = np.linspace(0, 1, 45)
-    p, _ = path_probabilities(tiny, "10", nodes)
-    rng = np.random.default_rng(2026)
-    bad = sorted(int(i) for i in rng.choice(len(nodes), 4, replace=False))
-    corrupted = p.copy()
-    corrupted[bad] *= 1 + rng.uniform(0.2, 1.0, 4)
-    r = recover_path(tiny, nodes, corrupted, [0.5, 1.0], errors=4)
+@pytest.fixture(scope="module")
+def deg64():
+    path = cayley_path(layered(4, 2, 7), seed=0)
+    assert 2 * path.degree_bound == 64                                      # 2 x (8 + 8) x 2 layers
+    return path
+
+
+TARGETS = [1.0, 0.25, 0.613]
+
+
+def test_degree_64_recovery_is_accurate_and_its_bounds_hold(deg64):
+    """Every target: |recovered - p computed directly| <= reported bound, and within 1e-8 relative.
+    Uniform nodes include theta = 1 itself; Chebyshev nodes do not."""
+    exact, _ = path_probabilities(deg64, "0000", TARGETS)
+    for nodes in (np.linspace(0, 1, 94), chebyshev_nodes(100)):
+        p, _ = path_probabilities(deg64, "0000", nodes)
+        r = recover_path(deg64, nodes, p, TARGETS)
+        assert r.fitted_degree == 64 and r.gate_dimension_sum == 32
+        for v, e, x in zip(r.recovered, r.error_bound, exact):
+            assert v is not None and abs(v - x) <= e and abs(v - x) <= 1e-8 * x
+
+
+def test_degree_64_three_corrupted_samples_are_found(deg64):
+    nodes = chebyshev_nodes(100)
+    p, _ = path_probabilities(deg64, "0000", nodes)
+    bad = [3, 40, 77]
+    p[bad] *= 1.5
+    r = recover_path(deg64, nodes, p, TARGETS, errors=3)
+    exact, _ = path_probabilities(deg64, "0000", TARGETS)
     assert r.corrupted == bad
-    exact, _ = path_probabilities(tiny, "10", [0.5, 1.0])
-    assert np.max(np.abs(np.array(r.recovered) - exact)) < 1e-10
-    # fewer corruptions than allowed: the locator's spare roots must not flag good samples
-    two = p.copy()
-    two[bad[:2]] *= 1.5
-    assert recover_path(tiny, nodes, two, [1.0], errors=4).corrupted == bad[:2]
-    # too few samples for degree 12 with 4 errors (needs 12 + 8 + 1 = 21)
+    for v, e, x in zip(r.recovered, r.error_bound, exact):
+        assert v is not None and abs(v - x) <= e and abs(v - x) <= 1e-8 * x
+
+
+def test_extrapolation_declines_or_holds(deg64, tiny):
+    """From [0, 0.5] to theta = 1: either a value within its bound or no value, never a confident
+    wrong number."""
+    for path, bits in ((deg64, "0000"), (tiny, "10")):
+        near = chebyshev_nodes(2 * path.degree_bound + 30, 0.0, 0.5)
+        p, _ = path_probabilities(path, bits, near)
+        exact, _ = path_probabilities(path, bits, [0.6, 1.0])
+        r = recover_path(path, near, p, [0.6, 1.0])
+        for v, e, x, why in zip(r.recovered, r.error_bound, exact, r.declined):
+            assert (v is None and why) or abs(v - x) <= e
+
+
+def test_noisy_samples_get_bounds_that_cover_the_noise(deg64):
+    """Relative noise 1e-6 on every sample: the bound at each target covers the actual error, and it
+    grows from inside the sampled interval to outside it."""
+    nodes = chebyshev_nodes(100, 0.0, 0.8)
+    p, _ = path_probabilities(deg64, "0000", nodes)
+    rng = np.random.default_rng(5)
+    noisy = p * (1 + 1e-6 * rng.uniform(-1, 1, len(p)))
+    targets = [0.4, 0.8, 0.9]
+    exact, _ = path_probabilities(deg64, "0000", targets)
+    r = recover_path(deg64, nodes, noisy, targets, noise=1e-6, max_relative_error=1.0)
+    for v, e, x in zip(r.recovered, r.error_bound, exact):
+        assert v is None or abs(v - x) <= e
+    assert r.error_bound[0] < r.error_bound[2]
+
+
+def test_too_few_nodes_for_the_errors_is_refused(tiny):
+    nodes = np.linspace(0, 1, 20)
+    p, _ = path_probabilities(tiny, "10", nodes)
     with pytest.raises(VerampError, match="at least 21 distinct nodes"):
-        berlekamp_welch(nodes[:20], corrupted[:20], 12, 4)
+        recover_path(tiny, nodes, p, [1.0], errors=4)
 
 
-def test_extended_precision_matches_double_and_beats_it(tiny):
+@pytest.mark.slow
+def test_degree_144_recovery_holds(rng):
+    """6 qubits, 3 layers (numerator degree 144), Chebyshev nodes on [0, 1]."""
+    path = cayley_path(layered(6, 3, 7), seed=0)
+    nodes = chebyshev_nodes(170)
+    p, _ = path_probabilities(path, "000000", nodes)
+    exact, _ = path_probabilities(path, "000000", TARGETS)
+    r = recover_path(path, nodes, p, TARGETS)
+    for v, e, x in zip(r.recovered, r.error_bound, exact):
+        assert v is not None and abs(v - x) <= e and abs(v - x) <= 1e-8 * x
+
+
+def test_extended_precision_samples_match_double(tiny):
     near = [i / 78 for i in range(40)]                                      # [0, 0.5]
     pm = path_probabilities_mp(tiny, "10", near, dps=40)
     pd, _ = path_probabilities(tiny, "10", near)
     assert max(abs(float(a) - b) for a, b in zip(pm, pd)) < 1e-14
-    exact, _ = path_probabilities(tiny, "10", [1.0])
-    r = recover_path_mp(tiny, near, pm, [1.0], dps=40)
-    assert abs(r.recovered[0] - exact[0]) < 1e-14
-    assert r.estimated_error[0] < 1e-25

@@ -111,7 +111,7 @@ def test_sqrt_gates_square_to_minus_i_g(root, gate):
 
 
 def test_fsim_definition():
-    # Arute et al. 2019 / check-values.md: fSim(θ,φ) acts on |01>,|10> as a rotation, |11> gets e^{-iφ}
+    # Arute et al., Nature 574, 505 (2019), supplement: fSim(θ,φ) acts on |01>,|10> as a rotation, |11> gets e^{-iφ}
     f = G.fsim(math.pi / 2, math.pi / 6)
     assert np.allclose(f[1:3, 1:3], [[0, -1j], [-1j, 0]])
     assert np.isclose(f[3, 3], cmath.exp(-1j * math.pi / 6))

@@ -3,7 +3,7 @@
 Source: F. Mezzadri, "How to generate random matrices from the classical compact groups",
 Notices AMS 54(5), 592 (2007), arXiv:math-ph/0609050. For U Haar on U(d):
 E|U_ij|² = 1/d, E|U_ij|⁴ = 2/(d(d+1)), E[U_11] = 0. A QR without the phase fix fails the last
-one (E[Re U_11] ≈ −0.29 at d = 4, measured; ../shared/reference/check-values.md).
+one (E[Re U_11] ≈ −0.29 at d = 4, measured in this project).
 Also E|Tr U|² = 1 (Diaconis & Shahshahani 1994, from memory).
 """
 

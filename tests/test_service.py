@@ -249,7 +249,7 @@ def test_blocks_marginals_and_engine_provenance(client):
 
 
 def test_cayley_path_route(client):
-    # GHZ path (Cayley transform; ../shared/reference/check-values.md): theta = 0 reproduces the
+    # GHZ path (Cayley transform, see tests/test_cayley.py for the sources): theta = 0 reproduces the
     # circuit's own p(111) = 1/2 (Nielsen & Chuang 2010); the recovery at theta = 0.33 from 21 nodes on
     # [0, 1] agrees with the directly computed value within its stated error
     nodes = [i / 40 for i in range(41)]
@@ -258,10 +258,10 @@ def test_cayley_path_route(client):
     r = client.post("/v1/paths", json=body)
     assert r.status_code == 200, r.text
     doc = r.json()
-    assert doc["degree_bound"] == 2 + 4 + 4 and doc["engine"] == "statevector"
+    assert doc["gate_dimension_sum"] == 2 + 4 + 4 and doc["fitted_degree"] == 20 and doc["engine"] == "statevector"
     assert doc["probability"][0] == pytest.approx(0.5, abs=1e-15)
     rec = doc["recovery"]
-    assert abs(rec["recovered"][0] - doc["probability"][1]) <= max(rec["estimated_error"][0], 1e-15)
+    assert abs(rec["recovered"][0] - doc["probability"][1]) <= rec["error_bound"][0]
     png = client.post("/v1/paths/plot", json=body)
     assert png.status_code == 200 and png.content[:8] == b"\x89PNG\r\n\x1a\n"
     # too few nodes for the degree bound (2 * 10 = 20 needs 21) is a 422 with the count

@@ -1,4 +1,4 @@
-"""XEB estimators and diagnostics against published formulas (../shared/reference/check-values.md).
+"""XEB estimators and diagnostics against published formulas (named below).
 
 Sources: Boixo et al., Nature Physics 14, 595 (2018) — Porter–Thomas law p ~ Beta(1, N−1),
 E[p] = 1/N, E[p²] = 2/(N(N+1)), E[N·p·ln(N·p)] = 1 − H_N + ln N, uniform samples E[−ln p] = H_{N−1};

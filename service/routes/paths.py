@@ -37,7 +37,8 @@ def _compute(body: PathIn, state: AppState):
         r = body.recover
         samples, _ = path_probabilities(path, body.bitstring, r.nodes, **opts)
         try:
-            recovery = recover_path(path, r.nodes, samples, r.targets, errors=r.errors)
+            recovery = recover_path(path, r.nodes, samples, r.targets, errors=r.errors, noise=r.noise,
+                                    max_relative_error=r.max_relative_error)
         except (np.linalg.LinAlgError, FloatingPointError, OverflowError) as exc:
             raise VerampError(f"the recovery is numerically impossible for these nodes: {exc}") from None
     return circuit, path, probs, engine, recovery
@@ -46,10 +47,10 @@ def _compute(body: PathIn, state: AppState):
 @router.post("/paths", response_model=PathOut, responses={413: {"model": ErrorOut}, 422: {"model": ErrorOut}})
 def post_path(body: PathIn, state: AppState = Depends(get_state)) -> PathOut:
     """p(theta) at the given thetas (one plan for the whole path); with ``recover``, p recovered at
-    ``targets`` from samples at ``nodes``, with estimated errors."""
+    ``targets`` from samples at ``nodes``, with error bounds (targets the samples do not determine are declined, with the reason)."""
     circuit, path, probs, engine, recovery = _compute(body, state)
     return PathOut(circuit_id=circuit.content_hash, bitstring=body.bitstring, seed=body.seed, engine=engine,
-                   degree_bound=path.degree_bound, theta=body.thetas, probability=probs.tolist(),
+                   gate_dimension_sum=path.degree_bound, fitted_degree=2 * path.degree_bound, theta=body.thetas, probability=probs.tolist(),
                    recovery=recovery.to_dict() if recovery else None)
 
 
