@@ -60,6 +60,13 @@ class UnsupportedError(ParseError):
     kind = "unsupported"
 
 
+class GateLimitError(ParseError):
+    """A program that would expand past the configured gate limit (refused before expanding)."""
+
+    kind = "limit_exceeded"
+    limit = "max_gates"
+
+
 class BitstringError(VerampError):
     """A bitstring of the wrong length or alphabet."""
 

@@ -22,7 +22,7 @@ import numpy as np
 
 from . import gates as G
 from .circuit import Circuit, Gate
-from .errors import ParseError, UnsupportedError
+from .errors import GateLimitError, ParseError, UnsupportedError
 from .qasm_lexer import CONSTANTS, ExpressionParser, Source, evaluate, tokenize
 from .statevector import compose
 
@@ -594,7 +594,7 @@ class QasmReader(ExpressionParser):
         adds = reps * (d.emitted if d is not None and not mods else 1)
         if len(self.sink.gates) + adds > self.max_gates:
             raise self._err(f"this statement expands to {adds:,} gates; with the {len(self.sink.gates):,} before it "
-                            f"the program exceeds the limit of {self.max_gates:,} gates", pos)
+                            f"the program exceeds the limit of {self.max_gates:,} gates", pos, GateLimitError)
         for r in range(reps):
             qubits = tuple(g[r] if len(g) > 1 else g[0] for g in groups)
             if len(set(qubits)) != len(qubits):
@@ -650,7 +650,7 @@ class QasmReader(ExpressionParser):
                                     f"{MAX_DENSE_QUBITS} qubits for one gate matrix", pos, UnsupportedError)
                 if d.emitted > self.max_gates:
                     raise self._err(f"gate {name!r} expands to {d.emitted:,} gates, over the limit of "
-                                    f"{self.max_gates:,}", pos)
+                                    f"{self.max_gates:,}", pos, GateLimitError)
                 local = _Sink([])
                 env = dict(self.consts)
                 env.update(zip(d.params, params))

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import hashlib
 import hmac
 import json
 import logging
@@ -12,10 +13,10 @@ from fastapi import FastAPI, HTTPException
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 
-from contraction.errors import MemoryLimitError, VerampError
+from contraction.errors import GateLimitError, MemoryLimitError, VerampError
 
 from . import __version__
-from .db import make_engine, session_factory
+from .db import check_sqlite_file, make_engine, session_factory
 from .deps import AppState, LimitExceeded
 from .jobs import JobManager, QueueFull
 from .metrics import Metrics
@@ -55,6 +56,8 @@ class GuardMiddleware:
             if not any(hmac.compare_digest(given, t) for t in self.tokens):
                 return await self._reply(send, _error(401, "unauthorized", "a valid bearer token is required",
                                                       {"WWW-Authenticate": "Bearer"}))
+            # jobs belong to the token that created them (a digest, never the token itself)
+            scope["veramp_owner"] = hashlib.sha256(given.encode()).hexdigest()[:32]
         limit = self.settings.max_request_bytes
         length = headers.get("content-length")
         if length is not None and length.isdigit() and int(length) > limit:
@@ -107,6 +110,9 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     @asynccontextmanager
     async def lifespan(app: FastAPI):
         settings.data_dir.mkdir(parents=True, exist_ok=True)
+        note = check_sqlite_file(settings.sqlalchemy_url)      # raises DatabaseError: refuse to start
+        if note:
+            log.warning(json.dumps({"event": "database", "note": note}))
         sessions = session_factory(make_engine(settings.sqlalchemy_url))
         metrics = Metrics()
 
@@ -135,9 +141,9 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     @app.exception_handler(VerampError)
     async def engine_error(_req, exc: VerampError):
-        status = 413 if isinstance(exc, MemoryLimitError) else 422
+        status = 413 if isinstance(exc, (MemoryLimitError, GateLimitError)) else 422
         return _error(status, exc.kind, str(exc), line=getattr(exc, "line", None),
-                      column=getattr(exc, "column", None))
+                      column=getattr(exc, "column", None), limit=getattr(exc, "limit", None))
 
     @app.exception_handler(LimitExceeded)
     async def limit_error(_req, exc: LimitExceeded):

@@ -375,8 +375,22 @@ def cmd_serve(args) -> int:
 
     settings = Settings(**overrides)
     logging.basicConfig(level=logging.INFO, format="%(message)s")
-    uvicorn.run(create_app(settings), host=args.host or settings.host, port=args.port or settings.port,
-                log_level="warning")
+    from service.db import DatabaseError, check_sqlite_file
+
+    try:
+        check_sqlite_file(settings.sqlalchemy_url)
+    except DatabaseError as exc:
+        raise UsageError(f"refusing to start: {exc}") from None
+    host = args.host or settings.host
+    if host not in ("127.0.0.1", "localhost", "::1") and not settings.token_set():
+        if args.require_tokens:
+            raise UsageError(f"refusing to serve on {host} without bearer tokens (set VERAMP_TOKENS or "
+                             "VERAMP_TOKENS_FILE, or drop --require-tokens)")
+        logging.getLogger("veramp.api").warning(
+            "WARNING: serving on %s without bearer tokens: anyone who can reach this address can submit work "
+            "and read every job; set VERAMP_TOKENS (or use --require-tokens to refuse this)", host)
+    uvicorn.run(create_app(settings), host=host, port=args.port or settings.port, log_level="warning",
+                timeout_graceful_shutdown=5)
     return 0
 
 
@@ -668,6 +682,8 @@ def build_parser() -> argparse.ArgumentParser:
     sv.add_argument("--host", help="listen address (VERAMP_HOST, default 127.0.0.1)")
     sv.add_argument("--port", type=int, help="port (VERAMP_PORT, default 8350)")
     sv.add_argument("--data-dir", metavar="DIR", help="database, plans and calibration (VERAMP_DATA_DIR)")
+    sv.add_argument("--require-tokens", action="store_true",
+                    help="refuse to serve on a non-loopback address without bearer tokens")
     sv.set_defaults(func=cmd_serve)
 
     hc = sub.add_parser("health", help="exit 0 when the local service answers its health route (container checks)")

@@ -72,12 +72,66 @@ class JobRow(Base):
     created: Mapped[float] = mapped_column(Float, default=time.time)
     started: Mapped[float | None] = mapped_column(Float, nullable=True)
     finished: Mapped[float | None] = mapped_column(Float, nullable=True)
+    # who created the job: a digest of the bearer token (None when the service runs without tokens)
+    owner: Mapped[str | None] = mapped_column(String(64), nullable=True)
 
     def bitstring_list(self) -> list[str]:
         return json.loads(self.bitstrings)
 
 
+class DatabaseError(Exception):
+    """The database cannot be used safely (corrupt or truncated file); the service must not start."""
+
+
+def check_sqlite_file(url: str) -> str | None:
+    """Refuse a corrupt or truncated SQLite file before anything writes to it.
+
+    Returns a note for the log ("new empty database" for a zero-byte file), or None. Raises
+    :class:`DatabaseError` with the path when ``PRAGMA quick_check`` fails or the file is not a
+    database; the file is never modified here."""
+    import os
+    import sqlite3
+
+    if not url.startswith("sqlite:///") or url == "sqlite:///:memory:":
+        return None
+    path = url[len("sqlite:///"):]
+    if not os.path.exists(path):
+        return None
+    wal = path + "-wal"
+    if os.path.getsize(path) == 0:
+        if os.path.exists(wal) and os.path.getsize(wal) > 0:
+            raise DatabaseError(f"{path} is empty but its write-ahead log {wal} is not: the database was "
+                                "truncated; restore it from a backup (it was left as it is)")
+        return f"{path} is an empty file: starting a new database in it"
+    try:
+        conn = sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=30)
+        try:
+            rows = conn.execute("PRAGMA quick_check").fetchall()
+        finally:
+            conn.close()
+    except sqlite3.DatabaseError as exc:
+        raise DatabaseError(f"{path} is not a usable SQLite database ({exc}); restore it from a backup "
+                            "(it was left as it is)") from None
+    if [r[0] for r in rows] != ["ok"]:
+        raise DatabaseError(f"{path} fails its integrity check ({rows[0][0]}); restore it from a backup "
+                            "(it was left as it is)")
+    return None
+
+
+def _migrate(engine: Engine) -> None:
+    """Columns added after a table was first created (create_all does not add them)."""
+    from sqlalchemy import inspect, text
+
+    cols = {c["name"] for c in inspect(engine).get_columns("jobs")}
+    if "owner" not in cols:
+        with engine.begin() as conn:
+            conn.execute(text("ALTER TABLE jobs ADD COLUMN owner VARCHAR(64)"))
+
+
 def make_engine(url: str) -> Engine:
+    """An engine for ``url`` with the tables in place; SQLite files are checked first (see
+    :func:`check_sqlite_file`)."""
+    check_sqlite_file(url)
     kwargs: dict = {}
     if url.startswith("sqlite"):
         kwargs["connect_args"] = {"check_same_thread": False, "timeout": 30}
@@ -93,6 +147,7 @@ def make_engine(url: str) -> Engine:
             cur.execute("PRAGMA busy_timeout=30000")
             cur.close()
     Base.metadata.create_all(engine)
+    _migrate(engine)
     return engine
 
 

@@ -42,6 +42,12 @@ class AppState:
             return self._rate
 
 
+def owner_of(request: Request) -> str | None:
+    """The caller's identity for ownership: a digest of its bearer token (set by the guard
+    middleware), or None when the service runs without tokens."""
+    return request.scope.get("veramp_owner")
+
+
 def get_state(request: Request) -> AppState:
     return request.app.state.veramp
 

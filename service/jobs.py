@@ -135,12 +135,12 @@ class JobManager:
         with self._lock:
             return len(self._active)
 
-    def create(self, circuit_hash: str, bits: list[str], dtype: str, engine: str) -> JobRow:
+    def create(self, circuit_hash: str, bits: list[str], dtype: str, engine: str, owner: str | None = None) -> JobRow:
         if self.depth >= self.settings.queue_size:
             raise QueueFull(retry_after=5)
         job = JobRow(id=uuid.uuid4().hex, status="queued", circuit_hash=circuit_hash, dtype=dtype,
                      engine=engine, bitstrings=json.dumps(bits), total=len(dict.fromkeys(bits)), done=0,
-                     cancel_requested=0, created=time.time())
+                     cancel_requested=0, created=time.time(), owner=owner)
         with self.sessions() as s:
             s.add(job)
             s.commit()
@@ -158,6 +158,8 @@ class JobManager:
     def _done(self, job_id: str, fut: cf.Future) -> None:
         with self._lock:
             self._active.pop(job_id, None)
+        if getattr(self, "_closing", False):
+            return                  # shutting down: the job was put back in the queue, not failed
         if not fut.cancelled() and isinstance(fut.exception(), cf.process.BrokenProcessPool):
             # a worker died (killed, out of memory): fail the job with the reason, keep serving
             log.error("worker process died while running job %s", job_id)
@@ -201,5 +203,26 @@ class JobManager:
                           .values(status="cancelled", finished=time.time()))
                 s.commit()
 
-    def shutdown(self) -> None:
-        self.pool.shutdown(wait=False, cancel_futures=True)
+    def shutdown(self, grace: float = 3.0) -> None:
+        """Stop taking work, put running jobs back in the queue (they resume at the next start, their
+        finished chunks kept in the cache) and end every worker process within ``grace`` seconds."""
+        with self._lock:
+            self._closing = True
+            pool = self.pool
+            procs = list((getattr(pool, "_processes", None) or {}).values())
+        pool.shutdown(wait=False, cancel_futures=True)
+        try:
+            with self.sessions() as s:
+                s.execute(update(JobRow).where(JobRow.status == "running").values(status="queued"))
+                s.commit()
+        except Exception:                       # the database may be gone already: resume() handles it
+            log.exception("could not mark running jobs for resumption")
+        for p in procs:
+            if p.is_alive():
+                p.terminate()
+        deadline = time.monotonic() + grace
+        for p in procs:
+            p.join(max(0.0, deadline - time.monotonic()))
+            if p.is_alive():
+                p.kill()
+                p.join(1.0)

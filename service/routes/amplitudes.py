@@ -1,6 +1,6 @@
 """/v1/estimates and /v1/amplitudes: cost reports, and amplitudes now (200) or as a job (202)."""
 
-from fastapi import APIRouter, Depends, Response
+from fastapi import APIRouter, Depends, Request, Response
 
 from contraction.bitstrings import check_bitstrings
 from contraction.engine_choice import choose
@@ -9,7 +9,7 @@ from contraction.planner import PlannerOptions
 
 from ..compute import compute, versions
 from ..db import SqlPlanStore
-from ..deps import AppState, LimitExceeded, get_state, resolve_circuit
+from ..deps import AppState, LimitExceeded, get_state, owner_of, resolve_circuit
 from ..routes.jobs import job_out
 from ..schemas import AmplitudeOut, AmplitudesIn, AmplitudesOut, ErrorOut, EstimateIn, JobOut, Provenance
 
@@ -64,7 +64,7 @@ def _all_cached(state: AppState, body: AmplitudesIn) -> AmplitudesOut | None:
 @router.post("/amplitudes", response_model=AmplitudesOut | JobOut,
              responses={202: {"model": JobOut}, 413: {"model": ErrorOut}, 422: {"model": ErrorOut},
                         429: {"model": ErrorOut}})
-def post_amplitudes(body: AmplitudesIn, response: Response, state: AppState = Depends(get_state)):
+def post_amplitudes(body: AmplitudesIn, response: Response, request: Request, state: AppState = Depends(get_state)):
     """Amplitudes for a batch of bitstrings (qubit 0 first). Small work answers at once; larger work
     returns 202 with a job to follow."""
     s = state.settings
@@ -87,7 +87,7 @@ def post_amplitudes(body: AmplitudesIn, response: Response, state: AppState = De
         have = cached_results(sess, circuit.content_hash, bits, body.dtype)
     all_cached = len(have) == len(set(bits))
     if not all_cached and (predicted is None or predicted > s.sync_threshold_seconds):
-        job = state.jobs.create(circuit.content_hash, bits, body.dtype, body.engine)
+        job = state.jobs.create(circuit.content_hash, bits, body.dtype, body.engine, owner=owner_of(request))
         state.metrics.queue_depth.set(state.jobs.depth)
         response.status_code = 202
         response.headers["Location"] = f"/v1/jobs/{job.id}"

@@ -3,12 +3,12 @@
 import json
 import time
 
-from fastapi import APIRouter, Depends, HTTPException, Query
+from fastapi import APIRouter, Depends, HTTPException, Query, Request
 from fastapi.responses import StreamingResponse
 
 from ..compute import cached_results
 from ..db import JobRow
-from ..deps import AppState, get_state
+from ..deps import AppState, get_state, owner_of
 from ..schemas import AmplitudeOut, ErrorOut, JobOut, ResultsPage
 
 router = APIRouter(prefix="/v1/jobs", tags=["jobs"])
@@ -24,29 +24,31 @@ def job_out(job: JobRow) -> JobOut:
                   provenance=json.loads(job.provenance) if job.provenance else None)
 
 
-def _job(state: AppState, job_id: str) -> JobRow:
+def _job(state: AppState, job_id: str, request: Request | None = None) -> JobRow:
+    """The job, if it exists and belongs to the caller's token (another token's job is a 404, as if
+    it did not exist)."""
     with state.sessions() as s:
         job = s.get(JobRow, job_id)
-    if job is None:
+    if job is None or (request is not None and job.owner is not None and job.owner != owner_of(request)):
         raise HTTPException(404, f"no job with id {job_id}")
     return job
 
 
-def _finished(state: AppState, job_id: str) -> JobRow:
-    job = _job(state, job_id)
+def _finished(state: AppState, job_id: str, request: Request) -> JobRow:
+    job = _job(state, job_id, request)
     if job.status != "succeeded":
         raise HTTPException(409, f"job {job_id} is {job.status}; results are available when it has succeeded")
     return job
 
 
 @router.get("/{job_id}", response_model=JobOut, responses={404: {"model": ErrorOut}})
-def get_job(job_id: str, state: AppState = Depends(get_state)) -> JobOut:
-    return job_out(_job(state, job_id))
+def get_job(job_id: str, request: Request, state: AppState = Depends(get_state)) -> JobOut:
+    return job_out(_job(state, job_id, request))
 
 
 @router.post("/{job_id}/cancel", response_model=JobOut, responses={404: {"model": ErrorOut}})
-def cancel_job(job_id: str, state: AppState = Depends(get_state)) -> JobOut:
-    job = _job(state, job_id)
+def cancel_job(job_id: str, request: Request, state: AppState = Depends(get_state)) -> JobOut:
+    job = _job(state, job_id, request)
     if job.status not in ("succeeded", "failed", "cancelled"):
         state.jobs.cancel(job_id)
     return job_out(_job(state, job_id))
@@ -66,9 +68,9 @@ def _items(state: AppState, job: JobRow, offset: int, limit: int | None):
 
 @router.get("/{job_id}/results", response_model=ResultsPage,
             responses={404: {"model": ErrorOut}, 409: {"model": ErrorOut}})
-def results_page(job_id: str, offset: int = Query(0, ge=0), limit: int = Query(1000, ge=1, le=10000),
-                 state: AppState = Depends(get_state)) -> ResultsPage:
-    job = _finished(state, job_id)
+def results_page(job_id: str, request: Request, offset: int = Query(0, ge=0),
+                 limit: int = Query(1000, ge=1, le=10000), state: AppState = Depends(get_state)) -> ResultsPage:
+    job = _finished(state, job_id, request)
     rows = [AmplitudeOut(bitstring=b, amplitude=(re, im), probability=re * re + im * im, cached=True)
             for b, re, im in _items(state, job, offset, limit)]
     return ResultsPage(job_id=job_id, offset=offset, limit=limit, total=len(job.bitstring_list()), results=rows)
@@ -88,12 +90,12 @@ def _stream(state: AppState, job: JobRow, fmt: str):
 
 
 @router.get("/{job_id}/results.ndjson", responses={404: {"model": ErrorOut}, 409: {"model": ErrorOut}})
-def results_ndjson(job_id: str, state: AppState = Depends(get_state)):
-    job = _finished(state, job_id)
+def results_ndjson(job_id: str, request: Request, state: AppState = Depends(get_state)):
+    job = _finished(state, job_id, request)
     return StreamingResponse(_stream(state, job, "ndjson"), media_type="application/x-ndjson")
 
 
 @router.get("/{job_id}/results.csv", responses={404: {"model": ErrorOut}, 409: {"model": ErrorOut}})
-def results_csv(job_id: str, state: AppState = Depends(get_state)):
-    job = _finished(state, job_id)
+def results_csv(job_id: str, request: Request, state: AppState = Depends(get_state)):
+    job = _finished(state, job_id, request)
     return StreamingResponse(_stream(state, job, "csv"), media_type="text/csv")

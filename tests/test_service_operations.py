@@ -1,0 +1,163 @@
+"""What an operator meets: job ownership under tokens, refusing a damaged database, shutting down
+without orphan processes, refusing to serve exposed without tokens, and oversized bodies.
+
+Expected behaviour is common practice for services (HTTP semantics from RFC 9110: 404 for a
+resource the caller may not see, 413 for content too large); SQLite's integrity check is its
+documented ``PRAGMA quick_check``.
+"""
+
+import json
+import os
+import signal
+import sqlite3
+import subprocess
+import sys
+import time
+
+import httpx
+import pytest
+from fastapi.testclient import TestClient
+
+from service.app import create_app
+from service.cli import main
+from service.db import DatabaseError, check_sqlite_file
+
+from .test_service import GHZ, RATE, make_settings
+from .test_service_process import free_port, start
+
+
+def test_jobs_belong_to_the_token_that_created_them(tmp_path):
+    s = make_settings(tmp_path, tokens="alice-token,bob-token", sync_threshold_seconds=0.0)
+    alice = {"Authorization": "Bearer alice-token"}
+    bob = {"Authorization": "Bearer bob-token"}
+    with TestClient(create_app(s)) as c:
+        r = c.post("/v1/amplitudes", json={"circuit": {"qasm": GHZ}, "bitstrings": ["000", "111"],
+                                           "engine": "batch"}, headers=alice)
+        assert r.status_code == 202, r.text
+        job = r.json()["job_id"]
+        assert c.get(f"/v1/jobs/{job}", headers=alice).status_code == 200
+        for path in (f"/v1/jobs/{job}", f"/v1/jobs/{job}/results", f"/v1/jobs/{job}/results.csv"):
+            assert c.get(path, headers=bob).status_code == 404
+        assert c.post(f"/v1/jobs/{job}/cancel", headers=bob).status_code == 404
+
+
+def _database_with_rows(tmp_path) -> None:
+    s = make_settings(tmp_path)                            # the database is tmp_path/data/veramp.sqlite
+    with TestClient(create_app(s)) as c:
+        for i in range(50):
+            c.post("/v1/circuits", json={"qasm": GHZ + f"// {i} " + "x" * 2000})
+
+
+def test_truncated_database_is_refused_and_left_alone(tmp_path):
+    data = tmp_path / "data"
+    db = data / "veramp.sqlite"
+    _database_with_rows(tmp_path)
+    for suffix in ("-wal", "-shm"):
+        if (data / f"veramp.sqlite{suffix}").exists():
+            os.remove(data / f"veramp.sqlite{suffix}")
+    blob = db.read_bytes()
+    db.write_bytes(blob[: len(blob) // 2])
+    before = db.read_bytes()
+    with pytest.raises(DatabaseError, match="veramp.sqlite"):
+        check_sqlite_file(f"sqlite:///{db}")
+    assert main(["serve", "--data-dir", str(data), "--port", str(free_port())]) == 2
+    assert db.read_bytes() == before                       # never overwritten
+
+
+def test_not_a_database_is_refused(tmp_path):
+    db = tmp_path / "veramp.sqlite"
+    db.write_bytes(b"this is a text file, not a database\n" * 100)
+    with pytest.raises(DatabaseError, match="not a usable SQLite database"):
+        check_sqlite_file(f"sqlite:///{db}")
+
+
+def test_zero_byte_database_starts_new_and_says_so(tmp_path):
+    db = tmp_path / "veramp.sqlite"
+    db.write_bytes(b"")
+    assert "empty file" in check_sqlite_file(f"sqlite:///{db}")
+    with sqlite3.connect(db) as conn:                      # it really is empty: a new database is fine
+        assert conn.execute("select count(*) from sqlite_master").fetchone()[0] == 0
+
+
+def test_exposed_host_without_tokens_is_refused_on_request(tmp_path, capsys):
+    code = main(["serve", "--host", "0.0.0.0", "--port", str(free_port()), "--data-dir", str(tmp_path),
+                 "--require-tokens"])
+    assert code == 2 and "without bearer tokens" in capsys.readouterr().err
+
+
+def _children(pid: int) -> set[int]:
+    """Every descendant process of ``pid`` (from /proc)."""
+    out, todo = set(), [pid]
+    while todo:
+        p = todo.pop()
+        try:
+            with open(f"/proc/{p}/task/{p}/children") as f:
+                kids = {int(x) for x in f.read().split()}
+        except OSError:
+            kids = set()
+        todo.extend(kids - out)
+        out |= kids
+    return out
+
+
+def _alive(pid: int) -> bool:
+    try:
+        with open(f"/proc/{pid}/stat") as f:
+            return f.read().split()[2] != "Z"
+    except OSError:
+        return False
+
+
+@pytest.mark.slow
+def test_sigterm_ends_every_worker_and_requeues_the_running_job(tmp_path):
+    from contraction.qasm_writer import write_qasm3
+    from contraction.random_circuits import grid_architecture, random_instance
+
+    data = tmp_path / "data"
+    data.mkdir()
+    (data / "calibration.json").write_text(json.dumps(RATE.to_dict()))
+    port = free_port()
+    proc = start(data, port)
+    c = random_instance(grid_architecture(4, 6, 8), 5)
+    bits = [format(i * 7919 % 2 ** 24, "024b") for i in range(200)]
+    r = httpx.post(f"http://127.0.0.1:{port}/v1/amplitudes", timeout=60,
+                   json={"circuit": {"qasm": write_qasm3(c)}, "bitstrings": bits, "engine": "single"})
+    job = r.json()["job_id"]
+    for _ in range(600):
+        if httpx.get(f"http://127.0.0.1:{port}/v1/jobs/{job}").json()["status"] == "running":
+            break
+        time.sleep(0.1)
+    kids = _children(proc.pid)
+    assert kids                                              # worker processes exist
+    proc.send_signal(signal.SIGTERM)
+    proc.wait(timeout=30)
+    time.sleep(1.0)
+    assert [k for k in kids if _alive(k)] == []              # no orphan outlives the server
+    with sqlite3.connect(data / "veramp.sqlite") as conn:
+        status = conn.execute("select status from jobs where id = ?", (job,)).fetchone()[0]
+    assert status == "queued"                                # resumes at the next start
+
+
+@pytest.mark.slow
+def test_oversized_bodies_get_413_from_a_real_server(tmp_path):
+    data = tmp_path / "data"
+    data.mkdir()
+    (data / "calibration.json").write_text(json.dumps(RATE.to_dict()))
+    port = free_port()
+    proc = start(data, port)
+    try:
+        url = f"http://127.0.0.1:{port}/v1/amplitudes"
+        big = b"a" * (40 * 2 ** 20)                          # over the 32 MiB default
+        r = httpx.post(url, content=big, headers={"content-type": "application/json"}, timeout=60)
+        assert r.status_code == 413 and r.json()["limit"] == "max_request_bytes"
+
+        def chunks():                                        # no declared length: counted while read
+            for _ in range(40):
+                yield b"a" * 2 ** 20
+
+        r = httpx.post(url, content=chunks(), headers={"content-type": "application/json"}, timeout=60)
+        assert r.status_code == 413
+        assert httpx.get(f"http://127.0.0.1:{port}/v1/health").status_code == 200
+    finally:
+        proc.send_signal(signal.SIGTERM)
+        proc.wait(timeout=30)
