@@ -8,9 +8,11 @@ cost queries on a plan are cheap: they read stored numbers.
 
 from __future__ import annotations
 
+import concurrent.futures as cf
 import hashlib
 import json
 import math
+import threading
 import time
 from dataclasses import asdict, dataclass, field
 
@@ -124,28 +126,33 @@ class Plan:
         return tree
 
 
-def _slice_inner(tree, target: int, minimize: str, deadline: float = math.inf):
+def _slice_inner(tree, target: int, minimize: str, deadline: float = math.inf, hard_deadline: float = math.inf):
     """Slice until the largest intermediate fits ``target``, reconfiguring subtrees between rounds
     while time is left before ``deadline`` (cotengra's slice-and-reconfigure, with a stop when no
-    inner index is left to slice). Past the deadline the rest is sliced in one greedy pass, so the
-    cap is met on time whenever it can be. Output indices (batch, open qubits) are never sliced:
-    slices are summed, and summing over an output index would add different amplitudes together."""
+    inner index is left to slice); past it, slicing goes on without reconfiguration until
+    ``hard_deadline``, where it stops and the caller reports the cap as not reached. Output indices
+    (batch, open qubits) are never sliced: slices are summed, and summing over an output index would
+    add different amplitudes together."""
     tree = tree.copy()
     while tree.max_size() > target:
+        now = time.perf_counter()
+        if now > hard_deadline:
+            break
         before = (tree.nslices, tree.max_size())
-        late = time.perf_counter() > deadline
         try:
-            if late:
-                tree.slice_(target_size=target, minimize=minimize, allow_outer=False, max_repeats=4)
-            else:
-                tree.slice_(target_slices=2, minimize=minimize, allow_outer=False, max_repeats=16)
+            tree.slice_(target_slices=2, minimize=minimize, allow_outer=False, max_repeats=16 if now < deadline else 2)
         except (KeyError, ValueError, RuntimeError):   # cotengra: no candidate index left to slice
             break
-        if not late and time.perf_counter() < deadline:
+        if time.perf_counter() < deadline:
             tree.subtree_reconfigure_(minimize=minimize, maxiter=64)
         if (tree.nslices, tree.max_size()) == before:
             break                     # nothing left to slice: the caller reports the cap as unreachable
     return tree
+
+
+def _excess(tree, target: float) -> float:
+    """log2 of how far the tree's largest intermediate is above ``target``."""
+    return math.log2(max(tree.max_size(), 1)) - math.log2(target)
 
 
 def _checksum(doc: dict) -> str:
@@ -189,14 +196,27 @@ class PlannerOptions:
     # contractions than "flops" despite 3x more multiply-adds (writes dominate on these machines)
     minimize: str = "combo"
     seed: int = 0
-    parallel: bool | int = False          # explicit: never 'auto'; an int is a number of processes
+    parallel: bool | int = False          # explicit: never 'auto'; an int > 1 is a number of processes
     simplify: bool = True                 # structure-only simplification before the search
 
     def to_dict(self) -> dict:
         return asdict(self)
 
 
-def _search(inputs, output, sizes, options: PlannerOptions, methods, deadline: float, target):
+#: a tree needing more than 2^48 slices is not sliced at all: it is not feasible on any machine this
+#: service runs on, and slicing it would take minutes of search for nothing
+MAX_SLICED_LOG2 = 48
+#: in-trial slicing when the greedy baseline's width is at most 2^12 times the target (measured: the
+#: 53-qubit 12-cycle network's baseline is 2^9 above a 2^28 target; a 63-qubit QFT's 2^36 above,
+#: where one trial sliced for 48 s)
+IN_TRIAL_SLICING_LOG2 = 12
+#: log2 of how far above the memory target a network's width may be for slicing with reconfiguration
+#: inside each search trial (beyond it, trials slice plainly so that each stays short)
+FAR_ABOVE_TARGET = 6
+
+
+def _search(inputs, output, sizes, options: PlannerOptions, methods, deadline: float, target, width_log2: float,
+            grace: float = 1.0):
     """The hyper-optimized search on (inputs, output, sizes) until ``deadline`` (a trial in flight
     finishes first). With a ``target`` every trial is scored after slicing to it, so the
     tree is chosen for the cap, not sliced after the fact."""
@@ -205,21 +225,59 @@ def _search(inputs, output, sizes, options: PlannerOptions, methods, deadline: f
     # slicing interleaved with subtree reconfiguration inside each trial: on the 53-qubit 12-cycle
     # network at a 2^28 target it reached 10^13.66 multiply-adds in 60 s against 10^13.91 with
     # plain slicing per trial (kahypar trials, two processes, measured in one session)
-    slicing = None if target is None else dict(target_size=target, allow_outer=False)
-    if target is not None and "kahypar" in methods:
-        methods = ["kahypar"]
-    opt = ctg.HyperOptimizer(
-        methods=methods, minimize=options.minimize, max_repeats=options.max_repeats, max_time=1.0,
-        parallel=options.parallel, reconf_opts=None, slicing_opts=None, slicing_reconf_opts=slicing,
-        progbar=False, on_trial_error="ignore",
-    )
+    # A trial must stay short (the deadline is only checked between trials): near the target, slicing
+    # alternates with a bounded subtree reconfiguration inside each trial; far above it (the greedy
+    # baseline's width 2^12 times the target or more) trials are scored unsliced and the best tree is
+    # sliced afterwards
+    slicing = slicing_reconf = None
+    if target is not None and width_log2 - math.log2(target) <= IN_TRIAL_SLICING_LOG2:
+        slicing_reconf = dict(target_size=target, allow_outer=False, reconf_opts=dict(maxiter=64))
+        if "kahypar" in methods:
+            methods = ["kahypar"]
+    workers = 0 if isinstance(options.parallel, bool) else int(options.parallel)
+    pool = cf.ProcessPoolExecutor(workers) if workers > 1 else None
+    try:
+        opt = ctg.HyperOptimizer(
+            methods=methods, minimize=options.minimize, max_repeats=options.max_repeats, max_time=1.0,
+            parallel=pool if pool is not None else options.parallel, reconf_opts=None, slicing_opts=slicing,
+            slicing_reconf_opts=slicing_reconf, progbar=False, on_trial_error="ignore",
+        )
+        return _run_search(opt, inputs, output, sizes, deadline, pool, grace)
+    finally:
+        if pool is not None:
+            pool.shutdown(wait=False, cancel_futures=True)
+
+
+def _run_search(opt, inputs, output, sizes, deadline: float, pool, grace: float):
+    """Run ``opt`` until ``deadline``; with a ``pool`` of worker processes, at most ``grace`` seconds
+    past it. Returns (best tree or None, trials done)."""
     # one call for the whole budget: splitting it into rounds lost most trials in flight when a round
     # ended (12 trials in 90 s against 34 in 60 s on the 53-qubit network)
     opt.max_time = max(0.05, deadline - time.perf_counter())
-    try:
-        best = opt.search(inputs, output, sizes)
-    except (ValueError, KeyError, RuntimeError):          # no trial finished in time
-        best = None
+    if pool is None:
+        try:
+            best = opt.search(inputs, output, sizes)
+        except (ValueError, KeyError, RuntimeError):      # no trial finished in time
+            best = None
+        return best, len(opt.scores)
+    # with worker processes the deadline is hard: trials still running shortly after it are ended
+    # (their processes terminated) and the best tree reported so far is kept
+    done: dict = {}
+
+    def run() -> None:
+        try:
+            done["tree"] = opt.search(inputs, output, sizes)
+        except Exception:                                 # no trial finished, or the pool was ended
+            pass
+
+    worker = threading.Thread(target=run, name="veramp-plan-search", daemon=True)
+    worker.start()
+    worker.join(max(0.0, deadline - time.perf_counter()) + grace)
+    if worker.is_alive():
+        for proc in list((getattr(pool, "_processes", None) or {}).values()):
+            proc.terminate()
+        worker.join(5.0)
+    best = done.get("tree") or (opt.best or {}).get("tree")
     trials = len(opt.scores)
     return best, trials
 
@@ -242,6 +300,8 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
 
     t0 = time.perf_counter()
     deadline = t0 + max(0.0, options.budget_seconds)
+    # slicing may run a little past the budget to reach the cap; never more than 5 % (plus 1 s)
+    hard_deadline = deadline + 0.05 * max(0.0, options.budget_seconds) + 1.0
     methods = ["greedy", "kahypar"] if kahypar_available() else ["greedy", "labels"]
     target = None if options.max_elements is None else max(2, int(options.max_elements))
     state = random.getstate()
@@ -259,8 +319,12 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
             reduced_tensors = len(inputs)
 
             def cost(t):
-                sl = t if target is None or t.max_size() <= target else _slice_inner(t, target, options.minimize, 0)
-                return sl.contraction_cost()
+                if target is None or t.max_size() <= target:
+                    return t.contraction_cost()
+                # far above the target, slicing only to compare would cost too much time: a lower bound
+                if _excess(t, target) > FAR_ABOVE_TARGET:
+                    return t.contraction_cost() * 2.0 ** _excess(t, target)
+                return _slice_inner(t, target, options.minimize, 0, hard_deadline).contraction_cost()
 
             if len(inputs) == 1:
                 best = None
@@ -273,7 +337,9 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
                 # 53 qubits: under 3 s after a 120 s search)
                 search_deadline = time.perf_counter() + 0.9 * (deadline - time.perf_counter())
                 if len(inputs) > 8 and search_deadline - time.perf_counter() > 0.1:
-                    found, trials = _search(inputs, output, sizes, options, methods, search_deadline, target)
+                    found, trials = _search(inputs, output, sizes, options, methods, search_deadline, target,
+                                            math.log2(max(best.max_size(), 1)),
+                                            grace=0.5 * (deadline - search_deadline))
                     if found is not None and cost(found) < cost(best):
                         best = found
             if red is not None:
@@ -284,10 +350,16 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
                     tree.remove_ind_(ix)
             else:
                 tree = best
-            if time.perf_counter() < deadline:
+            if time.perf_counter() < deadline and (target is None or _excess(tree, target) <= FAR_ABOVE_TARGET):
                 tree.subtree_reconfigure_(minimize=options.minimize, maxiter=256)
+            if target is not None and _excess(tree, target) > MAX_SLICED_LOG2:
+                raise MemoryLimitError(
+                    f"not feasible: the best tree found in {time.perf_counter() - t0:.3g} s has its largest "
+                    f"intermediate at 2^{math.log2(tree.max_size()):.0f} elements, so fitting the cap of "
+                    f"{options.max_elements:.3g} elements would take at least 2^{_excess(tree, target):.0f} slices of "
+                    f"10^{math.log10(max(tree.contraction_cost(), 1)):.1f} multiply-adds each")
             if target is not None and tree.max_size() > target:
-                tree = _slice_inner(tree, target, options.minimize, deadline)
+                tree = _slice_inner(tree, target, options.minimize, deadline, hard_deadline)
     finally:
         random.setstate(state)
     if target is not None and tree.max_size() > options.max_elements:

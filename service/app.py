@@ -124,6 +124,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
         manager = JobManager(settings, sessions, on_finish)
         app.state.veramp = AppState(settings, sessions, manager, metrics)
+        app.state.veramp.start_calibration()
         resumed = manager.resume()
         log.info(json.dumps({"event": "start", "version": __version__, "resumed_jobs": resumed,
                              "database": settings.sqlalchemy_url.split("://")[0]}))

@@ -158,7 +158,7 @@ def cmd_block(args) -> int:
     qubits = _qubit_list(args.qubits, circuit.num_qubits)
     fixed = args.fixed if args.fixed is not None else "0" * circuit.num_qubits
     r = block_amplitudes(circuit, qubits, fixed, engine=args.engine,
-                         planner=PlannerOptions(budget_seconds=settings.plan_budget_seconds),
+                         planner=PlannerOptions(budget_seconds=settings.plan_budget_seconds, parallel=settings.plan_processes),
                          plan_store=_plan_store(settings), memory_bytes=_memory(args, settings),
                          rate=_stored_rate(settings))
     _print_block(args, r.qubits, [complex(v) for v in r.values], ["amplitude_re", "amplitude_im"], r.engine,
@@ -174,7 +174,7 @@ def cmd_marginal(args) -> int:
     circuit = load_circuit_file(args.circuit)
     qubits = _qubit_list(args.qubits, circuit.num_qubits)
     r = marginal_probabilities(circuit, qubits, engine=args.engine,
-                               planner=PlannerOptions(budget_seconds=settings.plan_budget_seconds),
+                               planner=PlannerOptions(budget_seconds=settings.plan_budget_seconds, parallel=settings.plan_processes),
                                plan_store=_plan_store(settings), memory_bytes=_memory(args, settings),
                                rate=_stored_rate(settings))
     _print_block(args, r.qubits, [float(v) for v in r.values], ["probability"], r.engine, r.reason, r.wall_seconds)
@@ -207,7 +207,7 @@ def cmd_path(args) -> int:
     [bits] = check_bitstrings([args.bitstring], circuit.num_qubits)
     path = cayley_path(circuit, args.seed)
     thetas = _theta_list(args.thetas)
-    opts = dict(planner=PlannerOptions(budget_seconds=settings.plan_budget_seconds), plan_store=_plan_store(settings),
+    opts = dict(planner=PlannerOptions(budget_seconds=settings.plan_budget_seconds, parallel=settings.plan_processes), plan_store=_plan_store(settings),
                 memory_bytes=_memory(args, settings), workers=settings.workers)
     probs, engine = path_probabilities(path, bits, thetas, **opts)
     doc = {"bitstring": bits, "seed": args.seed, "engine": engine, "gate_dimension_sum": path.degree_bound,
@@ -266,7 +266,7 @@ def cmd_amplitudes(args) -> int:
         runner = DaskRunner(settings.dask_scheduler)
     try:
         run = amplitudes(circuit, _bitstrings(args), dtype=args.dtype, engine=args.engine,
-                         planner=PlannerOptions(budget_seconds=budget), plan_store=_plan_store(settings),
+                         planner=PlannerOptions(budget_seconds=budget, parallel=settings.plan_processes), plan_store=_plan_store(settings),
                          memory_bytes=_memory(args, settings), workers=settings.workers,
                          progress=ProgressBar(sys.stderr.isatty()), rate=_stored_rate(settings),
                          open_qubits=_qubit_list(args.open, circuit.num_qubits) if args.open else (),
@@ -314,7 +314,7 @@ def cmd_estimate(args) -> int:
     rate = load_or_measure(settings.calibration_path)
     budget = args.budget if args.budget is not None else settings.plan_budget_seconds
     est = estimate(circuit, args.bitstrings, dtype=args.dtype, engine=args.engine, rate=rate,
-                   planner=PlannerOptions(budget_seconds=budget), plan_store=_plan_store(settings),
+                   planner=PlannerOptions(budget_seconds=budget, parallel=settings.plan_processes), plan_store=_plan_store(settings),
                    memory_bytes=_memory(args, settings))
     doc = est.to_dict()
     if args.format == "json":
@@ -343,7 +343,7 @@ def cmd_plan(args) -> int:
     store = _plan_store(settings)
     structure = build_structure(circuit)
     before = store.get(structure.key)
-    options = PlannerOptions(budget_seconds=args.budget, max_repeats=10 ** 6, parallel=False)
+    options = PlannerOptions(budget_seconds=args.budget, parallel=_settings().plan_processes)
     plan, _tree, _hit = network_plan(structure, None, options, _memory(args, settings), args.dtype)
     kept = store.put(plan)
     best = store.get(structure.key)
@@ -419,7 +419,7 @@ def cmd_xeb(args) -> int:
     samples = read_bitstrings(_read_text(args.samples))
     if not samples:
         raise UsageError(f"{args.samples} holds no bitstrings")
-    run = amplitudes(circuit, samples, planner=PlannerOptions(budget_seconds=settings.plan_budget_seconds),
+    run = amplitudes(circuit, samples, planner=PlannerOptions(budget_seconds=settings.plan_budget_seconds, parallel=settings.plan_processes),
                      plan_store=_plan_store(settings), memory_bytes=settings.memory_bytes)
     probs = [r.probability for r in run.results]
     res = estimate_xeb(probs, circuit.num_qubits, bootstrap=args.bootstrap, seed=args.seed)

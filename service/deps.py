@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import json
 import threading
+import time
 from dataclasses import dataclass, field
 
 from fastapi import HTTPException, Request
@@ -32,14 +34,51 @@ class AppState:
     metrics: Metrics
     _rate: object = None
     _rate_lock: threading.Lock = field(default_factory=threading.Lock)
+    _calibrating: threading.Thread | None = None
+
+    def start_calibration(self) -> None:
+        """Read the stored machine rates, or measure them in a background thread (logged); requests
+        before it finishes use the nominal rates (see :meth:`rate_source`)."""
+        import logging
+
+        from contraction.calibration import MachineRate, load_or_measure
+
+        try:
+            self._rate = MachineRate.from_dict(json.loads(self.settings.calibration_path.read_text()))
+            return
+        except (OSError, ValueError, KeyError, TypeError):
+            pass
+        log = logging.getLogger("veramp.api")
+
+        def run() -> None:
+            t0 = time.perf_counter()
+            log.info(json.dumps({"event": "calibration", "state": "started"}))
+            rate = load_or_measure(self.settings.calibration_path)
+            with self._rate_lock:
+                self._rate = rate
+            log.info(json.dumps({"event": "calibration", "state": "done",
+                                 "seconds": round(time.perf_counter() - t0, 1)}))
+
+        self._calibrating = threading.Thread(target=run, name="veramp-calibration", daemon=True)
+        self._calibrating.start()
 
     def rate(self):
+        """The machine's measured rates, or conservative nominal ones while calibration runs."""
         from contraction.calibration import load_or_measure
+        from contraction.engine_choice import NOMINAL_RATE
 
         with self._rate_lock:
-            if self._rate is None:
-                self._rate = load_or_measure(self.settings.calibration_path)
+            if self._rate is not None:
+                return self._rate
+            if self._calibrating is not None:
+                return NOMINAL_RATE
+            self._rate = load_or_measure(self.settings.calibration_path)
             return self._rate
+
+    def rate_source(self) -> str:
+        """'measured', or 'nominal (calibration running)' for provenance."""
+        with self._rate_lock:
+            return "measured" if self._rate is not None or self._calibrating is None else "nominal (calibration running)"
 
 
 def owner_of(request: Request) -> str | None:

@@ -70,6 +70,7 @@ class Provenance(BaseModel):
     batch: int | None = None                # bitstrings per contraction
     chunks: int | None = None               # contractions run
     predicted_seconds: float | None = None
+    rates: str | None = None                # "measured", or "nominal (calibration running)"
 
 
 class AmplitudesOut(BaseModel):

@@ -24,6 +24,8 @@ class Settings(BaseSettings):
     memory_bytes: int = Field(8 * 2 ** 30, description="peak memory cap of one contraction")
     workers: int = Field(max(1, (os.cpu_count() or 1)), description="worker processes for contractions")
     plan_budget_seconds: float = Field(5.0, description="default planning budget")
+    plan_processes: int = Field(max(1, (os.cpu_count() or 1)), description="processes for the plan search of the "
+                                                                           "CLI (1: in the calling process)")
     # service limits
     max_qubits: int = 4096
     max_gates: int = 200_000

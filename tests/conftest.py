@@ -1,5 +1,11 @@
+import os
+
 import numpy as np
 import pytest
+
+# the CLI plans with one worker process per core by default; the networks in tests are small, so the
+# suite plans in the calling process (tests of the process pool set it themselves)
+os.environ.setdefault("VERAMP_PLAN_PROCESSES", "1")
 
 from contraction.planner import PlannerOptions
 

@@ -161,3 +161,33 @@ def test_oversized_bodies_get_413_from_a_real_server(tmp_path):
     finally:
         proc.send_signal(signal.SIGTERM)
         proc.wait(timeout=30)
+
+
+def test_first_request_does_not_wait_for_calibration(tmp_path, monkeypatch):
+    """No stored calibration: the service measures in the background; a request meanwhile is
+    answered with nominal rates and says so in its provenance."""
+    import threading
+
+    import contraction.calibration as cal
+
+    gate = threading.Event()
+
+    def slow_measure():
+        gate.wait(30)                          # hold the calibration until the request is answered
+        return RATE                            # (the real measurement takes ~25 s)
+
+    monkeypatch.setattr(cal, "measure", slow_measure)
+    d = tmp_path / "data"
+    d.mkdir()
+    from service.settings import Settings
+
+    s = Settings(data_dir=d, workers=1, plan_budget_seconds=0.3)
+    with TestClient(create_app(s)) as c:
+        r = c.post("/v1/amplitudes", json={"circuit": {"qasm": GHZ}, "bitstrings": ["111"]})
+        assert r.status_code == 200
+        assert r.json()["provenance"]["rates"] == "nominal (calibration running)"
+        gate.set()
+        c.app.state.veramp._calibrating.join(60)
+        r = c.post("/v1/amplitudes", json={"circuit": {"qasm": GHZ}, "bitstrings": ["000"]})
+        assert r.json()["provenance"]["rates"] == "measured"
+    assert (d / "calibration.json").exists()

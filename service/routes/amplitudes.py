@@ -24,7 +24,7 @@ def post_estimate(body: EstimateIn, state: AppState = Depends(get_state)) -> dic
     est = estimate(circuit, body.bitstrings, dtype=body.dtype, engine=body.engine, rate=state.rate(),
                    planner=PlannerOptions(budget_seconds=min(s.plan_budget_seconds, 2.0)),
                    plan_store=SqlPlanStore(state.sessions), memory_bytes=s.memory_bytes)
-    return {"circuit_id": circuit.content_hash, **est.to_dict()}
+    return {"circuit_id": circuit.content_hash, **est.to_dict(), "rates": state.rate_source()}
 
 
 def _predicted_seconds(state: AppState, circuit, k: int, dtype: str, engine: str) -> float | None:
@@ -102,7 +102,7 @@ def post_amplitudes(body: AmplitudesIn, response: Response, request: Request, st
                       plan_hash=stats["plan_hash"] or items[0].plan_hash, dtype=body.dtype,
                       wall_seconds=stats["wall_seconds"], computed=stats["computed"], cached=stats["cached"],
                       reason=stats.get("reason"), batch=stats.get("batch"), chunks=stats.get("chunks"),
-                      predicted_seconds=stats.get("predicted_seconds"))
+                      predicted_seconds=stats.get("predicted_seconds"), rates=state.rate_source())
     return AmplitudesOut(circuit_id=circuit.content_hash, provenance=prov, results=[
         AmplitudeOut(bitstring=i.bitstring, amplitude=(i.re, i.im), probability=i.probability, cached=i.cached)
         for i in items])

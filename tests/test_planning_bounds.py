@@ -1,0 +1,60 @@
+"""Planning stays within its time budget and says when a cap cannot be met.
+
+Limits are ours (budget + 10 %, common practice for a deadline with a small grace); the circuits are
+generated from their textbook definitions (see contraction/textbook_circuits.py for the sources).
+Time is measured but the assertions are on the answers, not on wall-clock speed: the budget is what
+the code promises to respect, so crossing it is a failure of the code, not of the machine.
+"""
+
+import time
+
+import pytest
+
+from contraction.engine_choice import NOMINAL_RATE
+from contraction.errors import MemoryLimitError
+from contraction.estimate import estimate
+from contraction.network import build_structure
+from contraction.planner import PlannerOptions, find_plan
+from contraction.simplify import simplify_structure
+from contraction.statevector import state_vector
+from contraction.textbook_circuits import qft, quantum_volume, ripple_carry_adder
+from contraction.amplitudes import amplitudes
+
+
+@pytest.mark.slow
+def test_estimate_of_a_wide_circuit_returns_within_its_budget():
+    budget = 4.0
+    t = time.perf_counter()
+    try:
+        est = estimate(qft(40), 1, engine="single", rate=NOMINAL_RATE,
+                       planner=PlannerOptions(budget_seconds=budget, parallel=2))
+        assert est.madds > 0
+    except MemoryLimitError as exc:                     # an honest "does not fit", with numbers
+        assert "elements" in str(exc)
+    assert time.perf_counter() - t <= 1.1 * budget + 1.0
+
+
+def test_simplification_keeps_amplitudes_exact():
+    """The structure-only steps are the first steps of the path: amplitudes of a ripple-carry adder
+    (Cuccaro et al. 2004: a = 1…1, b = 0101… gives b + a) and a quantum-volume circuit equal the
+    state vector's."""
+    add = ripple_carry_adder(4)
+    psi = state_vector(add)
+    top = format(int(abs(psi).argmax()), "09b")
+    run = amplitudes(add, [top], engine="single", planner=PlannerOptions(budget_seconds=0.5))
+    assert abs(run.results[0].amplitude - psi[int(top, 2)]) < 1e-12
+    qv = quantum_volume(10, 6, seed=3)
+    psi = state_vector(qv)
+    bits = ["0110100101", "1111100000"]
+    run = amplitudes(qv, bits, engine="single", planner=PlannerOptions(budget_seconds=0.5))
+    for r in run.results:
+        assert abs(r.amplitude - psi[int(r.bitstring, 2)]) < 1e-12
+
+
+def test_simplified_network_is_smaller_and_its_path_is_complete():
+    s = build_structure(quantum_volume(12, 8, seed=1))
+    red = simplify_structure(s)
+    assert red.num_tensors < s.num_tensors
+    plan = find_plan(s, PlannerOptions(budget_seconds=0.5))
+    assert len(plan.ssa_path) == s.num_tensors - 1            # one path over the whole network
+    assert plan.options["tensors_after_simplify"] == red.num_tensors
