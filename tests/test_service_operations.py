@@ -19,7 +19,6 @@ import pytest
 from fastapi.testclient import TestClient
 
 from service.app import create_app
-from service.cli import main
 from service.db import DatabaseError, check_sqlite_file
 
 from .test_service import GHZ, RATE, make_settings
@@ -44,23 +43,28 @@ def test_jobs_belong_to_the_token_that_created_them(tmp_path):
 def _database_with_rows(tmp_path) -> None:
     s = make_settings(tmp_path)                            # the database is tmp_path/data/veramp.sqlite
     with TestClient(create_app(s)) as c:
-        for i in range(50):
-            c.post("/v1/circuits", json={"qasm": GHZ + f"// {i} " + "x" * 2000})
+        for i in range(200):                               # distinct circuits: distinct rows
+            c.post("/v1/circuits", json={"qasm": GHZ + "".join(f"rz({i}.{k}) q[{k % 3}];\n" for k in range(20))})
 
 
 def test_truncated_database_is_refused_and_left_alone(tmp_path):
     data = tmp_path / "data"
     db = data / "veramp.sqlite"
     _database_with_rows(tmp_path)
+    with sqlite3.connect(db) as conn:                      # move everything from the log into the file
+        conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
     for suffix in ("-wal", "-shm"):
         if (data / f"veramp.sqlite{suffix}").exists():
             os.remove(data / f"veramp.sqlite{suffix}")
     blob = db.read_bytes()
+    assert len(blob) > 64 * 1024                           # many pages: half of them go missing
     db.write_bytes(blob[: len(blob) // 2])
     before = db.read_bytes()
     with pytest.raises(DatabaseError, match="veramp.sqlite"):
         check_sqlite_file(f"sqlite:///{db}")
-    assert main(["serve", "--data-dir", str(data), "--port", str(free_port())]) == 2
+    out = subprocess.run([sys.executable, "-m", "service.cli", "serve", "--data-dir", str(data), "--port",
+                          str(free_port())], capture_output=True, text=True, timeout=120)
+    assert out.returncode == 2 and "refusing to start" in out.stderr
     assert db.read_bytes() == before                       # never overwritten
 
 
@@ -79,10 +83,11 @@ def test_zero_byte_database_starts_new_and_says_so(tmp_path):
         assert conn.execute("select count(*) from sqlite_master").fetchone()[0] == 0
 
 
-def test_exposed_host_without_tokens_is_refused_on_request(tmp_path, capsys):
-    code = main(["serve", "--host", "0.0.0.0", "--port", str(free_port()), "--data-dir", str(tmp_path),
-                 "--require-tokens"])
-    assert code == 2 and "without bearer tokens" in capsys.readouterr().err
+def test_exposed_host_without_tokens_is_refused_on_request(tmp_path):
+    out = subprocess.run([sys.executable, "-m", "service.cli", "serve", "--host", "0.0.0.0", "--port",
+                          str(free_port()), "--data-dir", str(tmp_path), "--require-tokens"],
+                         capture_output=True, text=True, timeout=120, env={**os.environ, "VERAMP_TOKENS": ""})
+    assert out.returncode == 2 and "without bearer tokens" in out.stderr
 
 
 def _children(pid: int) -> set[int]:
@@ -108,16 +113,21 @@ def _alive(pid: int) -> bool:
         return False
 
 
+def _serve(tmp_path):
+    """A real server on a free loopback port, its calibration stored beforehand."""
+    data = tmp_path / "data"
+    data.mkdir()
+    (data / "calibration.json").write_text(json.dumps(RATE.to_dict()))
+    port = free_port()
+    return data, port, start(data, port)
+
+
 @pytest.mark.slow
 def test_sigterm_ends_every_worker_and_requeues_the_running_job(tmp_path):
     from contraction.qasm_writer import write_qasm3
     from contraction.random_circuits import grid_architecture, random_instance
 
-    data = tmp_path / "data"
-    data.mkdir()
-    (data / "calibration.json").write_text(json.dumps(RATE.to_dict()))
-    port = free_port()
-    proc = start(data, port)
+    data, port, proc = _serve(tmp_path)
     c = random_instance(grid_architecture(4, 6, 8), 5)
     bits = [format(i * 7919 % 2 ** 24, "024b") for i in range(200)]
     r = httpx.post(f"http://127.0.0.1:{port}/v1/amplitudes", timeout=60,
@@ -140,11 +150,7 @@ def test_sigterm_ends_every_worker_and_requeues_the_running_job(tmp_path):
 
 @pytest.mark.slow
 def test_oversized_bodies_get_413_from_a_real_server(tmp_path):
-    data = tmp_path / "data"
-    data.mkdir()
-    (data / "calibration.json").write_text(json.dumps(RATE.to_dict()))
-    port = free_port()
-    proc = start(data, port)
+    _data, port, proc = _serve(tmp_path)
     try:
         url = f"http://127.0.0.1:{port}/v1/amplitudes"
         big = b"a" * (40 * 2 ** 20)                          # over the 32 MiB default
