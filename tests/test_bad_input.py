@@ -60,7 +60,12 @@ QASM_CASES = [
     ("pow-huge-irrational", H3 + "pow(1e12) @ rx(0.3) q[0];", UnsupportedError, "not a rational multiple", 4),
     ("pow-infinite", H3 + "pow(1e400) @ h q[0];", ParseError, "out of range", 4),
     ("imaginary-literal", H3 + "rx(1im) q[0];", ParseError, "imaginary literals", 4),
-    ("loop-too-long", H3 + "for int i in [0:100000000000] { h q[0]; }", ParseError, "iterations", 4),
+    ("loop-too-long", H3 + "for int i in [0:100000000000] { h q[0]; }", ParseError, "re-read", 4),
+    ("subroutine-blowup", H3 + "def f0(qubit a) { }\n" + "".join(f"def f{k}(qubit a) {{ f{k - 1}(a); f{k - 1}(a); }}\n"
+                                                                 for k in range(1, 40)) + "f39(q[0]);", ParseError,
+     "re-read", None),
+    ("subroutine-recursion", H3 + "def f(qubit a) { f(a); }\nf(q[0]);", ParseError, "nested more than", 4),
+    ("subroutine-returning", H3 + "def f(qubit a) -> bit { h a; }", UnsupportedError, "return a value", 4),
     ("deep-definitions", H2 + "gate d0 a { h a; }\n" + "".join(f"gate d{k} a {{ d{k - 1} a; }}\n"
                                                                for k in range(1, 260)), ParseError, "nested", 204),
     ("classical-variable", H3 + "float x = 1.0;", UnsupportedError, "classical variables", 4),

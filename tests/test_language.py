@@ -172,8 +172,10 @@ barrier;
 barrier q[{0, 2}];
 cz both[0], both[3];
 gate rot(θ, φ) a { rz(θ) a; ry(φ) a; }
-rot(0.3, 0.2) q[0b1];
-cx q[0o2], q[0:3:3][1];
+def turn(qubit a, float t) { rot(t, 0.2) a; }
+turn(q[0b1], 0.3);
+def pair(qubit[2] p) { cx p[0], p[1]; }
+pair(q[{0o2, 3}]);
 c = measure q;
 """
 
@@ -192,7 +194,8 @@ cx q[2], q[3];
 def test_oq3_constructs_equal_the_unrolled_program():
     """for loops over ranges (end included, OpenQASM 3 §loops) and sets, const sizes, hex/binary/
     octal literals, let with ++, register slices, index sets, negative indices, box, delay and
-    barrier with durations, Unicode identifiers: the same state as the program written out."""
+    barrier with durations, Unicode identifiers, def subroutines that apply gates: the same state as
+    the program written out."""
     a = state_vector(load_circuit(LOOPED))
     b = state_vector(load_circuit(UNROLLED))
     assert np.allclose(a, b, atol=1e-14, rtol=0)
