@@ -287,10 +287,12 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
 
     Stages: structure-only simplification (:mod:`contraction.simplify`, its steps become the first
     steps of the path); a randomised-greedy baseline; a hyper-optimized search over trees (greedy and,
-    when installed, kahypar partitions) in which every trial is scored after slicing to the memory
-    target, using the whole budget; then a
-    subtree reconfiguration and slicing of the best tree, both stopped by the deadline. Raises
-    :class:`MemoryLimitError` when no tree within ``max_elements`` is found.
+    when installed, kahypar partitions) for 90 % of the budget, in which — when the baseline is within
+    2^12 of the memory target — every trial is scored after slicing to the target, so the tree is
+    chosen for the cap; then a subtree reconfiguration and slicing of the best tree, stopped by the
+    deadline (slicing may take 5 % + 1 s more). With ``parallel`` > 1 the deadline is hard: trials still
+    running are ended. Raises :class:`MemoryLimitError` when no tree within ``max_elements`` is found,
+    with the best figures found ("not feasible" when it would take more than 2^48 slices).
     """
     import random
 
