@@ -26,7 +26,7 @@ from .engine_choice import DEFAULT_MEMORY_BYTES, Choice, Option, choose, network
 from .errors import VerampError
 from .executor import CancelCheck, Progress, ProgressCallback, combine_scaled
 from .network import tensor_arrays
-from .parallel import Runner, Task, make_runner, split_slices
+from .parallel import ProcessRunner, Runner, Task, make_runner, split_slices
 from .plan_store import PlanStore
 from .planner import Plan, PlannerOptions
 from .statevector import state_vector
@@ -83,15 +83,20 @@ def amplitudes(circuit: Circuit, bitstrings: Iterable[str], *, dtype: str = "com
                runner: Runner | None = None, on_results: ResultsCallback | None = None,
                open_qubits: Sequence[int] = (),
                on_choice: Callable[[Choice], None] | None = None) -> AmplitudeRun:
-    """Exact amplitudes of ``circuit`` for ``bitstrings`` (qubit 0 first), in input order."""
+    """Exact amplitudes of ``circuit`` for ``bitstrings`` (qubit 0 first), in input order.
+
+    ``memory_bytes`` caps the whole run: with ``workers`` local processes each contraction is planned
+    within its share of it."""
     t0 = time.perf_counter()
     bits = check_bitstrings(bitstrings, circuit.num_qubits)
     dt = _dtype(dtype)
     unique = list(dict.fromkeys(bits))
     open_qubits = tuple(open_qubits)
     groups = _groups(unique, open_qubits)
+    local = runner.workers if runner is not None and isinstance(runner, ProcessRunner) else \
+        (workers if runner is None else 1)
     choice = choose(circuit, len(groups), engine=engine, dtype=dtype, rate=rate, store=plan_store,
-                    planner=planner, memory_bytes=memory_bytes, open_qubits=open_qubits)
+                    planner=planner, memory_bytes=memory_bytes, open_qubits=open_qubits, workers=local)
     if on_choice is not None:
         on_choice(choice)
     found: dict[str, complex] = {}

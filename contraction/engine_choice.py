@@ -181,12 +181,13 @@ def scheduled(engine: str, count: int, parts: dict[int, Option]) -> Option:
 def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "complex128",
            rate: MachineRate | None = None, store: PlanStore | None = None,
            planner: PlannerOptions | None = None, memory_bytes: float,
-           open_qubits: tuple[int, ...] = (), search: bool = True) -> Choice | None:
+           open_qubits: tuple[int, ...] = (), search: bool = True, workers: int = 1) -> Choice | None:
     """The fastest feasible way to get ``count`` distinct amplitudes, or ``count`` groups of
     bitstrings that share their bits outside ``open_qubits`` (or the forced way).
 
     With ``search=False`` nothing is planned: only stored plans are considered, and None is
-    returned when the network engines have none and the state vector is not an option."""
+    returned when the network engines have none and the state vector is not an option. ``workers``:
+    local processes that will contract slices at once; the cap is shared among them."""
     from .statevector import MAX_QUBITS as SV_MAX_QUBITS
 
     if engine not in ENGINES:
@@ -221,7 +222,10 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
     per_size = None if planner is None else replace(planner, budget_seconds=planner.budget_seconds / max(1, len(sizes)))
     for b in sizes:
         try:
-            planned[b] = network_option(circuit, b, dtype, rate, store, per_size, memory_bytes, open_qubits)
+            # ``workers`` local processes contract slices side by side, each with its own intermediates:
+            # each gets its share of the cap, so the run as a whole stays within ``memory_bytes``
+            planned[b] = network_option(circuit, b, dtype, rate, store, per_size, memory_bytes / max(1, workers),
+                                        open_qubits)
         except MemoryLimitError as exc:
             errors.append(f"{b} per contraction: {exc}")
         except NoStoredPlan:

@@ -21,7 +21,8 @@ class Settings(BaseSettings):
     database_url: str | None = Field(None, description="SQLAlchemy URL; default SQLite in data_dir")
     host: str = Field("127.0.0.1", description="listen address of `veramp serve`")
     port: int = Field(8350, description="port of `veramp serve`")
-    memory_bytes: int = Field(8 * 2 ** 30, description="peak memory cap of one contraction")
+    memory_bytes: int = Field(8 * 2 ** 30, description="peak memory cap of one run (local worker processes that "
+                                                       "contract slices side by side share it)")
     workers: int = Field(max(1, (os.cpu_count() or 1)), description="worker processes for contractions")
     plan_budget_seconds: float = Field(5.0, description="default planning budget")
     plan_processes: int = Field(max(1, (os.cpu_count() or 1)), description="processes for the plan search of the "

@@ -58,3 +58,18 @@ def test_simplified_network_is_smaller_and_its_path_is_complete():
     plan = find_plan(s, PlannerOptions(budget_seconds=0.5))
     assert len(plan.ssa_path) == s.num_tensors - 1            # one path over the whole network
     assert plan.options["tensors_after_simplify"] == red.num_tensors
+
+
+def test_local_workers_share_the_memory_cap():
+    """Two local processes contract slices side by side, each holding its own intermediates: each
+    contraction is planned within half the cap, so the run stays within it (common practice)."""
+    from contraction.random_circuits import grid_architecture, random_instance
+
+    c = random_instance(grid_architecture(4, 5, 8), 3)
+    bits = ["0" * 20]
+    opts = PlannerOptions(budget_seconds=0.5)
+    one = amplitudes(c, bits, engine="single", planner=opts, workers=1)
+    cap = one.plan.peak_bytes("complex128")                 # what one unsliced contraction needs
+    two = amplitudes(c, bits, engine="single", planner=opts, workers=2, memory_bytes=cap)
+    assert 2 * two.plan.peak_bytes("complex128") <= cap
+    assert abs(two.results[0].amplitude - state_vector(c)[0]) < 1e-12
