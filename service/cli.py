@@ -252,6 +252,37 @@ def cmd_path(args) -> int:
     return 0
 
 
+def cmd_path_study(args) -> int:
+    from contraction.bitstrings import check_bitstrings
+    from contraction.cayley import cayley_path
+    from contraction.rational_fit import extrapolation_study
+
+    circuit = load_circuit_file(args.circuit)
+    [bits] = check_bitstrings([args.bitstring], circuit.num_qubits)
+    path = cayley_path(circuit, args.seed)
+    deltas, noises = _theta_list(args.deltas), _theta_list(args.noise)
+    exact, cells = extrapolation_study(path, bits, deltas, noises, target=args.target, seed=args.seed)
+    doc = {"bitstring": bits, "seed": args.seed, "target": args.target, "probability": exact,
+           "fitted_degree": 2 * path.degree_bound, "gate_dimension_sum": path.degree_bound,
+           "cells": [c.__dict__ for c in cells]}
+    if args.plot:
+        from service.plots import study_plot
+
+        Path(args.plot).write_bytes(study_plot(exact, cells, args.target, "svg" if args.plot.endswith(".svg") else "png"))
+    if args.format == "json":
+        print(json.dumps(doc))
+        return 0
+    print(f"# p({args.target:g}) computed directly: {exact:.16e}; numerator degree {2 * path.degree_bound}")
+    print(f"{'delta':>8}  {'noise':>8}  {'recovered':>24}  {'error bound':>12}  {'actual error':>12}")
+    for c in cells:
+        if c.recovered is None:
+            print(f"{c.delta:>8.4g}  {c.noise:>8.2g}  {'declined':>24}  {'':>12}  {'':>12}  # {c.declined}")
+        else:
+            print(f"{c.delta:>8.4g}  {c.noise:>8.2g}  {c.recovered:>24.16e}  {c.error_bound:>12.3e}  "
+                  f"{c.actual_error:>12.3e}")
+    return 0
+
+
 def cmd_amplitudes(args) -> int:
     from contraction.amplitudes import amplitudes
     from contraction.planner import PlannerOptions
@@ -635,6 +666,20 @@ def build_parser() -> argparse.ArgumentParser:
     pa.add_argument("--format", choices=["table", "json"], default="table")
     pa.add_argument("--memory", metavar="SIZE", help="peak memory cap, e.g. 8GiB")
     pa.set_defaults(func=cmd_path)
+
+    ps = sub.add_parser("path-study", help="how well p(1) is determined by noisy samples on [0, delta]",
+                        description="For each delta and noise level: sample p at Chebyshev nodes on [0, delta], "
+                                    "add seeded relative noise, recover p at the target with its error bound "
+                                    "(or decline), and compare with p computed directly.")
+    ps.add_argument("circuit", help="OpenQASM 2/3 or veramp JSON file ('-' for stdin)")
+    ps.add_argument("--bitstring", "-b", required=True, metavar="B")
+    ps.add_argument("--seed", type=int, default=0, help="seed of the Haar deformations and of the noise")
+    ps.add_argument("--deltas", default="0.25,0.5,0.75,1", metavar="LIST", help="interval lengths (default 0.25,0.5,0.75,1)")
+    ps.add_argument("--noise", default="1e-12,1e-9,1e-6,1e-3", metavar="LIST", help="relative noise levels")
+    ps.add_argument("--target", type=float, default=1.0, help="theta to recover (default 1)")
+    ps.add_argument("--format", choices=["table", "json"], default="table")
+    ps.add_argument("--plot", metavar="FILE", help="write the figure (.png or .svg)")
+    ps.set_defaults(func=cmd_path_study)
 
     e = sub.add_parser("estimate", help="cost of a run, before computing it")
     e.add_argument("circuit")

@@ -92,3 +92,23 @@ def path_plot(thetas: Sequence[float], probabilities: Sequence[float], bitstring
     ax.set_title("Output probability along the Cayley path")
     ax.legend(fontsize=8)
     return _bytes(plt, fig, fmt)
+
+
+def study_plot(exact: float, cells, target: float, fmt: str = "png") -> bytes:
+    """Error bound (and actual error) of p(target) against the sampled interval's length delta, one
+    line per noise level; declined cells are drawn at the top edge."""
+    plt, (fig, ax) = _figure()
+    noises = sorted({c.noise for c in cells})
+    for eps in noises:
+        row = [c for c in cells if c.noise == eps]
+        ds = [c.delta for c in row]
+        rel = [(c.error_bound / abs(exact)) if c.recovered is not None and exact else float("nan") for c in row]
+        ax.plot(ds, rel, "o-", label=f"bound, noise {eps:g}")
+        act = [(c.actual_error / abs(exact)) if c.recovered is not None and exact else float("nan") for c in row]
+        ax.plot(ds, act, "x:", color=ax.lines[-1].get_color(), label=f"actual, noise {eps:g}")
+    ax.set_yscale("log")
+    ax.set_xlabel("δ: samples on [0, δ]")
+    ax.set_ylabel(f"relative error of p({target:g})")
+    ax.set_title("Extrapolation along the Cayley path (missing points: declined)")
+    ax.legend(fontsize=7)
+    return _bytes(plt, fig, fmt)

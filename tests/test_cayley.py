@@ -196,3 +196,20 @@ def test_extended_precision_samples_match_double(tiny):
     pm = path_probabilities_mp(tiny, "10", near, dps=40)
     pd, _ = path_probabilities(tiny, "10", near)
     assert max(abs(float(a) - b) for a, b in zip(pm, pd)) < 1e-14
+
+
+def test_extrapolation_study_is_honest_in_every_cell(tiny, tmp_path):
+    """The study table: every (delta, noise) cell either declines or holds within its bound, and for
+    a fixed noise the bound does not shrink as the sampled interval [0, delta] gets shorter (the
+    Lebesgue function of extrapolation grows with the distance, Trefethen ATAP ch. 15)."""
+    from contraction.rational_fit import extrapolation_study
+    from service.plots import study_plot
+
+    exact, cells = extrapolation_study(tiny, "10", [0.3, 0.6, 1.0], [1e-12, 1e-6], max_relative_error=1.0)
+    assert len(cells) == 6
+    for c in cells:
+        assert (c.recovered is None and c.declined) or c.actual_error <= c.error_bound
+    for eps in (1e-12, 1e-6):
+        bounds = [c.error_bound for c in cells if c.noise == eps]          # delta = 0.3, 0.6, 1.0
+        assert all(b is not None for b in bounds) and bounds[0] >= bounds[1] >= bounds[2]
+    assert study_plot(exact, cells, 1.0)[:8] == b"\x89PNG\r\n\x1a\n"
