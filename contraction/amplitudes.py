@@ -93,8 +93,8 @@ def amplitudes(circuit: Circuit, bitstrings: Iterable[str], *, dtype: str = "com
     unique = list(dict.fromkeys(bits))
     open_qubits = tuple(open_qubits)
     groups = _groups(unique, open_qubits)
-    local = runner.workers if runner is not None and isinstance(runner, ProcessRunner) else \
-        (workers if runner is None else 1)
+    # local processes contracting side by side share the memory cap (a Dask runner's do not)
+    local = runner.workers if isinstance(runner, ProcessRunner) else (workers if runner is None else 1)
     choice = choose(circuit, len(groups), engine=engine, dtype=dtype, rate=rate, store=plan_store,
                     planner=planner, memory_bytes=memory_bytes, open_qubits=open_qubits, workers=local)
     if on_choice is not None:

@@ -112,8 +112,6 @@ _EIGENPHASE_ERROR = 1e-15
 
 def _snapped(phase: float) -> Fraction | None:
     """``phase/π`` as an exact fraction p/q (q <= 64) when it is within 1e-12 of one, else None."""
-    from fractions import Fraction
-
     x = phase / math.pi
     f = Fraction(x).limit_denominator(_MAX_DENOMINATOR)
     return f if abs(float(f) - x) <= _SNAP else None
@@ -129,8 +127,6 @@ def power(matrix: np.ndarray, exponent: float) -> np.ndarray:
     exact integer arithmetic, so ``pow(1e308) @ h`` is exactly the identity. Other phases are
     multiplied in floating point; when the error that carries (k·1e-15) would exceed 1e-9, a
     :class:`ValueError` is raised instead of returning an inaccurate matrix."""
-    from fractions import Fraction
-
     exponent = float(exponent)
     if not math.isfinite(exponent):
         raise ValueError(f"the exponent {exponent} is not a finite number")

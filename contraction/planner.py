@@ -210,26 +210,24 @@ MAX_SLICED_LOG2 = 48
 #: 53-qubit 12-cycle network's baseline is 2^9 above a 2^28 target; a 63-qubit QFT's 2^36 above,
 #: where one trial sliced for 48 s)
 IN_TRIAL_SLICING_LOG2 = 12
-#: log2 of how far above the memory target a network's width may be for slicing with reconfiguration
-#: inside each search trial (beyond it, trials slice plainly so that each stays short)
+#: log2 of how far above the memory target a tree may be for the final reconfiguration and for
+#: comparing trees by their sliced cost (beyond it the unsliced cost times the slices is the measure)
 FAR_ABOVE_TARGET = 6
 
 
 def _search(inputs, output, sizes, options: PlannerOptions, methods, deadline: float, target, width_log2: float,
             grace: float = 1.0):
-    """The hyper-optimized search on (inputs, output, sizes) until ``deadline`` (a trial in flight
-    finishes first). With a ``target`` every trial is scored after slicing to it, so the
-    tree is chosen for the cap, not sliced after the fact."""
+    """The hyper-optimized search on (inputs, output, sizes) until ``deadline`` (see
+    :func:`_run_search`). When the greedy baseline's width is within 2^12 of ``target``, every trial
+    is scored after slicing to it, so the tree is chosen for the cap, not sliced after the fact."""
     import cotengra as ctg
 
-    # slicing interleaved with subtree reconfiguration inside each trial: on the 53-qubit 12-cycle
-    # network at a 2^28 target it reached 10^13.66 multiply-adds in 60 s against 10^13.91 with
-    # plain slicing per trial (kahypar trials, two processes, measured in one session)
-    # A trial must stay short (the deadline is only checked between trials): near the target, slicing
-    # alternates with a bounded subtree reconfiguration inside each trial; far above it (the greedy
-    # baseline's width 2^12 times the target or more) trials are scored unsliced and the best tree is
-    # sliced afterwards
-    slicing = slicing_reconf = None
+    # slicing interleaved with a bounded subtree reconfiguration inside each trial: on the 53-qubit
+    # 12-cycle network at a 2^28 target it reached 10^13.66 multiply-adds in 60 s against 10^13.91
+    # with plain slicing per trial (kahypar trials, two processes, measured in one session). Far above
+    # the target trials are scored unsliced (one trial sliced for 48 s there) and the best tree is
+    # sliced afterwards.
+    slicing_reconf = None
     if target is not None and width_log2 - math.log2(target) <= IN_TRIAL_SLICING_LOG2:
         slicing_reconf = dict(target_size=target, allow_outer=False, reconf_opts=dict(maxiter=64))
         if "kahypar" in methods:
@@ -239,7 +237,7 @@ def _search(inputs, output, sizes, options: PlannerOptions, methods, deadline: f
     try:
         opt = ctg.HyperOptimizer(
             methods=methods, minimize=options.minimize, max_repeats=options.max_repeats, max_time=1.0,
-            parallel=pool if pool is not None else options.parallel, reconf_opts=None, slicing_opts=slicing,
+            parallel=pool if pool is not None else options.parallel, reconf_opts=None, slicing_opts=None,
             slicing_reconf_opts=slicing_reconf, progbar=False, on_trial_error="ignore",
         )
         return _run_search(opt, inputs, output, sizes, deadline, pool, grace)

@@ -162,10 +162,10 @@ def number_value(text: str, pos: int, src: Source) -> float:
     """A numeric literal as a finite double (decimal, or 0x/0o/0b integers); out of range is an error."""
     clean = text.replace("_", "")
     low = clean.lower()
-    if low.startswith(("0x", "0o", "0b")):
-        value = float(int(clean, 0))  # may raise OverflowError for > 1.8e308
-    else:
-        value = float(clean)
+    try:
+        value = float(int(clean, 0)) if low.startswith(("0x", "0o", "0b")) else float(clean)
+    except OverflowError:                 # an integer literal past the largest double
+        value = math.inf
     if not math.isfinite(value):
         raise src.error(f"the number {text} is out of range (larger than a double, 1.8e308)", pos)
     return value

@@ -96,8 +96,9 @@ class QasmReader(ExpressionParser):
         self.touched: set[int] = set()
         self.sink = _Sink([], top=True)
         self.aliases: dict[str, list[int]] = {}       # 'let' names -> qubits
-        self.loop_iterations = 0
-        self.subroutines: dict[str, tuple[list[tuple[str, str, int]], int, int]] = {}   # name -> (params, body, pos)
+        self.reread_tokens = 0                        # tokens re-read by loops and subroutine calls
+        # name -> (parameters, first token of the body, first token after it)
+        self.subroutines: dict[str, tuple[list[tuple[str, str, int]], int, int]] = {}
         self.call_depth = 0
 
     # ------------------------------------------------------------------ helpers
@@ -424,7 +425,7 @@ class QasmReader(ExpressionParser):
         if self.toks[self.i][1] != "{":
             raise self._err("a loop body in braces is expected", self.toks[self.i][2])
         body = self.i
-        self._count_iterations(len(values), pos, body)
+        self._count_reread(len(values) * (self._matching_brace(body) - body), pos)
         saved = self.consts.get(var)
         shadow = var in self.consts
         end = None
@@ -473,10 +474,10 @@ class QasmReader(ExpressionParser):
             raise self._err("a subroutine body in braces is expected", self.toks[self.i][2])
         body = self.i
         self.i = self._matching_brace(body)
-        self.subroutines[name] = (params, body, npos)
+        self.subroutines[name] = (params, body, self.i)
 
     def _subroutine_call(self, name: str, pos: int) -> None:
-        params, body, _ = self.subroutines[name]
+        params, body, end = self.subroutines[name]
         self.i += 1
         self.expect("(")
         args: list = []
@@ -495,7 +496,7 @@ class QasmReader(ExpressionParser):
         self.call_depth += 1
         if self.call_depth > MAX_CALL_DEPTH:
             raise self._err(f"subroutine calls nested more than {MAX_CALL_DEPTH} deep", pos)
-        self._count_iterations(1, pos, body)       # calls count like loop iterations (bounded work)
+        self._count_reread(end - body, pos)        # calls count like loop iterations (bounded work)
         saved = (dict(self.aliases), dict(self.consts), self.i)
         for (ty, pname, _size), value in zip(params, args):
             if ty == "qubit":
@@ -507,16 +508,15 @@ class QasmReader(ExpressionParser):
         self.aliases, self.consts, self.i = saved[0], saved[1], saved[2]
         self.call_depth -= 1
 
-    def _count_iterations(self, count: int, pos: int, body: int | None = None) -> None:
-        """Bound the work of re-reading bodies: loop iterations and subroutine calls times the tokens
-        of the body they re-read, at most one token per allowed gate (re-reading runs at about 7 µs
+    def _count_reread(self, tokens: int, pos: int) -> None:
+        """Bound the work of re-reading bodies: the tokens that loop iterations and subroutine calls
+        re-read, at most one per allowed gate (re-reading runs at about 7 µs
         per token, so the default 200,000 bounds it to about 1.5 s; a loop-written circuit of 53 qubits
         and 20 cycles re-reads some 30,000 tokens)."""
-        size = 1 if body is None else max(1, self._matching_brace(body) - body)
-        self.loop_iterations += count * size
+        self.reread_tokens += tokens
         limit = self.max_gates
-        if self.loop_iterations > limit:
-            raise self._err(f"loops and subroutine calls re-read {self.loop_iterations:,} tokens, over the limit of "
+        if self.reread_tokens > limit:
+            raise self._err(f"loops and subroutine calls re-read {self.reread_tokens:,} tokens, over the limit of "
                             f"{limit:,} (one per allowed gate)", pos, GateLimitError)
 
     def _matching_brace(self, at: int) -> int:
@@ -735,13 +735,7 @@ class QasmReader(ExpressionParser):
                     raise self._err(f"gate {name!r} expands to {d.emitted:,} gates, over the limit of "
                                     f"{self.max_gates:,}", pos, GateLimitError)
                 local = _Sink([])
-                env = dict(self.consts)
-                env.update(zip(d.params, params))
-                for bmods, bname, bexprs, bargs, bpos, callee in d.body:
-                    bq = tuple(d.qargs.index(a) for a in bargs)
-                    bp = [evaluate(e, env, self.src) for e in bexprs]
-                    bm = [(w, None if a is None else evaluate(a, env, self.src), p) for w, a, p in bmods]
-                    self._apply(bname, bp, bq, bm, bpos, local, callee)
+                self._apply(name, params, tuple(range(len(d.qargs))), [], pos, local, d)   # on local qubits
                 self._composed[key] = compose(len(d.qargs), local.gates, local.phase)
             return self._composed[key]
         if name == "U":

@@ -80,23 +80,28 @@ class Fit:
         """[T_j(u(theta)) / D(theta)] for j = 0..degree, as an arb_mat 1 x (degree+1)."""
         from flint import arb, arb_mat
 
-        a, b = self.domain
-        u = (2 * arb(theta) - (arb(a) + arb(b))) / (arb(b) - arb(a))
         den = arb(1)
         t2 = arb(theta) * arb(theta)
         for l2 in self.lam2:
             den *= 1 + t2 * arb(float(l2))
-        ts = [arb(1), u]
-        while len(ts) < self.degree + 1:
-            ts.append(2 * u * ts[-1] - ts[-2])
-        return arb_mat([[ts[j] / den for j in range(self.degree + 1)]])
+        return arb_mat([[t / den for t in _chebyshev(theta, self.domain, self.degree)]])
 
-    def weights(self, theta: float):
-        """w(theta) with p~(theta) = sum_i w_i p_i (arb_mat 1 x K)."""
-        return self.row(theta) * self.gram_inv_bt
+    def weights_and_value(self, theta: float):
+        """(w(theta), p~(theta)) with p~(theta) = sum_i w_i p_i: w as an arb_mat 1 x K, p~ an arb."""
+        r = self.row(theta)
+        return r * self.gram_inv_bt, (r * self.coef)[0, 0]
 
-    def value(self, theta: float):
-        return (self.row(theta) * self.coef)[0, 0]
+
+def _chebyshev(theta: float, domain: tuple[float, float], degree: int) -> list:
+    """T_0..T_degree at theta mapped from ``domain`` to [-1, 1] (three-term recurrence, arb balls)."""
+    from flint import arb
+
+    a, b = domain
+    u = (2 * arb(theta) - (arb(a) + arb(b))) / (arb(b) - arb(a))
+    ts = [arb(1), u]
+    while len(ts) < degree + 1:
+        ts.append(2 * u * ts[-1] - ts[-2])
+    return ts[:degree + 1]
 
 
 def _fit(nodes: np.ndarray, samples: np.ndarray, degree: int, lam2: np.ndarray, bits: int,
@@ -197,8 +202,7 @@ def recover(nodes: Sequence[float], samples: Sequence[float], lam2: Sequence[flo
                 hidden = max(0, t - len(corrupted))
                 values, bounds, reasons, fine = [], [], [], True
                 for th in targets:
-                    v = fit.value(th)
-                    w = fit.weights(th)
+                    w, v = fit.weights_and_value(th)
                     absw = np.array([abs(float(w[0, i].mid())) for i in range(len(keep))])
                     amp = float(absw @ delta[keep])
                     if hidden:
@@ -241,9 +245,8 @@ def _check_residuals(fit: Fit, x, y, delta, keep, t: int) -> tuple[list[int], np
     position = {int(j): n for n, j in enumerate(keep)}
     unseen = np.zeros(len(keep))
     for i in range(len(x)):
-        w = fit.weights(float(x[i]))
+        w, v = fit.weights_and_value(float(x[i]))
         spread = sum(abs(float(w[0, j].mid())) * float(dj) for j, dj in enumerate(deltas))
-        v = fit.value(float(x[i]))
         if float(v.rad()) > ARITHMETIC_SHARE * (spread + delta[i]):
             raise _Singular()                # not precise enough yet: the caller tries more bits
         resid = abs(float(v.mid()) - y[i])
@@ -268,10 +271,7 @@ def _locate(x, y, d: int, t: int, lam2, bits: int, domain) -> list[int]:
     rows, rhs = [], []
     for ti, yi in zip(x, y):
         r = f.row(float(ti)).entries()                        # T_j / D, j <= d + t
-        u = (2 * arb(float(ti)) - (arb(a) + arb(b))) / (arb(b) - arb(a))
-        ts = [arb(1), u]
-        while len(ts) < t + 1:
-            ts.append(2 * u * ts[-1] - ts[-2])
+        ts = _chebyshev(float(ti), domain, t)                 # T_j, j <= t
         rows.append(list(r) + [-arb(float(yi)) * ts[j] for j in range(t)])
         rhs.append([arb(float(yi)) * ts[t]])
     m = arb_mat(rows)

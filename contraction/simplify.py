@@ -108,9 +108,6 @@ def simplify_structure(structure: NetworkStructure) -> Simplified:
             where[ix].add(new)
         pre.append((a, b))
         push_neighbours(new)
-    if len(terms) < 2 and len(structure.inputs) > 1 and pre:
-        # keep at least two tensors for the search: undo nothing, just let the path end here
-        pass
     ids = tuple(sorted(terms))
     return Simplified(tuple(terms[i] for i in ids), structure.output, sizes, tuple(pre), ids,
                       len(structure.inputs))

@@ -104,13 +104,16 @@ class GuardMiddleware:
                                  "status": status[0], "ms": round(dt * 1000, 2)}))
 
 
-def create_app(settings: Settings | None = None) -> FastAPI:
+def create_app(settings: Settings | None = None, database_checked: bool = False) -> FastAPI:
+    """The application. Its start-up refuses a damaged SQLite file unless the caller
+    (``veramp serve``) has already checked it (``database_checked``)."""
     settings = settings or Settings()
 
     @asynccontextmanager
     async def lifespan(app: FastAPI):
         settings.data_dir.mkdir(parents=True, exist_ok=True)
-        note = check_sqlite_file(settings.sqlalchemy_url)      # raises DatabaseError: refuse to start
+        # raises DatabaseError: refuse to start
+        note = None if database_checked else check_sqlite_file(settings.sqlalchemy_url)
         if note:
             log.warning(json.dumps({"event": "database", "note": note}))
         sessions = session_factory(make_engine(settings.sqlalchemy_url))

@@ -374,7 +374,7 @@ def cmd_plan(args) -> int:
     store = _plan_store(settings)
     structure = build_structure(circuit)
     before = store.get(structure.key)
-    options = PlannerOptions(budget_seconds=args.budget, parallel=_settings().plan_processes)
+    options = PlannerOptions(budget_seconds=args.budget, parallel=settings.plan_processes)
     plan, _tree, _hit = network_plan(structure, None, options, _memory(args, settings), args.dtype)
     kept = store.put(plan)
     best = store.get(structure.key)
@@ -409,9 +409,11 @@ def cmd_serve(args) -> int:
     from service.db import DatabaseError, check_sqlite_file
 
     try:
-        check_sqlite_file(settings.sqlalchemy_url)
+        note = check_sqlite_file(settings.sqlalchemy_url)
     except DatabaseError as exc:
         raise UsageError(f"refusing to start: {exc}") from None
+    if note:
+        logging.getLogger("veramp.api").warning(json.dumps({"event": "database", "note": note}))
     host = args.host or settings.host
     if host not in ("127.0.0.1", "localhost", "::1") and not settings.token_set():
         if args.require_tokens:
@@ -420,7 +422,7 @@ def cmd_serve(args) -> int:
         logging.getLogger("veramp.api").warning(
             "WARNING: serving on %s without bearer tokens: anyone who can reach this address can submit work "
             "and read every job; set VERAMP_TOKENS (or use --require-tokens to refuse this)", host)
-    uvicorn.run(create_app(settings), host=host, port=args.port or settings.port, log_level="warning",
+    uvicorn.run(create_app(settings, database_checked=True), host=host, port=args.port or settings.port, log_level="warning",
                 timeout_graceful_shutdown=5)
     return 0
 

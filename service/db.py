@@ -129,9 +129,8 @@ def _migrate(engine: Engine) -> None:
 
 
 def make_engine(url: str) -> Engine:
-    """An engine for ``url`` with the tables in place; SQLite files are checked first (see
-    :func:`check_sqlite_file`)."""
-    check_sqlite_file(url)
+    """An engine for ``url`` with the tables in place. Called by every job's worker process, so the
+    integrity check (:func:`check_sqlite_file`) is not here but at start-up."""
     kwargs: dict = {}
     if url.startswith("sqlite"):
         kwargs["connect_args"] = {"check_same_thread": False, "timeout": 30}

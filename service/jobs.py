@@ -127,6 +127,7 @@ class JobManager:
         self.on_finish = on_finish
         self._lock = threading.Lock()
         self._active: dict[str, cf.Future] = {}
+        self._closing = False                   # set by shutdown(): dying workers are not failures then
         self.pool = cf.ProcessPoolExecutor(max_workers=max(1, settings.workers),
                                            mp_context=mp.get_context("forkserver"), initializer=_init_worker)
 
@@ -158,7 +159,7 @@ class JobManager:
     def _done(self, job_id: str, fut: cf.Future) -> None:
         with self._lock:
             self._active.pop(job_id, None)
-        if getattr(self, "_closing", False):
+        if self._closing:
             return                  # shutting down: the job was put back in the queue, not failed
         if not fut.cancelled() and isinstance(fut.exception(), cf.process.BrokenProcessPool):
             # a worker died (killed, out of memory): fail the job with the reason, keep serving

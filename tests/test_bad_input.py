@@ -55,6 +55,7 @@ QASM_CASES = [
      + "g10 q[0];", ParseError, "exceeds the limit of", 15),
     ("deep-parentheses", H2 + "rx(" + "(" * 1000 + "1" + ")" * 1000 + ") q[0];", ParseError, "nested more than", 4),
     ("huge-literal", H2 + "rx(1e400) q[0];", ParseError, "out of range", 4),
+    ("huge-hex-literal", H2 + "rx(0x" + "f" * 300 + ") q[0];", ParseError, "out of range", 4),
     ("huge-product", H2 + "rx(1e300*1e300) q[0];", ParseError, "finite", 4),
     ("ctrl-20", H3 + "ctrl(20) @ x q[0], q[1];", UnsupportedError, "at most 10 qubits", 4),
     ("pow-huge-irrational", H3 + "pow(1e12) @ rx(0.3) q[0];", UnsupportedError, "not a rational multiple", 4),

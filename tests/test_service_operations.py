@@ -81,6 +81,12 @@ def test_zero_byte_database_starts_new_and_says_so(tmp_path):
     assert "empty file" in check_sqlite_file(f"sqlite:///{db}")
     with sqlite3.connect(db) as conn:                      # it really is empty: a new database is fine
         assert conn.execute("select count(*) from sqlite_master").fetchone()[0] == 0
+    # and the service then uses that very file (it is not replaced): the circuit lands in it
+    s = make_settings(tmp_path, database_url=f"sqlite:///{db}")
+    with TestClient(create_app(s)) as c:
+        assert c.post("/v1/circuits", json={"qasm": GHZ}).status_code == 201
+    with sqlite3.connect(db) as conn:
+        assert conn.execute("select count(*) from circuits").fetchone()[0] == 1
 
 
 def test_exposed_host_without_tokens_is_refused_on_request(tmp_path):

@@ -24,12 +24,12 @@ def job_out(job: JobRow) -> JobOut:
                   provenance=json.loads(job.provenance) if job.provenance else None)
 
 
-def _job(state: AppState, job_id: str, request: Request | None = None) -> JobRow:
+def _job(state: AppState, job_id: str, request: Request) -> JobRow:
     """The job, if it exists and belongs to the caller's token (another token's job is a 404, as if
     it did not exist)."""
     with state.sessions() as s:
         job = s.get(JobRow, job_id)
-    if job is None or (request is not None and job.owner is not None and job.owner != owner_of(request)):
+    if job is None or (job.owner is not None and job.owner != owner_of(request)):
         raise HTTPException(404, f"no job with id {job_id}")
     return job
 
@@ -51,7 +51,7 @@ def cancel_job(job_id: str, request: Request, state: AppState = Depends(get_stat
     job = _job(state, job_id, request)
     if job.status not in ("succeeded", "failed", "cancelled"):
         state.jobs.cancel(job_id)
-    return job_out(_job(state, job_id))
+    return job_out(_job(state, job_id, request))
 
 
 def _items(state: AppState, job: JobRow, offset: int, limit: int | None):
