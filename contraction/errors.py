@@ -1,8 +1,9 @@
-"""Typed errors of the engine.
+"""Typed errors of the engine and the service: one hierarchy.
 
-Every error a user can cause by bad input derives from :class:`VerampError`, carries a
-one-line message and, for circuit text, the line and column where the problem is. The
-service maps these to 4xx responses and the CLI prints them as one line on stderr.
+Every error a user can cause derives from :class:`VerampError`, carries a one-line message, a
+machine-readable ``kind`` and, for circuit text, the line and column where the problem is. The
+service maps ``kind`` to an HTTP status in one place (``service/errors.py``) and the CLI prints
+the message as one line on stderr. :class:`Cancelled` is the one exception that is not an error.
 """
 
 from __future__ import annotations
@@ -60,6 +61,47 @@ class UnsupportedError(ParseError):
     kind = "unsupported"
 
 
+class LimitError(VerampError):
+    """A request over a configured limit (``limit`` names the setting)."""
+
+    kind = "limit_exceeded"
+
+    def __init__(self, limit: str, message: str):
+        super().__init__(message)
+        self.limit = limit
+
+    def to_dict(self) -> dict:
+        out = super().to_dict()
+        out["limit"] = self.limit
+        return out
+
+
+class NotFound(VerampError):
+    """A stored circuit, job or result that does not exist (or is not the caller's)."""
+
+    kind = "not_found"
+
+
+class Conflict(VerampError):
+    """A request that cannot be answered in the resource's present state (e.g. a job still running)."""
+
+    kind = "conflict"
+
+    def __init__(self, message: str, limit: str | None = None):
+        super().__init__(message)
+        self.limit = limit
+
+
+class Busy(VerampError):
+    """The job queue is full: retry after ``retry_after`` seconds."""
+
+    kind = "queue_full"
+
+    def __init__(self, retry_after: int):
+        super().__init__("the job queue is full; retry later")
+        self.retry_after = retry_after
+
+
 class GateLimitError(ParseError):
     """A program that would expand past the configured gate limit (refused before expanding)."""
 
@@ -89,6 +131,12 @@ class MemoryLimitError(PlanError):
     """The contraction's peak memory exceeds the cap even after slicing."""
 
     kind = "memory_limit"
+
+
+class NoStoredPlan(PlanError):
+    """No stored plan fits and planning is switched off for this call (a lookup-only request)."""
+
+    kind = "no_stored_plan"
 
 
 class Cancelled(Exception):

@@ -9,27 +9,24 @@ import logging
 import time
 from contextlib import asynccontextmanager
 
-from fastapi import FastAPI, HTTPException
+from fastapi import FastAPI
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
+from starlette.exceptions import HTTPException
 
-from contraction.errors import GateLimitError, MemoryLimitError, VerampError
+from contraction.errors import LimitError, VerampError
 
 from . import __version__
 from .db import check_sqlite_file, make_engine, session_factory
-from .deps import AppState, LimitExceeded
-from .jobs import JobManager, QueueFull
+from .deps import AppState
+from .errors import engine_error_response, error_response
+from .jobs import JobManager
 from .metrics import Metrics
 from .routes import amplitudes, blocks, circuits, jobs, ops, paths, xeb
 from .settings import Settings
 
 log = logging.getLogger("veramp.api")
 OPEN_PATHS = {"/v1/health"}
-
-
-def _error(status: int, kind: str, message: str, headers: dict | None = None, **extra) -> JSONResponse:
-    body = {"error": kind, "message": message, **{k: v for k, v in extra.items() if v is not None}}
-    return JSONResponse(body, status_code=status, headers=headers)
 
 
 class GuardMiddleware:
@@ -54,14 +51,14 @@ class GuardMiddleware:
             auth = headers.get("authorization", "")
             given = auth[7:] if auth.lower().startswith("bearer ") else ""
             if not any(hmac.compare_digest(given, t) for t in self.tokens):
-                return await self._reply(send, _error(401, "unauthorized", "a valid bearer token is required",
+                return await self._reply(send, error_response(401, "unauthorized", "a valid bearer token is required",
                                                       {"WWW-Authenticate": "Bearer"}))
             # jobs belong to the token that created them (a digest, never the token itself)
             scope["veramp_owner"] = hashlib.sha256(given.encode()).hexdigest()[:32]
         limit = self.settings.max_request_bytes
         length = headers.get("content-length")
         if length is not None and length.isdigit() and int(length) > limit:
-            return await self._reply(send, _error(413, "limit_exceeded", f"request body of {length} bytes "
+            return await self._reply(send, error_response(413, "limit_exceeded", f"request body of {length} bytes "
                                                   f"exceeds the limit of {limit}", limit="max_request_bytes"))
         seen = 0
         too_big = False
@@ -72,7 +69,7 @@ class GuardMiddleware:
             seen += len(message.get("body", b""))
             if seen > limit:
                 too_big = True
-                raise LimitExceeded("max_request_bytes", f"request body exceeds the limit of {limit} bytes")
+                raise LimitError("max_request_bytes", f"request body exceeds the limit of {limit} bytes")
             return message
 
         status = [500]
@@ -84,7 +81,7 @@ class GuardMiddleware:
                 if not replaced:
                     replaced = True
                     status[0] = 413
-                    await self._reply(send, _error(413, "limit_exceeded", f"request body exceeds the limit "
+                    await self._reply(send, error_response(413, "limit_exceeded", f"request body exceeds the limit "
                                                    f"of {limit} bytes", limit="max_request_bytes"))
                 return
             if message["type"] == "http.response.start":
@@ -145,34 +142,26 @@ def create_app(settings: Settings | None = None, database_checked: bool = False)
 
     @app.exception_handler(VerampError)
     async def engine_error(_req, exc: VerampError):
-        status = 413 if isinstance(exc, (MemoryLimitError, GateLimitError)) else 422
-        return _error(status, exc.kind, str(exc), line=getattr(exc, "line", None),
-                      column=getattr(exc, "column", None), limit=getattr(exc, "limit", None))
-
-    @app.exception_handler(LimitExceeded)
-    async def limit_error(_req, exc: LimitExceeded):
-        kind = {413: "limit_exceeded", 409: "conflict"}.get(exc.status, "invalid_input")
-        return _error(exc.status, kind, exc.message, limit=exc.limit if exc.status in (409, 413) else None)
-
-    @app.exception_handler(QueueFull)
-    async def queue_full(_req, exc: QueueFull):
-        return _error(429, "queue_full", "the job queue is full; retry later",
-                      {"Retry-After": str(exc.retry_after)})
+        return engine_error_response(exc)
 
     @app.exception_handler(HTTPException)
     async def http_error(_req, exc: HTTPException):
-        kind = {404: "not_found", 409: "conflict"}.get(exc.status_code, "http_error")
-        return _error(exc.status_code, kind, str(exc.detail), getattr(exc, "headers", None))
+        # the framework's own refusals: unknown routes and methods, and bodies it cannot parse at
+        # all (e.g. JSON nested past the parser's depth), which answer like any other bad body
+        if exc.status_code == 400:
+            return error_response(422, "invalid_request", f"the body cannot be read: {exc.detail}")
+        kind = {404: "not_found", 405: "method_not_allowed"}.get(exc.status_code, "http_error")
+        return error_response(exc.status_code, kind, str(exc.detail), getattr(exc, "headers", None))
 
     @app.exception_handler(RequestValidationError)
     async def validation_error(_req, exc: RequestValidationError):
         first = exc.errors()[0] if exc.errors() else {}
         where = ".".join(str(p) for p in first.get("loc", ()) if p != "body")
-        return _error(422, "invalid_request", f"{where}: {first.get('msg', 'invalid request')}".strip(": "))
+        return error_response(422, "invalid_request", f"{where}: {first.get('msg', 'invalid request')}".strip(": "))
 
     @app.exception_handler(Exception)
     async def internal_error(_req, exc: Exception):
         log.exception("unhandled error")
-        return _error(500, "internal_error", "internal error; the request was not completed")
+        return error_response(500, "internal_error", "internal error; the request was not completed")
 
     return app

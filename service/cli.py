@@ -40,7 +40,7 @@ def _read_text(path: str) -> str:
 
 def load_circuit_file(path: str):
     """Read a circuit file within the configured limits (VERAMP_MAX_QUBITS, VERAMP_MAX_GATES)."""
-    from contraction.loader import load_circuit
+    from contraction.circuits.loader import load_circuit
 
     from .settings import get_settings
 
@@ -49,7 +49,7 @@ def load_circuit_file(path: str):
 
 
 def _bitstrings(args) -> list[str]:
-    from contraction.bitstrings import read_bitstrings
+    from contraction.circuits.bitstrings import read_bitstrings
 
     out = list(args.bitstring or [])
     if args.bitstrings:
@@ -70,13 +70,13 @@ def _settings():
 
 
 def _memory(args, settings) -> int:
-    from contraction.estimate import parse_bytes
+    from contraction.planning.estimate import parse_bytes
 
     return parse_bytes(args.memory) if getattr(args, "memory", None) else settings.memory_bytes
 
 
 def _plan_store(settings):
-    from contraction.plan_store import DirectoryPlanStore
+    from contraction.planning.store import DirectoryPlanStore
 
     try:
         return DirectoryPlanStore(settings.plan_dir)
@@ -104,12 +104,9 @@ class ProgressBar:
 
 def _stored_rate(settings):
     """The stored calibration, or None (nominal rates) — never a silent calibration run."""
-    from contraction.calibration import MachineRate
+    from contraction.planning.rates import read_rate
 
-    try:
-        return MachineRate.from_dict(json.loads(Path(settings.calibration_path).read_text()))
-    except (OSError, ValueError, KeyError, TypeError):
-        return None
+    return read_rate(settings.calibration_path)
 
 
 def _qubit_list(text: str, n: int) -> tuple[int, ...]:
@@ -150,8 +147,8 @@ def _print_block(args, qubits, values, header: list[str], engine: str, reason: s
 
 
 def cmd_block(args) -> int:
-    from contraction.blocks import block_amplitudes
-    from contraction.planner import PlannerOptions
+    from contraction.execution.blocks import block_amplitudes
+    from contraction.planning.search import PlannerOptions
 
     settings = _settings()
     circuit = load_circuit_file(args.circuit)
@@ -167,8 +164,8 @@ def cmd_block(args) -> int:
 
 
 def cmd_marginal(args) -> int:
-    from contraction.blocks import marginal_probabilities
-    from contraction.planner import PlannerOptions
+    from contraction.execution.blocks import marginal_probabilities
+    from contraction.planning.search import PlannerOptions
 
     settings = _settings()
     circuit = load_circuit_file(args.circuit)
@@ -197,10 +194,10 @@ def _theta_list(text: str) -> list[float]:
 
 
 def cmd_path(args) -> int:
-    from contraction.bitstrings import check_bitstrings
-    from contraction.cayley import cayley_path, path_probabilities
-    from contraction.planner import PlannerOptions
-    from contraction.rational_fit import path_probabilities_mp, recover_path
+    from contraction.analysis.cayley import cayley_path, path_probabilities
+    from contraction.analysis.rational_fit import path_probabilities_mp, recover_path
+    from contraction.circuits.bitstrings import check_bitstrings
+    from contraction.planning.search import PlannerOptions
 
     settings = _settings()
     circuit = load_circuit_file(args.circuit)
@@ -253,9 +250,9 @@ def cmd_path(args) -> int:
 
 
 def cmd_path_study(args) -> int:
-    from contraction.bitstrings import check_bitstrings
-    from contraction.cayley import cayley_path
-    from contraction.rational_fit import extrapolation_study
+    from contraction.analysis.cayley import cayley_path
+    from contraction.analysis.rational_fit import extrapolation_study
+    from contraction.circuits.bitstrings import check_bitstrings
 
     circuit = load_circuit_file(args.circuit)
     [bits] = check_bitstrings([args.bitstring], circuit.num_qubits)
@@ -284,15 +281,15 @@ def cmd_path_study(args) -> int:
 
 
 def cmd_amplitudes(args) -> int:
-    from contraction.amplitudes import amplitudes
-    from contraction.planner import PlannerOptions
+    from contraction.execution.amplitudes import amplitudes
+    from contraction.planning.search import PlannerOptions
 
     settings = _settings()
     circuit = load_circuit_file(args.circuit)
     budget = args.budget if args.budget is not None else settings.plan_budget_seconds
     runner = None
     if settings.dask_scheduler:
-        from contraction.dask_runner import DaskRunner
+        from contraction.execution.dask_runner import DaskRunner
 
         runner = DaskRunner(settings.dask_scheduler)
     try:
@@ -336,9 +333,9 @@ def cmd_amplitudes(args) -> int:
 
 
 def cmd_estimate(args) -> int:
-    from contraction.calibration import load_or_measure
-    from contraction.estimate import estimate
-    from contraction.planner import PlannerOptions
+    from contraction.execution.calibration import load_or_measure
+    from contraction.planning.estimate import estimate
+    from contraction.planning.search import PlannerOptions
 
     settings = _settings()
     circuit = load_circuit_file(args.circuit)
@@ -365,9 +362,9 @@ def cmd_estimate(args) -> int:
 
 
 def cmd_plan(args) -> int:
-    from contraction.amplitudes import network_plan
-    from contraction.network import build_structure
-    from contraction.planner import PlannerOptions
+    from contraction.execution.amplitudes import network_plan
+    from contraction.network.builder import build_structure
+    from contraction.planning.search import PlannerOptions
 
     settings = _settings()
     circuit = load_circuit_file(args.circuit)
@@ -385,7 +382,7 @@ def cmd_plan(args) -> int:
 
 
 def cmd_calibrate(args) -> int:
-    from contraction.calibration import load_or_measure
+    from contraction.execution.calibration import load_or_measure
 
     rate = load_or_measure(_settings().calibration_path, remeasure=True)
     print(json.dumps(rate.to_dict()))
@@ -442,10 +439,10 @@ def cmd_health(args) -> int:
 
 
 def cmd_xeb(args) -> int:
-    from contraction.amplitudes import amplitudes
-    from contraction.bitstrings import read_bitstrings
-    from contraction.planner import PlannerOptions
-    from contraction.xeb import estimate_xeb
+    from contraction.analysis.xeb import estimate_xeb
+    from contraction.circuits.bitstrings import read_bitstrings
+    from contraction.execution.amplitudes import amplitudes
+    from contraction.planning.search import PlannerOptions
 
     settings = _settings()
     circuit = load_circuit_file(args.circuit)
@@ -458,7 +455,7 @@ def cmd_xeb(args) -> int:
     res = estimate_xeb(probs, circuit.num_qubits, bootstrap=args.bootstrap, seed=args.seed)
     doc = res.to_dict()
     doc["engine"] = run.engine
-    from contraction.xeb import mixture_ks
+    from contraction.analysis.xeb import mixture_ks
 
     ks, ks_p = mixture_ks(probs, circuit.num_qubits, min(1.0, max(0.0, res.linear_xeb)))
     doc["mixture_ks_statistic"], doc["mixture_ks_pvalue"] = ks, ks_p
@@ -489,7 +486,7 @@ def cmd_xeb(args) -> int:
 def cmd_submit(args) -> int:
     import os
 
-    from contraction.bitstrings import read_bitstrings
+    from contraction.circuits.bitstrings import read_bitstrings
     from service.client import Client, ServiceError
 
     text = _read_text(args.circuit)
@@ -533,7 +530,7 @@ def httpx_errors():
 
 
 def cmd_fit(args) -> int:
-    from contraction.xeb import fit_depth
+    from contraction.analysis.xeb import fit_depth
 
     rows = []
     for n, line in enumerate(_read_text(args.table).splitlines(), 1):
@@ -559,8 +556,8 @@ def cmd_fit(args) -> int:
 
 
 def cmd_convert(args) -> int:
-    from contraction.circuit_json import write_json
-    from contraction.qasm_writer import write_qasm3
+    from contraction.circuits.json_document import write_json
+    from contraction.circuits.qasm_writer import write_qasm3
 
     circuit = load_circuit_file(args.circuit)
     text = write_json(circuit, indent=None) + "\n" if args.to == "json" else write_qasm3(circuit)
@@ -569,9 +566,9 @@ def cmd_convert(args) -> int:
 
 
 def cmd_generate(args) -> int:
-    from contraction.circuit_json import write_json
-    from contraction.qasm_writer import write_qasm3
-    from contraction.random_circuits import grid_architecture, random_instance
+    from contraction.circuits.json_document import write_json
+    from contraction.circuits.qasm_writer import write_qasm3
+    from contraction.circuits.random_instances import grid_architecture, random_instance
 
     try:
         rows, cols = (int(x) for x in args.grid.lower().split("x"))

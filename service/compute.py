@@ -20,12 +20,13 @@ from sqlalchemy.dialects.postgresql import insert as pg_insert
 from sqlalchemy.dialects.sqlite import insert as sqlite_insert
 from sqlalchemy.orm import Session, sessionmaker
 
-from contraction.amplitudes import amplitudes
-from contraction.circuit import Circuit
-from contraction.circuit_json import from_document, to_document
-from contraction.planner import PlannerOptions
+from contraction.circuits.json_document import from_document, to_document
+from contraction.circuits.model import Circuit
+from contraction.execution.amplitudes import amplitudes
+from contraction.planning.search import PlannerOptions
 
 from .db import CircuitRow, ResultRow, SqlPlanStore
+
 
 @dataclass
 class ResultItem:

@@ -11,14 +11,14 @@ import json
 import time
 from typing import Iterator
 
-from sqlalchemy.exc import IntegrityError
 from sqlalchemy import Float, Integer, String, Text, create_engine, event, select
 from sqlalchemy.engine import Engine
+from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import DeclarativeBase, Mapped, Session, mapped_column, sessionmaker
 
 from contraction.errors import PlanError
-from contraction.plan_store import best_fitting, target_key
-from contraction.planner import Plan
+from contraction.planning.search import Plan
+from contraction.planning.store import best_fitting, target_key
 
 
 class Base(DeclarativeBase):

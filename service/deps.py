@@ -7,23 +7,19 @@ import threading
 import time
 from dataclasses import dataclass, field
 
-from fastapi import HTTPException, Request
+from fastapi import Request
 from sqlalchemy.orm import Session, sessionmaker
 
-from contraction.circuit import Circuit
-from contraction.loader import load_circuit
+from contraction.circuits.loader import load_circuit
+from contraction.circuits.model import Circuit
+from contraction.errors import LimitError, NotFound, VerampError
 
-from .compute import load_circuit as load_stored, store_circuit
+from .compute import load_circuit as load_stored
+from .compute import store_circuit
 from .jobs import JobManager
 from .metrics import Metrics
 from .schemas import CircuitIn, CircuitRef
 from .settings import Settings
-
-
-class LimitExceeded(Exception):
-    def __init__(self, limit: str, message: str, status: int = 413):
-        super().__init__(message)
-        self.limit, self.message, self.status = limit, message, status
 
 
 @dataclass
@@ -41,13 +37,12 @@ class AppState:
         before it finishes use the nominal rates (see :meth:`rate_source`)."""
         import logging
 
-        from contraction.calibration import MachineRate, load_or_measure
+        from contraction.execution.calibration import load_or_measure
+        from contraction.planning.rates import read_rate
 
-        try:
-            self._rate = MachineRate.from_dict(json.loads(self.settings.calibration_path.read_text()))
+        self._rate = read_rate(self.settings.calibration_path)
+        if self._rate is not None:
             return
-        except (OSError, ValueError, KeyError, TypeError):
-            pass
         log = logging.getLogger("veramp.api")
 
         def run() -> None:
@@ -64,8 +59,8 @@ class AppState:
 
     def rate(self):
         """The machine's measured rates, or conservative nominal ones while calibration runs."""
-        from contraction.calibration import load_or_measure
-        from contraction.engine_choice import NOMINAL_RATE
+        from contraction.execution.calibration import load_or_measure
+        from contraction.planning.rates import NOMINAL_RATE
 
         with self._rate_lock:
             if self._rate is not None:
@@ -74,6 +69,17 @@ class AppState:
                 return NOMINAL_RATE
             self._rate = load_or_measure(self.settings.calibration_path)
             return self._rate
+
+    def predicted_seconds(self, circuit: Circuit, count: int, dtype: str, engine: str) -> float | None:
+        """Predicted seconds for ``count`` amplitudes from stored plans only (nothing is planned);
+        None when a plan would have to be searched first."""
+        from contraction.planning.engine_choice import choose
+
+        from .db import SqlPlanStore
+
+        c = choose(circuit, count, engine=engine, dtype=dtype, rate=self.rate(), store=SqlPlanStore(self.sessions),
+                   memory_bytes=self.settings.memory_bytes, search=False)
+        return None if c is None else c.chosen.seconds
 
     def rate_source(self) -> str:
         """'measured', or 'nominal (calibration running)' for provenance."""
@@ -94,25 +100,25 @@ def get_state(request: Request) -> AppState:
 def parse_circuit(state: AppState, body: CircuitIn) -> Circuit:
     s = state.settings
     if (body.qasm is None) == (body.document is None):
-        raise LimitExceeded("circuit", "give exactly one of 'qasm' or 'document'", 422)
+        raise VerampError("give exactly one of 'qasm' or 'document'")
     if body.qasm is not None:
         circuit = load_circuit(body.qasm, "<request>", "qasm", max_qubits=s.max_qubits, max_gates=s.max_gates)
     else:
-        from contraction.circuit_json import from_document
+        from contraction.circuits.json_document import from_document
 
         circuit = from_document(body.document, max_qubits=s.max_qubits)
     if len(circuit.gates) > s.max_gates:
-        raise LimitExceeded("max_gates", f"{len(circuit.gates)} gates exceed the limit of {s.max_gates}")
+        raise LimitError("max_gates", f"{len(circuit.gates)} gates exceed the limit of {s.max_gates}")
     return circuit
 
 
 def resolve_circuit(state: AppState, ref: CircuitRef) -> Circuit:
     if (ref.circuit_id is None) == (ref.circuit is None):
-        raise LimitExceeded("circuit", "give exactly one of 'circuit_id' or 'circuit'", 422)
+        raise VerampError("give exactly one of 'circuit_id' or 'circuit'")
     if ref.circuit_id is not None:
         circuit = load_stored(state.sessions, ref.circuit_id)
         if circuit is None:
-            raise HTTPException(404, f"no circuit with id {ref.circuit_id}")
+            raise NotFound(f"no circuit with id {ref.circuit_id}")
         return circuit
     circuit = parse_circuit(state, ref.circuit)
     store_circuit(state.sessions, circuit)

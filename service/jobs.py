@@ -17,20 +17,16 @@ import uuid
 
 from sqlalchemy import select, update
 
-from contraction.errors import Cancelled, VerampError
-from contraction.planner import PlannerOptions
+from contraction.errors import Busy, Cancelled, VerampError
+from contraction.planning.rates import read_rate
+from contraction.planning.search import PlannerOptions
 
 from .db import JobRow, make_engine, session_factory
+from .schemas import JobOut
 
 log = logging.getLogger("veramp.jobs")
 
 TERMINAL = ("succeeded", "failed", "cancelled")
-
-
-class QueueFull(Exception):
-    def __init__(self, retry_after: int):
-        super().__init__("the job queue is full")
-        self.retry_after = retry_after
 
 
 def _init_worker() -> None:
@@ -39,14 +35,6 @@ def _init_worker() -> None:
     threadpool_limits(1)
 
 
-def _stored_rate(path: str | None):
-    """The service's stored calibration (measured at start-up), or None for nominal rates."""
-    from contraction.calibration import MachineRate
-
-    try:
-        return MachineRate.from_dict(json.loads(open(path).read())) if path else None
-    except (OSError, ValueError, KeyError, TypeError):
-        return None
 
 
 def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_scheduler: str | None = None,
@@ -88,14 +76,14 @@ def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_s
             raise VerampError("the job's circuit is no longer stored")
         runner = None
         if dask_scheduler:
-            from contraction.dask_runner import DaskRunner
+            from contraction.execution.dask_runner import DaskRunner
 
             runner = DaskRunner(dask_scheduler)
         try:
             items, stats = compute(sessions, circuit, bits, dtype=dtype, engine=engine,
                                    planner=PlannerOptions(budget_seconds=budget), memory_bytes=memory_bytes,
                                    on_chunk=on_chunk, cancelled=cancelled, runner=runner,
-                                   rate=_stored_rate(calibration_path))
+                                   rate=read_rate(calibration_path))
         finally:
             if runner is not None:
                 runner.close()
@@ -138,7 +126,7 @@ class JobManager:
 
     def create(self, circuit_hash: str, bits: list[str], dtype: str, engine: str, owner: str | None = None) -> JobRow:
         if self.depth >= self.settings.queue_size:
-            raise QueueFull(retry_after=5)
+            raise Busy(retry_after=5)
         job = JobRow(id=uuid.uuid4().hex, status="queued", circuit_hash=circuit_hash, dtype=dtype,
                      engine=engine, bitstrings=json.dumps(bits), total=len(dict.fromkeys(bits)), done=0,
                      cancel_requested=0, created=time.time(), owner=owner)
@@ -227,3 +215,14 @@ class JobManager:
             if p.is_alive():
                 p.kill()
                 p.join(1.0)
+
+
+def job_out(job: JobRow) -> JobOut:
+    """The API's view of a stored job: progress, ETA while running, provenance when done."""
+    progress = job.done / job.total if job.total else 1.0
+    eta = None
+    if job.status == "running" and job.started and job.done:
+        eta = (time.time() - job.started) / job.done * (job.total - job.done)
+    return JobOut(job_id=job.id, status=job.status, circuit_id=job.circuit_hash, total=job.total,
+                  done=job.done, progress=progress, eta_seconds=eta, error=job.error,
+                  provenance=json.loads(job.provenance) if job.provenance else None)

@@ -10,11 +10,11 @@ import json
 import numpy as np
 import pytest
 
-from contraction.amplitudes import amplitudes
-from contraction.circuit import Circuit, Gate
-from contraction.circuit_json import read_json
+from contraction.circuits.json_document import read_json
+from contraction.circuits.loader import load_circuit
+from contraction.circuits.model import Circuit, Gate
 from contraction.errors import BitstringError, CircuitError, ParseError, UnsupportedError, VerampError
-from contraction.loader import load_circuit
+from contraction.execution.amplitudes import amplitudes
 
 H2 = 'OPENQASM 2.0;\ninclude "qelib1.inc";\nqreg q[3];\n'
 H3 = 'OPENQASM 3.0;\ninclude "stdgates.inc";\nqubit[3] q;\n'

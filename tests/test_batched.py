@@ -12,14 +12,14 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from contraction.amplitudes import amplitudes
-from contraction.blocks import block_amplitudes, light_cone, marginal_probabilities
-from contraction.engine_choice import batch_candidates, chunk_schedule, choose
-from contraction.network import build_structure
-from contraction.plan_store import MemoryPlanStore
-from contraction.qasm_reader import read_qasm
-from contraction.random_circuits import grid_architecture, random_instance
-from contraction.statevector import state_vector
+from contraction.circuits.qasm_reader import read_qasm
+from contraction.circuits.random_instances import grid_architecture, random_instance
+from contraction.execution.amplitudes import amplitudes
+from contraction.execution.blocks import block_amplitudes, light_cone, marginal_probabilities
+from contraction.execution.statevector import state_vector
+from contraction.network.builder import build_structure
+from contraction.planning.engine_choice import batch_candidates, choose, chunk_schedule
+from contraction.planning.store import MemoryPlanStore
 
 from .conftest import FAST_PLANNER, random_bitstrings
 
@@ -175,8 +175,9 @@ def test_engine_choice_reasons(medium, small):
 
 
 def test_in_place_state_vector_update_matches_copying_update(small):
-    from contraction.network import fused_gates
-    from contraction.statevector import apply_gate, apply_gate_in_place
+    from contraction.circuits.gates import apply_gate
+    from contraction.execution.statevector import apply_gate_in_place
+    from contraction.network.builder import fused_gates
 
     ref = np.zeros((2,) * 12, dtype=np.complex128)
     ref[(0,) * 12] = 1
@@ -191,7 +192,7 @@ def test_in_place_state_vector_update_matches_copying_update(small):
 def test_slicing_never_cuts_an_output_index(small, rng):
     """Slices are summed, so a sliced batch index would add different bitstrings' amplitudes; a
     tight memory target must slice inner indices only (and the result stays exact)."""
-    from contraction.planner import PlannerOptions, find_plan
+    from contraction.planning.search import PlannerOptions, find_plan
 
     s = build_structure(small, batch=8, open_qubits=(4,))
     plan = find_plan(s, PlannerOptions(budget_seconds=0.3, max_repeats=4, max_elements=2 ** 6))
@@ -199,8 +200,8 @@ def test_slicing_never_cuts_an_output_index(small, rng):
     assert plan.nslices > 1 and not {labels[c] for c in plan.sliced} & set(s.output)
     psi = state_vector(small)
     bits = random_bitstrings(rng, 12, 8)
-    from contraction.executor import contract_array
-    from contraction.network import tensor_arrays
+    from contraction.execution.executor import contract_array
+    from contraction.network.builder import tensor_arrays
 
     out = contract_array(plan.tree(s), tensor_arrays(s, small, bits))
     for i, b in enumerate(bits):
@@ -211,7 +212,7 @@ def test_slicing_never_cuts_an_output_index(small, rng):
 
 def test_unreachable_memory_target_is_an_error_not_a_hang(small):
     from contraction.errors import MemoryLimitError
-    from contraction.planner import PlannerOptions, find_plan
+    from contraction.planning.search import PlannerOptions, find_plan
 
     # the output alone holds 8 x 2 = 16 elements, so a target of 8 cannot be met without slicing it
     s = build_structure(small, batch=8, open_qubits=(4,))

@@ -15,12 +15,12 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from contraction.cayley import cayley, cayley_path, inverse_cayley, path_probabilities
-from contraction.circuit import Circuit, Gate
+from contraction.analysis.cayley import cayley, cayley_path, inverse_cayley, path_probabilities
+from contraction.analysis.rational_fit import path_probabilities_mp, recover, recover_path
+from contraction.circuits.model import Circuit, Gate
+from contraction.circuits.random_instances import grid_architecture, haar_unitary, random_instance
 from contraction.errors import VerampError
-from contraction.random_circuits import grid_architecture, haar_unitary, random_instance
-from contraction.rational_fit import path_probabilities_mp, recover, recover_path
-from contraction.statevector import state_vector
+from contraction.execution.statevector import state_vector
 
 from .conftest import FAST_PLANNER
 
@@ -202,7 +202,7 @@ def test_extrapolation_study_is_honest_in_every_cell(tiny, tmp_path):
     """The study table: every (delta, noise) cell either declines or holds within its bound, and for
     a fixed noise the bound does not shrink as the sampled interval [0, delta] gets shorter (the
     Lebesgue function of extrapolation grows with the distance, Trefethen ATAP ch. 15)."""
-    from contraction.rational_fit import extrapolation_study
+    from contraction.analysis.rational_fit import extrapolation_study
     from service.plots import study_plot
 
     exact, cells = extrapolation_study(tiny, "10", [0.3, 0.6, 1.0], [1e-12, 1e-6], max_relative_error=1.0)

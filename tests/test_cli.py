@@ -92,10 +92,10 @@ def test_xeb_command_json(tmp_path, capsys):
     # agree with N·mean p − 1 computed from the numpy state vector (Arute et al. 2019 definition)
     import numpy as np
 
-    from contraction.qasm_writer import write_qasm3
-    from contraction.random_circuits import grid_architecture, random_instance
-    from contraction.statevector import state_vector
-    from contraction.xeb import sample_mixture
+    from contraction.analysis.xeb import sample_mixture
+    from contraction.circuits.qasm_writer import write_qasm3
+    from contraction.circuits.random_instances import grid_architecture, random_instance
+    from contraction.execution.statevector import state_vector
 
     c = random_instance(grid_architecture(3, 4, 10), 4)
     p = np.abs(state_vector(c)) ** 2

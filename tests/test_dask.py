@@ -6,17 +6,16 @@ Reference: the engine's state vector, itself checked against textbook circuits (
 
 from __future__ import annotations
 
-import numpy as np
 import pytest
 
 distributed = pytest.importorskip("distributed")
 
-from contraction.amplitudes import amplitudes  # noqa: E402
-from contraction.dask_runner import DaskRunner  # noqa: E402
+from contraction.circuits.random_instances import grid_architecture, random_instance  # noqa: E402
 from contraction.errors import Cancelled, MemoryLimitError  # noqa: E402
-from contraction.planner import PlannerOptions  # noqa: E402
-from contraction.random_circuits import grid_architecture, random_instance  # noqa: E402
-from contraction.statevector import state_vector  # noqa: E402
+from contraction.execution.amplitudes import amplitudes  # noqa: E402
+from contraction.execution.dask_runner import DaskRunner  # noqa: E402
+from contraction.execution.statevector import state_vector  # noqa: E402
+from contraction.planning.search import PlannerOptions  # noqa: E402
 
 from .conftest import random_bitstrings  # noqa: E402
 
@@ -85,7 +84,7 @@ def test_service_jobs_run_on_the_cluster(cluster, tmp_path, circuit):
 
     from fastapi.testclient import TestClient
 
-    from contraction.qasm_writer import write_qasm3
+    from contraction.circuits.qasm_writer import write_qasm3
     from service.app import create_app
 
     from .test_service import make_settings

@@ -47,7 +47,7 @@ def _bin(cmd: list[str]) -> list[str]:
 
 
 def test_image_entrypoint_serves_and_healthcheck_reports(tmp_path):
-    from contraction.calibration import MachineRate
+    from contraction.planning.rates import MachineRate
 
     command = _instruction("ENTRYPOINT") + _instruction("CMD")
     health = _instruction("HEALTHCHECK")

@@ -12,13 +12,14 @@ import jsonschema
 import numpy as np
 import pytest
 
-from contraction import gates as G
-from contraction.circuit import Circuit, Gate
-from contraction.circuit_json import read_json, schema, to_document, write_json
-from contraction.qasm_reader import read_qasm
-from contraction.qasm_writer import decompose_lines, write_qasm3, zyz_angles
-from contraction.random_circuits import grid_architecture, haar_unitary, random_instance
-from contraction.statevector import compose, state_vector
+from contraction.circuits import gates as G
+from contraction.circuits.gates import compose
+from contraction.circuits.json_document import read_json, schema, to_document, write_json
+from contraction.circuits.model import Circuit, Gate
+from contraction.circuits.qasm_reader import read_qasm
+from contraction.circuits.qasm_writer import decompose_lines, write_qasm3, zyz_angles
+from contraction.circuits.random_instances import grid_architecture, haar_unitary, random_instance
+from contraction.execution.statevector import state_vector
 
 
 def unitary_of(text: str) -> np.ndarray:

@@ -16,9 +16,9 @@ import math
 import numpy as np
 import pytest
 
-from contraction import gates as G
-from contraction.qasm_reader import read_qasm
-from contraction.statevector import compose
+from contraction.circuits import gates as G
+from contraction.circuits.gates import compose
+from contraction.circuits.qasm_reader import read_qasm
 
 # qelib1.inc bodies in terms of the primitives U and CX (arXiv:1707.03429, appendix)
 QELIB1_BODIES = {

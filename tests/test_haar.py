@@ -9,7 +9,7 @@ Also E|Tr U|² = 1 (Diaconis & Shahshahani 1994, from memory).
 
 import numpy as np
 
-from contraction.random_circuits import haar_unitary
+from contraction.circuits.random_instances import haar_unitary
 
 K = 20000
 D = 4

@@ -15,10 +15,11 @@ import math
 import numpy as np
 import pytest
 
-from contraction import gates as G
+from contraction.circuits import gates as G
+from contraction.circuits.gates import compose
+from contraction.circuits.loader import load_circuit
 from contraction.errors import ParseError, UnsupportedError
-from contraction.loader import load_circuit
-from contraction.statevector import compose, state_vector
+from contraction.execution.statevector import state_vector
 
 OQ3 = 'OPENQASM 3.0;\ninclude "stdgates.inc";\n'
 OQ2 = 'OPENQASM 2.0;\ninclude "qelib1.inc";\n'

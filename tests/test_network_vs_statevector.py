@@ -9,11 +9,11 @@ E[(N·p)⁴] = 24 (so Var[(N·p)²] = 20), in the large-N limit.
 import numpy as np
 import pytest
 
-from contraction.amplitudes import amplitudes
-from contraction.plan_store import MemoryPlanStore
-from contraction.network import build_structure
-from contraction.random_circuits import grid_architecture, random_instance
-from contraction.statevector import state_vector
+from contraction.circuits.random_instances import grid_architecture, random_instance
+from contraction.execution.amplitudes import amplitudes
+from contraction.execution.statevector import state_vector
+from contraction.network.builder import build_structure
+from contraction.planning.store import MemoryPlanStore
 
 from .conftest import random_bitstrings
 

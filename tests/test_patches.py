@@ -5,10 +5,11 @@ the elided-circuit method of Arute et al. 2019, supplement). Reference: the nump
 import numpy as np
 import pytest
 
+from contraction.analysis.patches import patch_probabilities
+from contraction.circuits.patches import crossing, elide, split
+from contraction.circuits.random_instances import grid_architecture, random_instance
 from contraction.errors import VerampError
-from contraction.patches import crossing, elide, patch_probabilities, split
-from contraction.random_circuits import grid_architecture, random_instance
-from contraction.statevector import state_vector
+from contraction.execution.statevector import state_vector
 
 from .conftest import random_bitstrings
 
@@ -42,7 +43,7 @@ def test_per_coupler_two_qubit_gates():
     # fSim(θ, φ) per coupler (Arute et al. 2019 calibrate each coupler): the gate given for (0, 1) is used
     import math
 
-    from contraction import gates as G
+    from contraction.circuits import gates as G
 
     arch = grid_architecture(2, 2, 4)
     special = G.fsim(math.pi / 2 - 0.1, math.pi / 6 + 0.05)

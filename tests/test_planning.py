@@ -11,16 +11,17 @@ import json
 
 import pytest
 
-from contraction.amplitudes import amplitudes, network_plan
-from contraction.calibration import MachineRate
+from contraction.circuits.random_instances import grid_architecture, random_instance
 from contraction.errors import Cancelled, MemoryLimitError, PlanError
-from contraction.estimate import estimate, parse_bytes
-from contraction.executor import contract_scalar
-from contraction.network import build_structure, tensor_arrays
-from contraction.plan_store import DirectoryPlanStore, MemoryPlanStore
-from contraction.planner import Plan, PlannerOptions, find_plan
-from contraction.random_circuits import grid_architecture, random_instance
-from contraction.statevector import state_vector
+from contraction.execution.amplitudes import amplitudes
+from contraction.execution.executor import contract_scalar
+from contraction.execution.statevector import state_vector
+from contraction.network.builder import build_structure, tensor_arrays
+from contraction.planning.engine_choice import network_plan
+from contraction.planning.estimate import estimate, parse_bytes
+from contraction.planning.rates import MachineRate
+from contraction.planning.search import Plan, PlannerOptions, find_plan
+from contraction.planning.store import DirectoryPlanStore, MemoryPlanStore
 
 from .conftest import random_bitstrings
 

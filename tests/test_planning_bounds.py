@@ -8,15 +8,15 @@ not asserted here: tests never pass or fail on wall-clock time.
 
 import pytest
 
-from contraction.engine_choice import NOMINAL_RATE
+from contraction.circuits.textbook import qft, quantum_volume, ripple_carry_adder
 from contraction.errors import MemoryLimitError
-from contraction.estimate import estimate
-from contraction.network import build_structure
-from contraction.planner import PlannerOptions, find_plan
-from contraction.simplify import simplify_structure
-from contraction.statevector import state_vector
-from contraction.textbook_circuits import qft, quantum_volume, ripple_carry_adder
-from contraction.amplitudes import amplitudes
+from contraction.execution.amplitudes import amplitudes
+from contraction.execution.statevector import state_vector
+from contraction.network.builder import build_structure
+from contraction.network.simplify import simplify_structure
+from contraction.planning.estimate import estimate
+from contraction.planning.rates import NOMINAL_RATE
+from contraction.planning.search import PlannerOptions, find_plan
 
 
 @pytest.mark.slow
@@ -62,7 +62,7 @@ def test_simplified_network_is_smaller_and_its_path_is_complete():
 def test_local_workers_share_the_memory_cap():
     """Two local processes contract slices side by side, each holding its own intermediates: each
     contraction is planned within half the cap, so the run stays within it (common practice)."""
-    from contraction.random_circuits import grid_architecture, random_instance
+    from contraction.circuits.random_instances import grid_architecture, random_instance
 
     c = random_instance(grid_architecture(4, 5, 8), 3)
     bits = ["0" * 20]

@@ -12,12 +12,12 @@
 import numpy as np
 import pytest
 
-from contraction.executor import contract_scalar
-from contraction.network import build_structure, tensor_arrays
-from contraction.patches import elide, split
-from contraction.planner import PlannerOptions, find_plan
-from contraction.random_circuits import grid_architecture, random_instance
-from contraction.amplitudes import amplitudes
+from contraction.circuits.patches import elide, split
+from contraction.circuits.random_instances import grid_architecture, random_instance
+from contraction.execution.amplitudes import amplitudes
+from contraction.execution.executor import contract_scalar
+from contraction.network.builder import build_structure, tensor_arrays
+from contraction.planning.search import PlannerOptions, find_plan
 
 
 def einsum_amplitude(circuit, bits: str) -> complex:

@@ -11,10 +11,10 @@ import time
 import pytest
 from fastapi.testclient import TestClient
 
-from contraction.calibration import MachineRate
-from contraction.random_circuits import grid_architecture, random_instance
-from contraction.qasm_writer import write_qasm3
-from contraction.statevector import state_vector
+from contraction.circuits.qasm_writer import write_qasm3
+from contraction.circuits.random_instances import grid_architecture, random_instance
+from contraction.execution.statevector import state_vector
+from contraction.planning.rates import MachineRate
 from service.app import create_app
 from service.settings import Settings
 
@@ -189,7 +189,7 @@ def test_xeb_route_and_plots(client):
     # equals N·mean p − 1 from the numpy state vector (Arute et al. 2019 definition)
     import numpy as np
 
-    from contraction.xeb import sample_mixture
+    from contraction.analysis.xeb import sample_mixture
 
     c = random_instance(grid_architecture(2, 5, 10), 6)
     p = np.abs(state_vector(c)) ** 2
@@ -294,3 +294,28 @@ def test_documented_bitstring_limit_on_sqlite(tmp_path):
     s = make_settings(tmp_path)
     with TestClient(create_app(s)) as c:
         check_bitstring_limit(c, s.max_bitstrings)
+
+
+def test_every_refusal_has_one_error_shape(client):
+    """Bad input of every kind — circuit text, unknown routes and methods, unreadable bodies (JSON
+    nested past any parser's depth, truncated JSON), missing resources, limits — answers 4xx with the
+    same body: ``error`` (a kind) and ``message``, plus ``line``/``column``/``limit`` where they apply."""
+    deep = "[" * 100_000 + "]" * 100_000
+    answers = {
+        "bad qasm": client.post("/v1/circuits", json={"qasm": "OPENQASM 2.0; qreg q[2]; h q[5];"}),
+        "unknown route": client.get("/v1/nowhere"),
+        "wrong method": client.delete("/v1/health"),
+        "deep body": client.post("/v1/circuits", content=deep, headers={"content-type": "application/json"}),
+        "truncated body": client.post("/v1/circuits", content="{", headers={"content-type": "application/json"}),
+        "missing job": client.get("/v1/jobs/nope"),
+        "missing circuit": client.get("/v1/circuits/ffff"),
+        "both circuit forms": client.post("/v1/circuits", json={"qasm": GHZ, "document": {}}),
+    }
+    expected = {"bad qasm": 422, "unknown route": 404, "wrong method": 405, "deep body": 422,
+                "truncated body": 422, "missing job": 404, "missing circuit": 404, "both circuit forms": 422}
+    for name, r in answers.items():
+        assert r.status_code == expected[name], (name, r.status_code, r.text)
+        body = r.json()
+        assert set(body) <= {"error", "message", "line", "column", "limit"}, (name, body)
+        assert isinstance(body["error"], str) and body["error"] and isinstance(body["message"], str), (name, body)
+    assert answers["bad qasm"].json()["line"] == 1 and answers["bad qasm"].json()["column"] == 30

@@ -130,8 +130,8 @@ def _serve(tmp_path):
 
 @pytest.mark.slow
 def test_sigterm_ends_every_worker_and_requeues_the_running_job(tmp_path):
-    from contraction.qasm_writer import write_qasm3
-    from contraction.random_circuits import grid_architecture, random_instance
+    from contraction.circuits.qasm_writer import write_qasm3
+    from contraction.circuits.random_instances import grid_architecture, random_instance
 
     data, port, proc = _serve(tmp_path)
     c = random_instance(grid_architecture(4, 6, 8), 5)
@@ -180,7 +180,7 @@ def test_first_request_does_not_wait_for_calibration(tmp_path, monkeypatch):
     answered with nominal rates and says so in its provenance."""
     import threading
 
-    import contraction.calibration as cal
+    import contraction.execution.calibration as cal
 
     gate = threading.Event()
 

@@ -12,9 +12,9 @@ import time
 import httpx
 import pytest
 
-from contraction.qasm_writer import write_qasm3
-from contraction.random_circuits import grid_architecture, random_instance
-from contraction.statevector import state_vector
+from contraction.circuits.qasm_writer import write_qasm3
+from contraction.circuits.random_instances import grid_architecture, random_instance
+from contraction.execution.statevector import state_vector
 from service.client import Client
 
 from .test_service import RATE

@@ -11,8 +11,8 @@ import math
 
 import pytest
 
-from contraction.amplitudes import amplitudes
-from contraction.qasm_reader import read_qasm
+from contraction.circuits.qasm_reader import read_qasm
+from contraction.execution.amplitudes import amplitudes
 
 
 def ghz_qasm(n: int) -> str:

@@ -12,10 +12,11 @@ import math
 import numpy as np
 import pytest
 
-from contraction.random_circuits import grid_architecture, haar_state, haar_unitary, random_instance
-from contraction.statevector import state_vector
-from contraction.xeb import (EULER_GAMMA, digital_error_fidelity, estimate_xeb, fit_depth, linear_xeb, log_xeb,
-                             mixture_ks, pooled_xeb, porter_thomas_ks, sample_mixture)
+from contraction.analysis.xeb import (
+    EULER_GAMMA, digital_error_fidelity, estimate_xeb, fit_depth, linear_xeb, log_xeb, mixture_ks, pooled_xeb,
+    porter_thomas_ks, sample_mixture)
+from contraction.circuits.random_instances import grid_architecture, haar_state, haar_unitary, random_instance
+from contraction.execution.statevector import state_vector
 
 N_QUBITS = 6
 N = 2 ** N_QUBITS
@@ -132,7 +133,7 @@ def test_depth_fit_recovers_injected_error_in_95pct_of_trials():
 def test_size_depth_fit_recovers_injected_errors():
     # the digital error model with per-qubit errors (Arute et al. 2019, supplement): seeded data with
     # the mixture model's σ; the fit recovers both errors within 3 standard errors
-    from contraction.xeb import fit_size_depth
+    from contraction.analysis.xeb import fit_size_depth
 
     rng = np.random.default_rng(7)
     er, ec, k = 0.02, 0.004, 20000

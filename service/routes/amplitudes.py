@@ -2,15 +2,15 @@
 
 from fastapi import APIRouter, Depends, Request, Response
 
-from contraction.bitstrings import check_bitstrings
-from contraction.engine_choice import choose
-from contraction.estimate import estimate
-from contraction.planner import PlannerOptions
+from contraction.circuits.bitstrings import check_bitstrings
+from contraction.errors import LimitError
+from contraction.planning.estimate import estimate
+from contraction.planning.search import PlannerOptions
 
 from ..compute import compute, versions
 from ..db import SqlPlanStore
-from ..deps import AppState, LimitExceeded, get_state, owner_of, resolve_circuit
-from ..routes.jobs import job_out
+from ..deps import AppState, get_state, owner_of, resolve_circuit
+from ..jobs import job_out
 from ..schemas import AmplitudeOut, AmplitudesIn, AmplitudesOut, ErrorOut, EstimateIn, JobOut, Provenance
 
 router = APIRouter(prefix="/v1", tags=["amplitudes"])
@@ -25,14 +25,6 @@ def post_estimate(body: EstimateIn, state: AppState = Depends(get_state)) -> dic
                    planner=PlannerOptions(budget_seconds=min(s.plan_budget_seconds, 2.0)),
                    plan_store=SqlPlanStore(state.sessions), memory_bytes=s.memory_bytes)
     return {"circuit_id": circuit.content_hash, **est.to_dict(), "rates": state.rate_source()}
-
-
-def _predicted_seconds(state: AppState, circuit, k: int, dtype: str, engine: str) -> float | None:
-    """A prediction without planning: None when a plan would have to be searched first."""
-    s = state.settings
-    c = choose(circuit, k, engine=engine, dtype=dtype, rate=state.rate(), store=SqlPlanStore(state.sessions),
-               memory_bytes=s.memory_bytes, search=False)
-    return None if c is None else c.chosen.seconds
 
 
 def _all_cached(state: AppState, body: AmplitudesIn) -> AmplitudesOut | None:
@@ -69,7 +61,7 @@ def post_amplitudes(body: AmplitudesIn, response: Response, request: Request, st
     returns 202 with a job to follow."""
     s = state.settings
     if len(body.bitstrings) > s.max_bitstrings:
-        raise LimitExceeded("max_bitstrings", f"{len(body.bitstrings)} bitstrings exceed the limit of "
+        raise LimitError("max_bitstrings", f"{len(body.bitstrings)} bitstrings exceed the limit of "
                                               f"{s.max_bitstrings} per request")
     if body.circuit_id is not None and body.circuit is None:
         hit = _all_cached(state, body)
@@ -77,9 +69,9 @@ def post_amplitudes(body: AmplitudesIn, response: Response, request: Request, st
             return hit
     circuit = resolve_circuit(state, body)
     bits = check_bitstrings(body.bitstrings, circuit.num_qubits)
-    predicted = _predicted_seconds(state, circuit, len(dict.fromkeys(bits)), body.dtype, body.engine)
+    predicted = state.predicted_seconds(circuit, len(dict.fromkeys(bits)), body.dtype, body.engine)
     if predicted is not None and predicted > s.max_predicted_seconds:
-        raise LimitExceeded("max_predicted_seconds", f"predicted {predicted:.4g} s exceeds the limit of "
+        raise LimitError("max_predicted_seconds", f"predicted {predicted:.4g} s exceeds the limit of "
                                                      f"{s.max_predicted_seconds:.4g} s")
     from ..compute import cached_results
 

@@ -2,8 +2,8 @@
 
 from fastapi import APIRouter, Depends
 
-from contraction.blocks import block_amplitudes, marginal_probabilities
-from contraction.planner import PlannerOptions
+from contraction.execution.blocks import block_amplitudes, marginal_probabilities
+from contraction.planning.search import PlannerOptions
 
 from ..db import SqlPlanStore
 from ..deps import AppState, get_state, resolve_circuit

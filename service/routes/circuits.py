@@ -2,7 +2,9 @@
 
 import json
 
-from fastapi import APIRouter, Depends, HTTPException
+from fastapi import APIRouter, Depends
+
+from contraction.errors import NotFound
 
 from ..compute import store_circuit
 from ..db import CircuitRow
@@ -26,6 +28,6 @@ def get_circuit(circuit_id: str, state: AppState = Depends(get_state)) -> Circui
     with state.sessions() as s:
         row = s.get(CircuitRow, circuit_id)
     if row is None:
-        raise HTTPException(404, f"no circuit with id {circuit_id}")
+        raise NotFound(f"no circuit with id {circuit_id}")
     return CircuitDetail(circuit_id=row.content_hash, architecture_id=row.structure_hash,
                          num_qubits=row.num_qubits, num_gates=row.num_gates, document=json.loads(row.document))

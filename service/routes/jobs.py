@@ -1,27 +1,19 @@
 """/v1/jobs: status, progress and ETA, results in pages and as NDJSON/CSV streams, cancellation."""
 
 import json
-import time
 
-from fastapi import APIRouter, Depends, HTTPException, Query, Request
+from fastapi import APIRouter, Depends, Query, Request
 from fastapi.responses import StreamingResponse
+
+from contraction.errors import Conflict, NotFound
 
 from ..compute import cached_results
 from ..db import JobRow
 from ..deps import AppState, get_state, owner_of
+from ..jobs import job_out
 from ..schemas import AmplitudeOut, ErrorOut, JobOut, ResultsPage
 
 router = APIRouter(prefix="/v1/jobs", tags=["jobs"])
-
-
-def job_out(job: JobRow) -> JobOut:
-    progress = job.done / job.total if job.total else 1.0
-    eta = None
-    if job.status == "running" and job.started and job.done:
-        eta = (time.time() - job.started) / job.done * (job.total - job.done)
-    return JobOut(job_id=job.id, status=job.status, circuit_id=job.circuit_hash, total=job.total,
-                  done=job.done, progress=progress, eta_seconds=eta, error=job.error,
-                  provenance=json.loads(job.provenance) if job.provenance else None)
 
 
 def _job(state: AppState, job_id: str, request: Request) -> JobRow:
@@ -30,14 +22,14 @@ def _job(state: AppState, job_id: str, request: Request) -> JobRow:
     with state.sessions() as s:
         job = s.get(JobRow, job_id)
     if job is None or (job.owner is not None and job.owner != owner_of(request)):
-        raise HTTPException(404, f"no job with id {job_id}")
+        raise NotFound(f"no job with id {job_id}")
     return job
 
 
 def _finished(state: AppState, job_id: str, request: Request) -> JobRow:
     job = _job(state, job_id, request)
     if job.status != "succeeded":
-        raise HTTPException(409, f"job {job_id} is {job.status}; results are available when it has succeeded")
+        raise Conflict(f"job {job_id} is {job.status}; results are available when it has succeeded")
     return job
 
 
@@ -62,7 +54,7 @@ def _items(state: AppState, job: JobRow, offset: int, limit: int | None):
     for b in part:
         r = have.get(b)
         if r is None:  # evicted or never stored: report, never invent
-            raise HTTPException(409, f"result for {b} is missing; resubmit the job")
+            raise Conflict(f"result for {b} is missing; resubmit the job")
         yield b, r.re, r.im
 
 

@@ -3,13 +3,12 @@
 import math
 
 import numpy as np
-
 from fastapi import APIRouter, Depends, Query, Response
 
-from contraction.cayley import cayley_path, path_probabilities
+from contraction.analysis.cayley import cayley_path, path_probabilities
+from contraction.analysis.rational_fit import recover_path
 from contraction.errors import VerampError
-from contraction.planner import PlannerOptions
-from contraction.rational_fit import recover_path
+from contraction.planning.search import PlannerOptions
 
 from ..db import SqlPlanStore
 from ..deps import AppState, get_state, resolve_circuit

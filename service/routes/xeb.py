@@ -11,13 +11,13 @@ from fastapi import APIRouter, Depends, Query
 from fastapi.responses import Response
 from pydantic import BaseModel, Field
 
-from contraction.bitstrings import check_bitstrings
-from contraction.planner import PlannerOptions
-from contraction.xeb import estimate_xeb
+from contraction.analysis.xeb import estimate_xeb
+from contraction.circuits.bitstrings import check_bitstrings
+from contraction.errors import Conflict, LimitError, VerampError
+from contraction.planning.search import PlannerOptions
 
 from ..compute import cached_results, compute
-from ..deps import AppState, LimitExceeded, get_state, resolve_circuit
-from ..routes.amplitudes import _predicted_seconds
+from ..deps import AppState, get_state, resolve_circuit
 from ..schemas import CircuitRef, ErrorOut
 
 router = APIRouter(prefix="/v1/xeb", tags=["analysis"])
@@ -32,16 +32,16 @@ class XebIn(CircuitRef):
 def _probabilities(state: AppState, body: XebIn):
     s = state.settings
     if len(body.samples) > s.max_bitstrings:
-        raise LimitExceeded("max_bitstrings", f"{len(body.samples)} samples exceed the limit of {s.max_bitstrings}")
+        raise LimitError("max_bitstrings", f"{len(body.samples)} samples exceed the limit of {s.max_bitstrings}")
     circuit = resolve_circuit(state, body)
     bits = check_bitstrings(body.samples, circuit.num_qubits)
     with state.sessions() as sess:
         all_cached = len(cached_results(sess, circuit.content_hash, bits, "complex128")) == len(set(bits))
     if not all_cached:
-        predicted = _predicted_seconds(state, circuit, len(set(bits)), "complex128", "auto")
+        predicted = state.predicted_seconds(circuit, len(set(bits)), "complex128", "auto")
         if predicted is None or predicted > s.sync_threshold_seconds:
-            raise LimitExceeded("sync_threshold_seconds", "these probabilities are not cached and would take "
-                                "a while: POST them to /v1/amplitudes (a job) first, then ask again", 409)
+            raise Conflict("these probabilities are not cached and would take a while: POST them to "
+                           "/v1/amplitudes (a job) first, then ask again", limit="sync_threshold_seconds")
     items, _stats = compute(state.sessions, circuit, bits, dtype="complex128", engine="auto",
                             planner=PlannerOptions(budget_seconds=s.plan_budget_seconds), memory_bytes=s.memory_bytes,
                             rate=state.rate())
@@ -76,16 +76,16 @@ class FitIn(BaseModel):
 
 
 def _fit(body: FitIn):
-    from contraction.xeb import fit_depth
+    from contraction.analysis.xeb import fit_depth
 
     if not len(body.cycles) == len(body.fidelities) == len(body.stderrs):
-        raise LimitExceeded("fit", "cycles, fidelities and stderrs must have the same length", 422)
+        raise VerampError("cycles, fidelities and stderrs must have the same length")
     if any(not s > 0 for s in body.stderrs):
-        raise LimitExceeded("fit", "every stderr must be positive", 422)
+        raise VerampError("every stderr must be positive")
     try:
         return fit_depth(body.cycles, body.fidelities, body.stderrs)
     except (RuntimeError, ValueError) as exc:
-        raise LimitExceeded("fit", f"the fit did not converge: {exc}", 422) from None
+        raise VerampError(f"the fit did not converge: {exc}") from None
 
 
 @router.post("/fit", responses={422: {"model": ErrorOut}})

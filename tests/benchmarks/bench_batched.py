@@ -20,15 +20,15 @@ import time
 
 import numpy as np
 
-from contraction.amplitudes import amplitudes
-from contraction.calibration import measure
-from contraction.engine_choice import choose
-from contraction.executor import contract_array
-from contraction.network import fused_gates, tensor_arrays
-from contraction.plan_store import MemoryPlanStore
-from contraction.planner import PlannerOptions
-from contraction.random_circuits import grid_architecture, random_instance
-from contraction.statevector import apply_gate_in_place
+from contraction.circuits.random_instances import grid_architecture, random_instance
+from contraction.execution.amplitudes import amplitudes
+from contraction.execution.calibration import measure
+from contraction.execution.executor import contract_array
+from contraction.execution.statevector import apply_gate_in_place
+from contraction.network.builder import fused_gates, tensor_arrays
+from contraction.planning.engine_choice import choose
+from contraction.planning.search import PlannerOptions
+from contraction.planning.store import MemoryPlanStore
 
 
 def emit(doc: dict) -> None:

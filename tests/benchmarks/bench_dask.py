@@ -17,12 +17,12 @@ import time
 
 import numpy as np
 
-from contraction.dask_runner import DaskRunner
-from contraction.executor import combine_scaled
-from contraction.network import build_structure, tensor_arrays
-from contraction.parallel import ProcessRunner, Task, split_slices
-from contraction.planner import PlannerOptions, find_plan
-from contraction.random_circuits import grid_architecture, random_instance
+from contraction.circuits.random_instances import grid_architecture, random_instance
+from contraction.execution.dask_runner import DaskRunner
+from contraction.execution.executor import combine_scaled
+from contraction.execution.slices import ProcessRunner, Task, split_slices
+from contraction.network.builder import build_structure, tensor_arrays
+from contraction.planning.search import PlannerOptions, find_plan
 
 
 def timed_run(runner, plan, structure, arrays, pieces: int) -> tuple[float, complex]:

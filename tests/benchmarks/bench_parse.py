@@ -7,9 +7,9 @@ Prints one JSON object. Baseline measured in the same run: reading the same text
 import json
 import random
 
-from contraction.calibration import _median_time
-from contraction.circuit_json import write_json
-from contraction.qasm_reader import read_qasm
+from contraction.circuits.json_document import write_json
+from contraction.circuits.qasm_reader import read_qasm
+from contraction.execution.calibration import _median_time
 
 
 def make_file(num_gates: int, n: int = 50, seed: int = 1) -> str:

@@ -12,14 +12,15 @@ import argparse
 import json
 import time
 
-from contraction.amplitudes import amplitudes, network_plan
-from contraction.calibration import matmul_rate, measure
-from contraction.estimate import estimate
-from contraction.executor import contract_scalar
-from contraction.network import build_structure, tensor_arrays
-from contraction.plan_store import MemoryPlanStore
-from contraction.planner import PlannerOptions
-from contraction.random_circuits import grid_architecture, random_instance
+from contraction.circuits.random_instances import grid_architecture, random_instance
+from contraction.execution.amplitudes import amplitudes
+from contraction.execution.calibration import matmul_rate, measure
+from contraction.execution.executor import contract_scalar
+from contraction.network.builder import build_structure, tensor_arrays
+from contraction.planning.engine_choice import network_plan
+from contraction.planning.estimate import estimate
+from contraction.planning.search import PlannerOptions
+from contraction.planning.store import MemoryPlanStore
 
 
 def emit(doc: dict) -> None:
@@ -94,7 +95,6 @@ def part_c(budget: float) -> dict:
 
 
 def part_d(rate, cycles: int, budget: float) -> dict:
-    import numpy as np  # noqa: F401
 
     arch = grid_architecture(6, 9, cycles, "ABCDCDAB", removed=frozenset({53}))
     circ = random_instance(arch, seed=2019, gates="discrete")

@@ -33,7 +33,7 @@ def emit(doc: dict) -> None:
 
 
 def w53(cycles: int):
-    from contraction.random_circuits import grid_architecture, random_instance
+    from contraction.circuits.random_instances import grid_architecture, random_instance
 
     return random_instance(grid_architecture(6, 9, cycles, removed=frozenset({53})), 1, gates="discrete")
 
@@ -42,8 +42,8 @@ def part_plan(cycles: int, budget: float, cap_log2: int) -> tuple[dict, object]:
     import cotengra as ctg
     import quimb.tensor as qtn
 
-    from contraction.network import build_structure, tensor_arrays
-    from contraction.planner import PlannerOptions, find_plan
+    from contraction.network.builder import build_structure, tensor_arrays
+    from contraction.planning.search import PlannerOptions, find_plan
 
     circ = w53(cycles)
     s = build_structure(circ)
@@ -82,9 +82,9 @@ def part_plan(cycles: int, budget: float, cap_log2: int) -> tuple[dict, object]:
 
 
 def part_amplitude(cycles: int, plan, cap_log2: int) -> dict:
-    from contraction.amplitudes import amplitudes
-    from contraction.calibration import matmul_rate
-    from contraction.plan_store import MemoryPlanStore
+    from contraction.execution.amplitudes import amplitudes
+    from contraction.execution.calibration import matmul_rate
+    from contraction.planning.store import MemoryPlanStore
 
     circ = w53(cycles)
     rate = matmul_rate(dtype=np.complex64)
@@ -110,11 +110,11 @@ def part_amplitude(cycles: int, plan, cap_log2: int) -> dict:
 
 
 def part_estimate(budget: float) -> dict:
-    from contraction.calibration import measure
-    from contraction.estimate import estimate
+    from contraction.circuits.textbook import qft, quantum_volume, ripple_carry_adder
     from contraction.errors import MemoryLimitError
-    from contraction.planner import PlannerOptions
-    from contraction.textbook_circuits import qft, quantum_volume, ripple_carry_adder
+    from contraction.execution.calibration import measure
+    from contraction.planning.estimate import estimate
+    from contraction.planning.search import PlannerOptions
 
     rate = measure()
     rows = []

@@ -1,0 +1,183 @@
+"""Exact amplitudes <x|C|0...0> of a circuit for a list of bitstrings.
+
+The request is answered by the engine :mod:`contraction.engine_choice` picks (state vector,
+batched network contractions or one contraction per bitstring) or the one the caller forces.
+Repeated bitstrings are computed once; results come back in input order; ``on_results`` receives
+each chunk's amplitudes as soon as the chunk is finished (the service stores them right away) and
+``progress`` counts finished tasks (a task is one chunk, or a run of one chunk's slices).
+
+With ``open_qubits`` the bitstrings that agree on all other qubits form one group, and one
+contraction (with those qubits left open) gives the 2^k amplitudes of the whole group at once.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+from dataclasses import dataclass, field
+from typing import Callable, Iterable, Sequence
+
+import numpy as np
+
+from contraction import defaults
+from contraction.circuits.bitstrings import check_bitstrings
+from contraction.circuits.model import Circuit
+from contraction.execution.executor import CancelCheck, Progress, ProgressCallback, combine_scaled
+from contraction.execution.slices import ProcessRunner, Runner, Task, make_runner, split_slices
+from contraction.execution.statevector import state_vector
+from contraction.network.builder import resolve_dtype, tensor_arrays
+from contraction.planning.engine_choice import Choice, Option, choose
+from contraction.planning.rates import MachineRate
+from contraction.planning.search import Plan, PlannerOptions
+from contraction.planning.store import PlanStore
+
+log = logging.getLogger(__name__)
+
+
+
+@dataclass(frozen=True)
+class Amplitude:
+    bitstring: str
+    amplitude: complex
+
+    @property
+    def probability(self) -> float:
+        a = self.amplitude
+        return a.real * a.real + a.imag * a.imag
+
+
+@dataclass
+class AmplitudeRun:
+    """Amplitudes in input order, with how they were computed."""
+
+    results: list[Amplitude]
+    engine: str
+    reason: str
+    dtype: str
+    wall_seconds: float
+    plan: Plan | None = None
+    plan_cached: bool = False
+    batch: int = 1                               # bitstrings (or groups) per contraction
+    chunks: int = 0                              # contractions run
+    madds: float = 0.0                           # complex multiply-adds of the whole request
+    predicted_seconds: float = 0.0
+    predictions: dict[str, float] = field(default_factory=dict)
+
+
+ResultsCallback = Callable[[list[Amplitude]], None]
+
+
+def amplitudes(circuit: Circuit, bitstrings: Iterable[str], *, dtype: str = "complex128",
+               engine: str = "auto", planner: PlannerOptions | None = None,
+               plan_store: PlanStore | None = None, memory_bytes: float = defaults.MEMORY_BYTES,
+               workers: int = 1, progress: ProgressCallback | None = None,
+               cancelled: CancelCheck | None = None, rate: MachineRate | None = None,
+               runner: Runner | None = None, on_results: ResultsCallback | None = None,
+               open_qubits: Sequence[int] = (),
+               on_choice: Callable[[Choice], None] | None = None) -> AmplitudeRun:
+    """Exact amplitudes of ``circuit`` for ``bitstrings`` (qubit 0 first), in input order.
+
+    ``memory_bytes`` caps the whole run: with ``workers`` local processes each contraction is planned
+    within its share of it."""
+    t0 = time.perf_counter()
+    bits = check_bitstrings(bitstrings, circuit.num_qubits)
+    dt = resolve_dtype(dtype)
+    unique = list(dict.fromkeys(bits))
+    open_qubits = tuple(open_qubits)
+    groups = _groups(unique, open_qubits)
+    # local processes contracting side by side share the memory cap (a Dask runner's do not)
+    local = runner.workers if isinstance(runner, ProcessRunner) else (workers if runner is None else 1)
+    choice = choose(circuit, len(groups), engine=engine, dtype=dtype, rate=rate, store=plan_store,
+                    planner=planner, memory_bytes=memory_bytes, open_qubits=open_qubits, workers=local)
+    if on_choice is not None:
+        on_choice(choice)
+    found: dict[str, complex] = {}
+
+    def emit(values: dict[str, complex]) -> None:
+        found.update(values)
+        if on_results is not None:
+            on_results([Amplitude(b, v) for b, v in values.items()])
+
+    if choice.engine == "statevector":
+        psi = state_vector(circuit, dtype=dt)
+        emit({b: complex(psi[int(b, 2)]) for b in unique})
+        if progress is not None:
+            progress(Progress(1, 1, time.perf_counter() - t0))
+    else:
+        _run_network(circuit, choice.chosen, groups, open_qubits, dt, runner or make_runner(workers),
+                     emit, progress, cancelled)
+    o = choice.chosen
+    return AmplitudeRun([Amplitude(b, found[b]) for b in bits], choice.engine, choice.reason, dtype,
+                        time.perf_counter() - t0, o.plan, o.plan_cached, o.batch, max(1, o.chunks), o.madds,
+                        o.seconds, choice.predictions())
+
+
+def _groups(unique: list[str], open_qubits: tuple[int, ...]) -> dict[str, list[str]]:
+    """Bitstrings keyed by their bits on the projected qubits (open qubits' bits set to 0)."""
+    if not open_qubits:
+        return {b: [b] for b in unique}
+    out: dict[str, list[str]] = {}
+    for b in unique:
+        key = list(b)
+        for q in open_qubits:
+            key[q] = "0"
+        out.setdefault("".join(key), []).append(b)
+    return out
+
+
+def _run_network(circuit: Circuit, option: Option, groups: dict[str, list[str]], open_qubits: tuple[int, ...],
+                 dt, runner: Runner, emit, progress: ProgressCallback | None,
+                 cancelled: CancelCheck | None) -> None:
+    """Run the chunks of ``option.schedule`` (grouped by batch size, one plan each)."""
+    phase = np.exp(1j * circuit.global_phase)
+    keys = list(groups)
+    chunks: dict[int, list[tuple[int, list[str]]]] = {}     # batch size -> [(chunk number, group keys)]
+    pos = 0
+    for number, b in enumerate(option.schedule):
+        part = keys[pos:pos + b]
+        pos += len(part)
+        chunks.setdefault(b, []).append((number, part))
+    total_tasks = 0
+    plans = []
+    for b, items in chunks.items():
+        sub = option.parts[b]
+        pieces = split_slices(sub.plan.nslices, 4 * runner.workers if sub.plan.nslices > 1 else 1)
+        tasks, owner = [], []
+        for number, part in items:
+            padded = part + [part[-1]] * (b - len(part))
+            arrays = tensor_arrays(sub.structure, circuit, padded if sub.structure.batch else padded[0], dt)
+            for piece in pieces:
+                tasks.append(Task(arrays, piece))
+                owner.append(number)
+        plans.append((sub, items, tasks, owner))
+        total_tasks += len(tasks)
+    done_tasks = 0
+    t0 = time.perf_counter()
+    for sub, items, tasks, owner in plans:
+        parts_of: dict[int, list] = {}
+        members = dict(items)
+
+        def done(k: int, results, sub=sub, owner=owner, members=members, parts_of=parts_of):
+            nonlocal done_tasks
+            number = owner[k]
+            parts_of.setdefault(number, []).extend(results)
+            done_tasks += 1
+            if len(parts_of[number]) == sub.plan.nslices:
+                value = combine_scaled(parts_of.pop(number)) * phase
+                emit(_pick(value, members[number], groups, open_qubits, bool(sub.structure.batch)))
+            if progress is not None:
+                progress(Progress(done_tasks, total_tasks, time.perf_counter() - t0))
+
+        runner.run(sub.plan, sub.structure, tasks, done, cancelled)
+
+
+def _pick(value: np.ndarray, part: list[str], groups: dict[str, list[str]], open_qubits: tuple[int, ...],
+          batched: bool) -> dict[str, complex]:
+    """The requested amplitudes out of one chunk's output (axes: batch?, open qubits)."""
+    out = {}
+    for i, key in enumerate(part):
+        block = value[i] if batched else value
+        for b in groups[key]:
+            idx = tuple(int(b[q]) for q in open_qubits)
+            out[b] = complex(block[idx])
+    return out

@@ -1,0 +1,133 @@
+"""Machine rates used to predict wall time before anything is contracted.
+
+A short calibration measures, on this machine and in this process configuration:
+
+* the dense complex matrix-multiply rate (complex multiply-adds per second) — the ceiling;
+* then fits, over three calibration networks of different shapes, the time model
+  ``t = madds / (rate x efficiency) + writes x seconds_per_write + steps x step_overhead``
+  (non-negative least squares in relative error): arithmetic at a fraction of the matmul rate,
+  memory traffic for every element an intermediate writes, and a fixed cost per pairwise step;
+* the state-vector engine's cost per (amplitude x gate) element update.
+
+The figures are stored as JSON and re-measured on demand (``veramp calibrate``).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import statistics
+import time
+from pathlib import Path
+
+import numpy as np
+
+from contraction.planning.rates import MachineRate, read_rate
+
+
+def _median_time(fn, repeats: int) -> float:
+    out = []
+    for _ in range(repeats):
+        t = time.perf_counter()
+        fn()
+        out.append(time.perf_counter() - t)
+    return statistics.median(out)
+
+
+def matmul_rate(n: int = 1024, repeats: int = 3, dtype=np.complex128) -> float:
+    """Complex multiply-adds per second of an n x n x n matrix product."""
+    rng = np.random.default_rng(0)
+    a = (rng.standard_normal((n, n)) + 1j * rng.standard_normal((n, n))).astype(dtype)
+    b = a.copy()
+    a @ b  # warm-up
+    return n ** 3 / _median_time(lambda: a @ b, repeats)
+
+
+def _network_time(rows: int, cols: int, cycles: int, repeats: int) -> tuple[float, float, float, int]:
+    """Median wall time of one amplitude through the same path a request takes (stored plan,
+    tree rebuild, tensor values, contraction), with the plan's madds, writes and steps."""
+    from contraction.circuits.random_instances import grid_architecture, random_instance
+    from contraction.execution.amplitudes import amplitudes
+    from contraction.network.builder import build_structure
+    from contraction.planning.search import PlannerOptions
+    from contraction.planning.store import MemoryPlanStore
+
+    c = random_instance(grid_architecture(rows, cols, cycles), seed=1)
+    store = MemoryPlanStore()
+    opts = PlannerOptions(budget_seconds=0.0, max_repeats=1)
+    bits = ["0" * c.num_qubits]
+    plan = amplitudes(c, bits, engine="single", planner=opts, plan_store=store).plan
+    t = _median_time(lambda: amplitudes(c, bits, engine="single", planner=opts, plan_store=store), repeats)
+    return t, plan.madds, plan.writes, build_structure(c).num_tensors - 1
+
+
+def _dense_pair_time(outer: int = 10, shared: int = 10, repeats: int = 3) -> tuple[float, float, float, int]:
+    """An arithmetic-heavy pairwise contraction (2^outer x 2^shared times 2^shared x 2^outer)."""
+    import cotengra as ctg
+
+    left = tuple(ctg.get_symbol(i) for i in range(outer + shared))
+    right = tuple(ctg.get_symbol(i) for i in range(outer, 2 * outer + shared))
+    out = tuple(ix for ix in left + right if (ix in left) != (ix in right))
+    sizes = {ix: 2 for ix in left + right}
+    tree = ctg.ContractionTree.from_path([left, right], out, sizes, path=[(0, 1)])
+    rng = np.random.default_rng(0)
+    arrays = [(rng.standard_normal(2 ** len(t)) + 0j).reshape((2,) * len(t)) for t in (left, right)]
+    tree.contract(arrays)
+    t = _median_time(lambda: tree.contract(arrays), repeats)
+    return t, float(tree.contraction_cost()), float(tree.total_write()), 1
+
+
+#: calibration networks (grid rows, cols, cycles, repeats): tiny, arithmetic-heavy, wide
+CALIBRATION_NETWORKS = ((3, 3, 6, 7), (4, 5, 12, 2), (5, 6, 8, 2), (4, 6, 14, 1))
+
+
+def _statevector_update_time() -> float:
+    """Seconds per (amplitude x gate) of the state-vector engine on a large state: 2^24 amplitudes
+    updated in place block by block, the path states of 25 qubits and more take. (Measured at 30
+    qubits: 1.15e-8 s; the copying path at 20 qubits gave 3e-8 s and made the prediction for a
+    30-qubit run 2.6x too high.)"""
+    from contraction.execution.statevector import apply_gate_in_place
+
+    n = 24
+    psi = np.zeros((2,) * n, dtype=np.complex128)
+    psi[(0,) * n] = 1
+    g = np.eye(4, dtype=np.complex128)
+    # the cost depends on where the gate's axes sit: average over early, spread and late pairs
+    pairs = ((0, 1), (3, 11), (7, 20), (22, 23))
+    t = statistics.mean(_median_time(lambda p=p: apply_gate_in_place(psi, g, p), 3) for p in pairs)
+    return t / 2 ** n
+
+
+def measure() -> MachineRate:
+    """Run the calibration (a few seconds)."""
+    from scipy.optimize import nnls
+    from threadpoolctl import threadpool_info
+
+    rate = matmul_rate()
+    rows, times = [], []
+    samples = [_network_time(*spec) for spec in CALIBRATION_NETWORKS] + [_dense_pair_time()]
+    for t, madds, writes, steps in samples:
+        # relative-error weighting: divide each equation by its measured time
+        rows.append([madds / rate / t, writes / t, steps / t])
+        times.append(1.0)
+    coef, _ = nnls(np.array(rows), np.array(times))
+    inv_eff, per_write, per_step = coef
+    eff = 1.0 / inv_eff if inv_eff > 0 else 1.0
+    threads = max([i.get("num_threads", 1) for i in threadpool_info()] or [1])
+    return MachineRate(rate, float(min(1.0, max(0.01, eff))), float(per_write), float(per_step),
+                       _statevector_update_time(), threads, time.time())
+
+
+def load_or_measure(path: str | os.PathLike | None, remeasure: bool = False) -> MachineRate:
+    """The stored calibration at ``path``, measuring (and storing) it when absent or asked to."""
+    stored = None if remeasure else read_rate(path)
+    if stored is not None:
+        return stored
+    rate = measure()
+    if path is not None:
+        p = Path(path)
+        p.parent.mkdir(parents=True, exist_ok=True)
+        tmp = p.with_suffix(".tmp")
+        tmp.write_text(json.dumps(rate.to_dict()))
+        os.replace(tmp, p)
+    return rate

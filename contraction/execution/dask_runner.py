@@ -1,0 +1,84 @@
+"""Contraction tasks on a Dask cluster the lab already runs.
+
+:class:`DaskRunner` has the same contract as the local runners (:mod:`contraction.parallel`): the
+plan travels as JSON, each Dask worker rebuilds the tree once per plan and keeps it, tasks are
+slices of a contraction or whole batch chunks, every finished task is reported (progress) and the
+cancel check is polled between completions (pending tasks are then cancelled on the cluster).
+
+Memory: a plan whose peak does not fit the smallest worker's memory limit is refused before any
+task is sent. BLAS is limited to one thread inside each task (Dask already runs one task per
+worker thread).
+"""
+
+from __future__ import annotations
+
+from typing import Sequence
+
+from contraction.errors import MemoryLimitError
+from contraction.execution.executor import CancelCheck
+from contraction.execution.slices import SliceResults, Task, TaskDone, run_task, wait_all
+from contraction.network.builder import NetworkStructure
+from contraction.planning.search import Plan
+
+_trees: dict[str, object] = {}
+
+
+def _task_on_worker(plan_blob: tuple, arrays: list, slices: list[int]) -> SliceResults:
+    from threadpoolctl import threadpool_limits
+
+    plan_json, plan_hash, structure = plan_blob
+    tree = _trees.get(plan_hash)
+    if tree is None:
+        tree = Plan.from_json(plan_json).tree(structure)
+        if len(_trees) > 8:
+            _trees.clear()
+        _trees[plan_hash] = tree
+    with threadpool_limits(1):
+        return run_task(tree, Task(arrays, slices))
+
+
+class DaskRunner:
+    """Runs tasks on the cluster behind ``address`` (``tcp://host:port``) or an existing client."""
+
+    def __init__(self, address):
+        from distributed import Client
+
+        self.client = address if isinstance(address, Client) else Client(address, timeout="10s")
+        self._own = not isinstance(address, Client)
+        info = self.client.scheduler_info()["workers"]
+        self.workers = max(1, sum(w.get("nthreads", 1) for w in info.values()))
+        limits = [w.get("memory_limit") or 0 for w in info.values()]
+        self.memory_limit = min((m for m in limits if m), default=None)
+
+    def close(self) -> None:
+        if self._own:
+            self.client.close()
+
+    def run(self, plan: Plan, structure: NetworkStructure, tasks: Sequence[Task], done: TaskDone,
+            cancelled: CancelCheck | None = None) -> None:
+        if tasks and self.memory_limit is not None:
+            itemsize = tasks[0].arrays[0].dtype.itemsize
+            peak = plan.peak_elements * itemsize
+            if peak > self.memory_limit:
+                raise MemoryLimitError(f"the plan needs {peak:.4g} bytes at its peak; the smallest Dask worker "
+                                       f"allows {self.memory_limit:.4g} bytes")
+        import distributed
+
+        # the plan and every distinct array list travel to the workers once, not with every task
+        [blob] = self.client.scatter([(plan.to_json(), plan.plan_hash, structure)], broadcast=True, hash=False)
+        shared: dict[int, object] = {}
+
+        def submit(task: Task):
+            key = id(task.arrays)
+            if key not in shared:
+                [shared[key]] = self.client.scatter([task.arrays], broadcast=True, hash=False)
+            return self.client.submit(_task_on_worker, blob, shared[key], task.slices, pure=False)
+
+        def wait(fs, timeout, return_when):
+            try:
+                res = distributed.wait(list(fs), timeout=timeout, return_when="FIRST_COMPLETED")
+            except (TimeoutError, distributed.TimeoutError):
+                return set(), set(fs)
+            return set(res.done), set(res.not_done)
+
+        wait_all(submit, tasks, done, cancelled, lambda fs: self.client.cancel(list(fs)), wait=wait)

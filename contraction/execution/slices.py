@@ -1,0 +1,121 @@
+"""Where contraction tasks run: in this process, in local worker processes, or on a cluster.
+
+A task is one contraction's arrays and a range of its slices; its result is one
+(mantissa, base-10 exponent) pair per slice (see :mod:`contraction.executor`). Every runner
+receives the plan as JSON and rebuilds the tree once per worker, runs tasks as workers free up,
+reports each finished task, and stops handing out tasks when the cancel check says so.
+
+Worker processes limit BLAS to one thread each (threads or processes, never both).
+"""
+
+from __future__ import annotations
+
+import concurrent.futures as cf
+import multiprocessing as mp
+from dataclasses import dataclass
+from typing import Callable, Protocol, Sequence
+
+import numpy as np
+
+from contraction.errors import Cancelled
+from contraction.execution.executor import CancelCheck, contract_slice_scaled
+from contraction.network.builder import NetworkStructure
+from contraction.planning.search import Plan
+
+SliceResults = list[tuple[np.ndarray, float]]
+
+
+@dataclass
+class Task:
+    arrays: list[np.ndarray]
+    slices: list[int]
+
+
+TaskDone = Callable[[int, SliceResults], None]
+
+
+class Runner(Protocol):
+    """Runs tasks of one plan; calls ``done(task_index, results)`` as each task finishes."""
+
+    workers: int
+
+    def run(self, plan: Plan, structure: NetworkStructure, tasks: Sequence[Task], done: TaskDone,
+            cancelled: CancelCheck | None = None) -> None: ...
+
+
+def run_task(tree, task: Task) -> SliceResults:
+    return [contract_slice_scaled(tree, task.arrays, i) for i in task.slices]
+
+
+class InlineRunner:
+    """Everything in the calling process, in order."""
+
+    workers = 1
+
+    def __init__(self, tree=None):
+        self._tree = tree
+
+    def run(self, plan, structure, tasks, done, cancelled=None) -> None:
+        tree = self._tree if self._tree is not None else plan.tree(structure)
+        for k, task in enumerate(tasks):
+            if cancelled is not None and cancelled():
+                raise Cancelled(f"cancelled after {k} of {len(tasks)} tasks")
+            done(k, run_task(tree, task))
+
+
+_worker_state: dict = {}
+
+
+def _init_worker(plan_json: str, structure: NetworkStructure) -> None:
+    from threadpoolctl import threadpool_limits
+
+    threadpool_limits(1)
+    _worker_state["tree"] = Plan.from_json(plan_json).tree(structure)
+
+
+def _run_in_worker(task: Task) -> SliceResults:
+    return run_task(_worker_state["tree"], task)
+
+
+class ProcessRunner:
+    """Local worker processes (forkserver: no state inherited from the parent)."""
+
+    def __init__(self, workers: int):
+        self.workers = max(1, int(workers))
+
+    def run(self, plan, structure, tasks, done, cancelled=None) -> None:
+        ctx = mp.get_context("forkserver")
+        pool = cf.ProcessPoolExecutor(max_workers=self.workers, mp_context=ctx, initializer=_init_worker,
+                                      initargs=(plan.to_json(), structure))
+        try:
+            wait_all(lambda t: pool.submit(_run_in_worker, t), tasks, done, cancelled,
+                     lambda futures: [f.cancel() for f in futures])
+        finally:
+            pool.shutdown(wait=False, cancel_futures=True)
+
+
+def wait_all(submit, tasks: Sequence[Task], done: TaskDone, cancelled: CancelCheck | None, cancel_all,
+             wait=cf.wait) -> None:
+    """Submit every task, report each as it finishes, cancel the rest when asked to."""
+    futures = {submit(t): k for k, t in enumerate(tasks)}
+    pending = set(futures)
+    finished_count = 0
+    while pending:
+        finished, pending = wait(pending, timeout=0.2, return_when=cf.FIRST_COMPLETED)
+        for f in finished:
+            done(futures[f], f.result())
+            finished_count += 1
+        if pending and cancelled is not None and cancelled():
+            cancel_all(pending)
+            raise Cancelled(f"cancelled after {finished_count} of {len(tasks)} tasks")
+
+
+def make_runner(workers: int = 1, tree=None) -> Runner:
+    return InlineRunner(tree) if workers <= 1 else ProcessRunner(workers)
+
+
+def split_slices(total: int, pieces: int) -> list[list[int]]:
+    """``range(total)`` in at most ``pieces`` contiguous runs."""
+    pieces = max(1, min(total, pieces))
+    bounds = np.linspace(0, total, pieces + 1).astype(int)
+    return [list(range(a, b)) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]

@@ -1,0 +1,265 @@
+"""Tensor networks for amplitudes <x|C|0...0>, built from the circuit's layout alone.
+
+:func:`build_structure` looks only at the qubit count and the qubits of each gate. It fuses every
+single-qubit gate into the next multi-qubit gate on its wire (or into the output projector when
+none follows); that rule is decided by the layout, never by gate values, so every random instance
+of an architecture and every bitstring gives the same network and can share one contraction plan.
+
+Tensors, in order: one |0> vector per qubit, one tensor per multi-qubit gate (indices: outputs
+then inputs, first qubit most significant), one <x_q| projector per qubit that is not left open.
+The projector values carry the bitstring; the structure does not.
+
+Two variants share the builder:
+
+* a **batch** of B bitstrings: every projector gets a second index of size B shared by all of them
+  (a hyper-index, contracted by cotengra as a batch dimension), so one contraction gives B
+  amplitudes; B is part of the structure and therefore of the plan's key;
+* **open qubits**: no projector on those wires, whose final indices become output indices, so one
+  contraction gives all 2^k amplitudes of a block.
+
+The output axes are ``(batch?, open qubits in the order given)``.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from dataclasses import dataclass
+from functools import cached_property
+
+import numpy as np
+
+from contraction.circuits.model import Circuit
+from contraction.errors import VerampError
+
+
+def _symbol(i: int) -> str:
+    import cotengra as ctg
+
+    return ctg.get_symbol(i)
+
+
+@dataclass(frozen=True)
+class NetworkStructure:
+    """The layout of a network: index labels per tensor, the output and the index sizes.
+
+    ``sources[t]`` says where tensor t's values come from: ``("init", q)``;
+    ``("gate", qubits, steps)`` with steps applied in order, each ``("pre", qubits, q, ids)``
+    (single-qubit gates ``ids`` on wire q) or ``("gate", g)`` (circuit gate g); or
+    ``("proj", q, post)`` with the single-qubit gates after the last multi-qubit gate on q.
+    """
+
+    num_qubits: int
+    inputs: tuple[tuple[str, ...], ...]
+    output: tuple[str, ...]
+    sources: tuple[tuple, ...]
+    batch: int = 0                       # B > 0: projectors carry a shared batch index of size B
+    batch_label: str | None = None
+    open_qubits: tuple[int, ...] = ()
+
+    @property
+    def size_dict(self) -> dict[str, int]:
+        sizes = {ix: 2 for term in self.inputs for ix in term}
+        if self.batch_label is not None:
+            sizes[self.batch_label] = self.batch
+        return sizes
+
+    @property
+    def output_shape(self) -> tuple[int, ...]:
+        sizes = self.size_dict
+        return tuple(sizes[ix] for ix in self.output)
+
+    @property
+    def num_tensors(self) -> int:
+        return len(self.inputs)
+
+    @cached_property
+    def canonical(self) -> dict[str, int]:
+        """Index label -> canonical number (order of first appearance over the inputs)."""
+        relabel: dict[str, int] = {}
+        for term in self.inputs:
+            for ix in term:
+                relabel.setdefault(ix, len(relabel))
+        return relabel
+
+    @cached_property
+    def labels(self) -> list[str]:
+        """Canonical number -> index label."""
+        return list(self.canonical)
+
+    @cached_property
+    def key(self) -> str:
+        """Canonical hash of the network: indices relabelled in order of first appearance."""
+        relabel = self.canonical
+        sizes = self.size_dict
+        doc = {
+            "inputs": [[relabel[ix] for ix in term] for term in self.inputs],
+            "output": [relabel.get(ix, -1) for ix in self.output],
+            "sizes": [sizes[ix] for ix in relabel],
+        }
+        blob = json.dumps(doc, separators=(",", ":")).encode()
+        return hashlib.sha256(b"veramp-network-v1\0" + blob).hexdigest()
+
+
+def build_structure(circuit: Circuit, batch: int = 0, open_qubits: tuple[int, ...] = ()) -> NetworkStructure:
+    """The network of one amplitude of ``circuit`` (a scalar), of a batch of ``batch`` amplitudes
+    (output: the batch axis) and/or of the block of amplitudes on ``open_qubits`` (output axes in
+    that order).
+
+    Layout-only fusion rules: single-qubit gates wait on their wire and are multiplied into the
+    next multi-qubit gate there (or into the projector); a multi-qubit gate whose qubit set equals
+    that of the tensor last written on all its wires is multiplied into that tensor.
+    """
+    n = circuit.num_qubits
+    counter = 0
+    wire: list[str] = []
+    last: list[int] = [-1] * n          # tensor that last wrote each wire (-1: the |0> vector)
+    inputs: list[tuple[str, ...]] = []
+    sources: list = []
+    for q in range(n):
+        wire.append(_symbol(counter))
+        counter += 1
+        inputs.append((wire[q],))
+        sources.append(("init", q))
+    pending: list[list[int]] = [[] for _ in range(n)]
+    tensor_qubits: dict[int, tuple[int, ...]] = {}
+    for gi, gate in enumerate(circuit.gates):
+        qs = gate.qubits
+        if len(qs) == 1:
+            pending[qs[0]].append(gi)
+            continue
+        steps = [("pre", qs, q, tuple(pending[q])) for q in qs if pending[q]]
+        for q in qs:
+            pending[q] = []
+        t = last[qs[0]]
+        if t >= 0 and all(last[q] == t for q in qs) and set(tensor_qubits[t]) == set(qs):
+            sources[t][2].extend(steps + [("gate", gi)])
+            continue
+        outs = []
+        for q in qs:
+            outs.append(_symbol(counter))
+            counter += 1
+        ins = [wire[q] for q in qs]
+        for q, o in zip(qs, outs):
+            wire[q] = o
+            last[q] = len(inputs)
+        tensor_qubits[len(inputs)] = qs
+        inputs.append(tuple(outs) + tuple(ins))
+        sources.append(("gate", qs, steps + [("gate", gi)]))
+    open_qubits = tuple(int(q) for q in open_qubits)
+    if len(set(open_qubits)) != len(open_qubits) or any(not 0 <= q < n for q in open_qubits):
+        raise ValueError(f"open qubits {open_qubits} must be distinct qubits of 0..{n - 1}")
+    if batch < 0 or (batch and len(open_qubits) == n):
+        raise ValueError("a batch needs at least one projected qubit and a positive size")
+    blabel = _symbol(counter) if batch else None
+    output: list[str] = [blabel] if batch else []
+    for q in range(n):
+        if q in open_qubits:
+            # single-qubit gates after the last multi-qubit gate on an open wire: one more tensor
+            if pending[q]:
+                o = _symbol(counter + 1 + q)
+                inputs.append((o, wire[q]))
+                sources.append(("gate", (q,), tuple(("pre", (q,), q, tuple(pending[q])) for _ in [0])))
+                wire[q] = o
+            continue
+        inputs.append((wire[q], blabel) if batch else (wire[q],))
+        sources.append(("proj", q, tuple(pending[q])))
+    output.extend(wire[q] for q in open_qubits)
+    frozen = tuple((s[0], s[1], tuple(s[2])) if s[0] == "gate" else s for s in sources)
+    return NetworkStructure(n, tuple(inputs), tuple(output), frozen, batch, blabel, open_qubits)
+
+
+_ZERO = np.array([1.0, 0.0])
+
+
+def _product(circuit: Circuit, gate_ids) -> np.ndarray:
+    m = circuit.gates[gate_ids[0]].matrix
+    for g in gate_ids[1:]:
+        m = circuit.gates[g].matrix @ m
+    return m
+
+
+def _embed(matrix: np.ndarray, acts_on: tuple[int, ...], order: tuple[int, ...]) -> np.ndarray:
+    """A gate on qubits ``acts_on`` (a subset of ``order``) as a matrix in ``order``'s basis."""
+    k = len(order)
+    rest = [q for q in order if q not in acts_on]
+    full = np.kron(matrix, np.eye(2 ** len(rest))) if rest else matrix
+    current = list(acts_on) + rest
+    if current == list(order):
+        return full
+    perm = [current.index(q) for q in order]
+    t = full.reshape((2,) * (2 * k))
+    t = t.transpose(perm + [p + k for p in perm])
+    return t.reshape(2 ** k, 2 ** k)
+
+
+def _gate_tensor(circuit: Circuit, qubits: tuple[int, ...], steps) -> np.ndarray:
+    m = None
+    for step in steps:
+        if step[0] == "pre":
+            part = _embed(_product(circuit, step[3]), (step[2],), qubits)
+        else:
+            gate = circuit.gates[step[1]]
+            part = gate.matrix if gate.qubits == qubits else _embed(gate.matrix, gate.qubits, qubits)
+        m = part if m is None else part @ m
+    return m
+
+
+def tensor_arrays(structure: NetworkStructure, circuit: Circuit, bits,
+                  dtype=np.complex128) -> list[np.ndarray]:
+    """The values of every tensor of ``structure`` for this circuit and bitstring (a list of
+    ``structure.batch`` bitstrings for a batch; the bits of open qubits are ignored)."""
+    if structure.batch:
+        if isinstance(bits, str) or len(bits) != structure.batch:
+            raise ValueError(f"a batch structure needs a list of {structure.batch} bitstrings")
+        table = np.array([[c == "1" for c in b] for b in bits], dtype=np.intp)  # (B, n)
+    arrays: list[np.ndarray] = []
+    for src in structure.sources:
+        kind = src[0]
+        if kind == "gate":
+            m = _gate_tensor(circuit, src[1], src[2])
+            arrays.append(np.asarray(m, dtype=dtype).reshape((2,) * (2 * len(src[1]))))
+        elif kind == "init":
+            arrays.append(_ZERO.astype(dtype))
+        else:
+            q, post = src[1], src[2]
+            if structure.batch:
+                # (wire, batch): column b is <x_b[q]| (times the trailing single-qubit gates)
+                rows = np.eye(2, dtype=np.complex128)
+                if post:
+                    rows = rows @ _product(circuit, post)
+                arrays.append(np.ascontiguousarray(rows[table[:, q]].T).astype(dtype))
+                continue
+            row = np.zeros(2, dtype=np.complex128)
+            row[int(bits[q])] = 1.0
+            if post:
+                row = row @ _product(circuit, post)
+            arrays.append(row.astype(dtype))
+    return arrays
+
+
+def fused_gates(circuit: Circuit) -> list:
+    """The circuit's gates after the network's fusion: each multi-qubit tensor as one gate, then
+    the single-qubit gates left at the end of each wire. Same product as ``circuit.gates``."""
+    from contraction.circuits.model import Gate
+
+    structure = build_structure(circuit)
+    out = []
+    for src in structure.sources:
+        if src[0] == "gate":
+            out.append(Gate(src[1], _gate_tensor(circuit, src[1], src[2])))
+        elif src[0] == "proj" and src[2]:
+            out.append(Gate((src[1],), _product(circuit, src[2])))
+    return out
+
+
+#: number types of tensors and amplitudes, by name
+DTYPES = {"complex128": np.complex128, "complex64": np.complex64}
+
+
+def resolve_dtype(name: str):
+    """The numpy type called ``name``; raises :class:`VerampError` for any other name."""
+    try:
+        return DTYPES[name]
+    except KeyError:
+        raise VerampError(f"unknown dtype {name!r}; choose complex128 or complex64") from None

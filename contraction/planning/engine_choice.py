@@ -1,0 +1,250 @@
+"""Which engine answers a request, from predicted time and memory.
+
+Three ways to get N amplitudes of an n-qubit circuit:
+
+* ``statevector``: build C|0...0> once and read any number of amplitudes (memory: see
+  :func:`statevector_peak_elements`);
+* ``batch``: contract the network with a batch index of size B on the projectors, so one
+  contraction gives B amplitudes; the chunk size B is chosen from the cost model among a few powers
+  of two (each one planned, or its plan read from the store);
+* ``single``: one (sliced) contraction per bitstring.
+
+:func:`choose` predicts each feasible option with the machine's measured rates and picks the
+fastest; ``engine=`` forces one. The result says what was predicted for every option considered.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+
+from contraction import defaults
+from contraction.circuits.model import Circuit
+from contraction.errors import MemoryLimitError, NoStoredPlan, PlanError, VerampError
+from contraction.network.builder import NetworkStructure, build_structure
+from contraction.planning.rates import NOMINAL_RATE, MachineRate
+from contraction.planning.search import Plan, PlannerOptions, find_plan
+from contraction.planning.store import PlanStore
+
+log = logging.getLogger(__name__)
+
+ENGINES = ("auto", "statevector", "batch", "single")
+
+#: the automatic choice uses the state vector without planning anything up to this many qubits
+#: largest batch index tried
+
+
+
+#: default memory cap of one contraction (peak bytes of all live tensors)
+
+
+def network_plan(structure: NetworkStructure, store: PlanStore | None, options: PlannerOptions | None,
+                 memory_bytes: float = defaults.MEMORY_BYTES, dtype="complex128"):
+    """``(plan, tree, from_store)`` for ``structure`` with a peak within ``memory_bytes``.
+
+    A stored plan is used when one fits the cap and passes validation against the network;
+    otherwise a new plan is searched and stored. Raises :class:`MemoryLimitError` when no plan
+    within the cap is found: a plan over the cap is never returned.
+    """
+    cap_elements = memory_bytes / np.dtype(dtype).itemsize
+    if store is not None:
+        plan = store.get(structure.key, cap_elements)
+        if plan is not None:
+            try:
+                return plan, plan.tree(structure), True
+            except PlanError as exc:
+                log.warning("stored plan rejected, planning again: %s", exc)
+    if options is None:
+        raise NoStoredPlan(structure.key)
+    # the peak holds a contraction's two inputs and its output at once: aim each below a quarter
+    options = replace(options, max_elements=min(options.max_elements or math.inf, cap_elements / 4))
+    plan = find_plan(structure, options)
+    if plan.peak_elements > cap_elements:
+        raise MemoryLimitError(f"the best plan found needs {plan.peak_bytes(dtype):.4g} bytes at its peak, "
+                               f"over the memory cap of {memory_bytes:.4g} bytes")
+    if store is not None:
+        store.put(plan)
+    return plan, plan.tree(structure), False
+
+
+def statevector_peak_elements(n: int) -> float:
+    """Peak elements alive while the state-vector engine applies a gate to an n-qubit state: below
+    ``defaults.STATEVECTOR_IN_PLACE_QUBITS`` a gate copies the state twice, from there on it is
+    applied in place a block of ``defaults.STATEVECTOR_CHUNK_ELEMENTS`` at a time."""
+    if n < defaults.STATEVECTOR_IN_PLACE_QUBITS:
+        return 3.0 * 2 ** n
+    return 2 ** n + 3.0 * defaults.STATEVECTOR_CHUNK_ELEMENTS
+
+
+@dataclass
+class Option:
+    """One way to answer the request, as planned and predicted."""
+
+    engine: str
+    seconds: float
+    peak_bytes: float
+    batch: int = 1                          # bitstrings per contraction (network engines)
+    plan: Plan | None = None
+    tree: object = None
+    structure: NetworkStructure | None = None
+    plan_cached: bool = False
+    madds: float = 0.0                      # whole request
+    schedule: list[int] = field(default_factory=list)      # batch size of each chunk, in order
+    parts: dict[int, "Option"] = field(default_factory=dict)  # batch size -> its planned contraction
+
+    @property
+    def chunks(self) -> int:
+        return len(self.schedule)
+
+
+@dataclass
+class Choice:
+    engine: str
+    reason: str
+    chosen: Option
+    options: list[Option] = field(default_factory=list)
+    planned: dict[int, Option] = field(default_factory=dict)   # every contraction size planned, per chunk
+
+    def predictions(self) -> dict[str, float]:
+        return {_label(o): o.seconds for o in self.options}
+
+
+def _label(o: Option) -> str:
+    return f"batch{o.batch}" if o.engine == "batch" else o.engine
+
+
+def statevector_option(circuit: Circuit, count: int, dtype: str, rate: MachineRate) -> Option:
+    n = circuit.num_qubits
+    # the fused gates the state-vector engine applies, counted from the layout (no matrices built)
+    arities = [len(src[1]) if src[0] == "gate" else 1 for src in build_structure(circuit).sources
+               if src[0] == "gate" or (src[0] == "proj" and src[2])]
+    itemsize = np.dtype(dtype).itemsize
+    seconds = rate.statevector_seconds_per_update * 2 ** n * len(arities) * (itemsize / 16)
+    madds = float(sum(2 ** n * 2 ** a for a in arities))
+    return Option("statevector", seconds, statevector_peak_elements(n) * itemsize, madds=madds)
+
+
+def network_seconds(plan: Plan, structure: NetworkStructure, rate: MachineRate, dtype: str = "complex128") -> float:
+    """Predicted seconds of one contraction with ``plan`` (all slices)."""
+    steps = max(0, structure.num_tensors - 1) * plan.nslices
+    per = rate.contraction_seconds(plan.madds, plan.writes, steps)
+    if np.dtype(dtype).itemsize == 8:
+        per *= 0.5  # complex64 moves half the bytes (an assumption; the benchmark measures complex128)
+    return per
+
+
+def chunk_schedule(count: int, per_chunk: dict[int, float]) -> list[int]:
+    """Chunk sizes covering ``count`` bitstrings: for what is left, the batch size with the least
+    predicted time per useful bitstring (a short last chunk is padded to its batch size)."""
+    out = []
+    left = count
+    while left > 0:
+        b = min(per_chunk, key=lambda b: (per_chunk[b] / min(b, left), b))
+        out.append(b)
+        left -= min(b, left)
+    return out
+
+
+def batch_candidates(count: int) -> list[int]:
+    """A few powers of two from the request size down: each is planned, so keep the list short."""
+    if count < 2:
+        return []
+    top = min(1 << (count - 1).bit_length(), defaults.MAX_BATCH)
+    return sorted({top, max(2, top // 8), max(2, top // 64)})
+
+
+def network_option(circuit: Circuit, batch: int, dtype: str, rate: MachineRate, store: PlanStore | None,
+                   planner: PlannerOptions, memory_bytes: float, open_qubits: tuple[int, ...] = ()) -> Option:
+    """One contraction of ``batch`` bitstrings (or groups, with ``open_qubits``), planned or read
+    from the store."""
+    s = build_structure(circuit, batch=batch if batch > 1 else 0, open_qubits=open_qubits)
+    plan, tree, hit = network_plan(s, store, planner, memory_bytes, dtype)
+    return Option("batch" if batch > 1 else "single", network_seconds(plan, s, rate, dtype), plan.peak_bytes(dtype),
+                  batch, plan, tree, s, hit, plan.madds)
+
+
+def scheduled(engine: str, count: int, parts: dict[int, Option]) -> Option:
+    """The whole request run as chunks of the planned sizes in ``parts``."""
+    schedule = chunk_schedule(count, {b: o.seconds for b, o in parts.items()})
+    used = {b: parts[b] for b in set(schedule)}
+    main = max(used.values(), key=lambda o: o.batch)
+    return Option(engine, sum(parts[b].seconds for b in schedule), max(o.peak_bytes for o in used.values()),
+                  main.batch, main.plan, main.tree, main.structure, all(o.plan_cached for o in used.values()),
+                  sum(parts[b].madds for b in schedule), schedule, used)
+
+
+def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "complex128",
+           rate: MachineRate | None = None, store: PlanStore | None = None,
+           planner: PlannerOptions | None = None, memory_bytes: float,
+           open_qubits: tuple[int, ...] = (), search: bool = True, workers: int = 1) -> Choice | None:
+    """The fastest feasible way to get ``count`` distinct amplitudes, or ``count`` groups of
+    bitstrings that share their bits outside ``open_qubits`` (or the forced way).
+
+    With ``search=False`` nothing is planned: only stored plans are considered, and None is
+    returned when the network engines have none and the state vector is not an option. ``workers``:
+    local processes that will contract slices at once; the cap is shared among them."""
+    if engine not in ENGINES:
+        raise VerampError(f"unknown engine {engine!r}; choose one of {', '.join(ENGINES)}")
+    rate = rate or NOMINAL_RATE
+    planner = (planner or PlannerOptions()) if search else None
+    n = circuit.num_qubits
+    options: list[Option] = []
+    sv = statevector_option(circuit, count, dtype, rate)
+    sv_fits = n <= defaults.STATEVECTOR_MAX_QUBITS and sv.peak_bytes <= memory_bytes
+    if engine == "statevector":
+        if not sv_fits:
+            raise MemoryLimitError(f"a {n}-qubit state vector needs {sv.peak_bytes:.4g} bytes while applying a "
+                                   f"gate; the memory cap is {memory_bytes:.4g} bytes"
+                                   + (f" and the engine is limited to {defaults.STATEVECTOR_MAX_QUBITS} qubits" if n > defaults.STATEVECTOR_MAX_QUBITS
+                                      else ""))
+        return Choice("statevector", "requested", sv, [sv])
+    if engine == "auto" and sv_fits and n <= defaults.STATEVECTOR_AUTO_QUBITS:
+        return Choice("statevector", f"{n} qubits <= {defaults.STATEVECTOR_AUTO_QUBITS}: one state vector answers every bitstring",
+                      sv, [sv])
+    if engine == "auto" and sv_fits:
+        options.append(sv)
+        planning = planner.budget_seconds if planner is not None else 0.0
+        if sv.seconds <= planning:
+            return Choice("statevector", f"state vector predicted {sv.seconds:.3g} s, less than planning the "
+                                         f"network engines would take (~{planning:.3g} s)", sv, [sv])
+    errors = []
+    planned: dict[int, Option] = {}
+    sizes = ([1] if engine in ("auto", "single") or count < 2 else []) + \
+        (batch_candidates(count) if engine in ("auto", "batch") else [])
+    # the planning budget is for the whole request: shared by every contraction size planned
+    per_size = None if planner is None else replace(planner, budget_seconds=planner.budget_seconds / max(1, len(sizes)))
+    for b in sizes:
+        try:
+            # ``workers`` local processes contract slices side by side, each with its own intermediates:
+            # each gets its share of the cap, so the run as a whole stays within ``memory_bytes``
+            planned[b] = network_option(circuit, b, dtype, rate, store, per_size, memory_bytes / max(1, workers),
+                                        open_qubits)
+        except MemoryLimitError as exc:
+            errors.append(f"{b} per contraction: {exc}")
+        except NoStoredPlan:
+            pass
+    if 1 in planned:
+        options.append(scheduled("single", count, {1: planned[1]}))
+    if any(b > 1 for b in planned):
+        batched = scheduled("batch", count, planned)
+        if batched.batch > 1 or 1 not in planned:         # all chunks of one: that is the single engine
+            options.append(batched)
+    if not options and not search:
+        return None
+    if not options:
+        raise MemoryLimitError("no engine fits the memory cap: " + "; ".join(errors))
+    best = min(options, key=lambda o: o.seconds)
+    if engine != "auto":
+        reason = "requested"
+    else:
+        others = ", ".join(f"{_label(o)} {o.seconds:.3g} s" for o in options if o is not best)
+        reason = f"fastest predicted: {_label(best)} {best.seconds:.3g} s" + (f" (vs {others})" if others else "")
+        slower = [b for b in planned if b > 1 and planned[b].seconds / b >= planned.get(1, best).seconds]
+        if best.engine == "single" and slower:
+            reason += f"; batches of {'/'.join(map(str, sorted(slower)))} predicted slower per bitstring"
+        if not sv_fits:
+            reason += f"; a state vector needs {sv.peak_bytes:.3g} bytes, over the cap"
+    return Choice(best.engine, reason, best, options, planned)

@@ -1,0 +1,377 @@
+"""Contraction plans: finding them (cotengra) and the plan as plain data.
+
+A :class:`Plan` is a JSON-serialisable record of a contraction order for one network structure:
+the SSA path, the sliced indices (in canonical numbering), cost figures and the options used.
+Finding a plan (:func:`find_plan`) is separate from running it (:mod:`contraction.executor`), and
+cost queries on a plan are cheap: they read stored numbers.
+"""
+
+from __future__ import annotations
+
+import concurrent.futures as cf
+import hashlib
+import json
+import math
+import threading
+import time
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+
+from contraction import defaults
+from contraction.errors import MemoryLimitError, PlanError
+from contraction.network.builder import NetworkStructure
+
+PLAN_FORMAT = "veramp-plan-v1"
+
+
+def kahypar_available() -> bool:
+    try:
+        import kahypar  # noqa: F401
+    except ImportError:
+        return False
+    return True
+
+
+@dataclass(frozen=True)
+class Plan:
+    network_key: str
+    ssa_path: tuple[tuple[int, ...], ...]
+    sliced: tuple[int, ...]          # canonical index numbers
+    madds: float                     # complex multiply-adds, all slices
+    madds_unsliced: float            # the same tree without slicing
+    width: float                     # log2 of the largest intermediate (per slice)
+    peak_elements: float             # peak concurrent elements of one slice
+    nslices: int
+    options: dict = field(default_factory=dict)
+    writes: float = 0.0              # elements written by all pairwise contractions, all slices
+
+    # ---- cheap cost queries
+    @property
+    def flops(self) -> float:
+        """Real floating-point operations: 8 per complex multiply-add."""
+        return 8.0 * self.madds
+
+    @property
+    def slicing_overhead(self) -> float:
+        return self.madds / self.madds_unsliced if self.madds_unsliced else 1.0
+
+    def peak_bytes(self, dtype="complex128") -> int:
+        return int(self.peak_elements * np.dtype(dtype).itemsize)
+
+    # ---- plain data
+    def to_dict(self) -> dict:
+        doc = asdict(self)
+        doc["format"] = PLAN_FORMAT
+        doc["ssa_path"] = [list(p) for p in self.ssa_path]
+        doc["sliced"] = list(self.sliced)
+        doc["checksum"] = _checksum(doc)
+        return doc
+
+    def to_json(self) -> str:
+        return json.dumps(self.to_dict(), sort_keys=True)
+
+    @property
+    def plan_hash(self) -> str:
+        return _checksum(self.to_dict())
+
+    @classmethod
+    def from_dict(cls, doc: dict) -> "Plan":
+        """Load a stored plan; raises :class:`PlanError` if it is malformed or tampered with."""
+        if not isinstance(doc, dict) or doc.get("format") != PLAN_FORMAT:
+            raise PlanError("stored plan has an unknown format")
+        if doc.get("checksum") != _checksum(doc):
+            raise PlanError("stored plan fails its checksum (corrupted or tampered)")
+        try:
+            return cls(
+                network_key=str(doc["network_key"]),
+                ssa_path=tuple(tuple(int(i) for i in p) for p in doc["ssa_path"]),
+                sliced=tuple(int(i) for i in doc["sliced"]),
+                madds=float(doc["madds"]), madds_unsliced=float(doc["madds_unsliced"]),
+                width=float(doc["width"]), peak_elements=float(doc["peak_elements"]),
+                nslices=int(doc["nslices"]), options=dict(doc.get("options") or {}),
+                writes=float(doc.get("writes", 0.0)),
+            )
+        except (KeyError, TypeError, ValueError) as exc:
+            raise PlanError(f"stored plan is malformed: {exc}") from None
+
+    @classmethod
+    def from_json(cls, text: str) -> "Plan":
+        try:
+            return cls.from_dict(json.loads(text))
+        except json.JSONDecodeError as exc:
+            raise PlanError(f"stored plan is not valid JSON: {exc}") from None
+
+    # ---- back to a cotengra tree
+    def tree(self, structure: NetworkStructure):
+        """Rebuild the (sliced) contraction tree; checks that the plan fits ``structure``."""
+        import cotengra as ctg
+
+        if structure.key != self.network_key:
+            raise PlanError("plan belongs to another network structure")
+        try:
+            tree = ctg.ContractionTree.from_path(structure.inputs, structure.output, structure.size_dict,
+                                                 ssa_path=[list(p) for p in self.ssa_path], check=True)
+            labels = structure.labels
+            outer = set(structure.output)
+            for c in self.sliced:
+                if labels[c] in outer:
+                    raise PlanError("stored plan slices an output index (its slices cannot be summed)")
+                tree.remove_ind_(labels[c])
+        except PlanError:
+            raise
+        except Exception as exc:  # a malformed path makes cotengra raise many kinds of errors
+            raise PlanError(f"stored plan does not fit the network: {exc}") from None
+        if structure.num_tensors > 1 and not math.isclose(tree.contraction_cost(), self.madds, rel_tol=1e-9):
+            raise PlanError("stored plan's cost does not match its tree (corrupted)")
+        return tree
+
+
+def _slice_inner(tree, target: int, minimize: str, deadline: float = math.inf, hard_deadline: float = math.inf):
+    """Slice until the largest intermediate fits ``target``, reconfiguring subtrees between rounds
+    while time is left before ``deadline`` (cotengra's slice-and-reconfigure, with a stop when no
+    inner index is left to slice); past it, slicing goes on without reconfiguration until
+    ``hard_deadline``, where it stops and the caller reports the cap as not reached. Output indices
+    (batch, open qubits) are never sliced: slices are summed, and summing over an output index would
+    add different amplitudes together."""
+    tree = tree.copy()
+    while tree.max_size() > target:
+        now = time.perf_counter()
+        if now > hard_deadline:
+            break
+        before = (tree.nslices, tree.max_size())
+        try:
+            tree.slice_(target_slices=2, minimize=minimize, allow_outer=False, max_repeats=16 if now < deadline else 2)
+        except (KeyError, ValueError, RuntimeError):   # cotengra: no candidate index left to slice
+            break
+        if time.perf_counter() < deadline:
+            tree.subtree_reconfigure_(minimize=minimize, maxiter=64)
+        if (tree.nslices, tree.max_size()) == before:
+            break                     # nothing left to slice: the caller reports the cap as unreachable
+    return tree
+
+
+def _excess(tree, target: float) -> float:
+    """log2 of how far the tree's largest intermediate is above ``target``."""
+    return math.log2(max(tree.max_size(), 1)) - math.log2(target)
+
+
+def _checksum(doc: dict) -> str:
+    body = {k: v for k, v in doc.items() if k != "checksum"}
+    blob = json.dumps(body, sort_keys=True, separators=(",", ":")).encode()
+    return hashlib.sha256(blob).hexdigest()
+
+
+def plan_from_tree(tree, structure: NetworkStructure, options: dict) -> Plan:
+    canon = structure.canonical
+    sliced = tuple(canon[ix] for ix in tree.sliced_inds)
+    if tree.sliced_inds:
+        unsliced = tree.copy()
+        unsliced.unslice_all_()
+        madds_unsliced = float(unsliced.contraction_cost())
+    else:
+        madds_unsliced = float(tree.contraction_cost())
+    return Plan(
+        network_key=structure.key,
+        ssa_path=tuple(tuple(int(i) for i in p) for p in tree.get_ssa_path()),
+        sliced=sliced,
+        madds=float(tree.contraction_cost()),
+        madds_unsliced=madds_unsliced,
+        width=float(tree.contraction_width()) if structure.num_tensors > 1 else 0.0,
+        peak_elements=float(tree.peak_size()),
+        nslices=int(tree.nslices),
+        options=options,
+        writes=float(tree.total_write()),
+    )
+
+
+@dataclass(frozen=True)
+class PlannerOptions:
+    """How hard to search: a time budget (seconds, all stages together), a repeat cap, a memory target
+    per slice (elements of the largest intermediate) and the processes used for trials."""
+
+    budget_seconds: float = defaults.PLAN_BUDGET_SECONDS
+    max_repeats: int = 10 ** 6            # the budget decides; this only caps tiny budgets in tests
+    max_elements: float | None = None     # largest intermediate allowed (elements); None = no cap
+    # "combo" weighs memory writes with flops: on a 30-qubit 14-cycle network it gave 2x faster
+    # contractions than "flops" despite 3x more multiply-adds (writes dominate on these machines)
+    minimize: str = "combo"
+    seed: int = 0
+    parallel: bool | int = False          # explicit: never 'auto'; an int > 1 is a number of processes
+    simplify: bool = True                 # structure-only simplification before the search
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+#: a tree needing more than 2^48 slices is not sliced at all: it is not feasible on any machine this
+#: service runs on, and slicing it would take minutes of search for nothing
+MAX_SLICED_LOG2 = 48
+#: in-trial slicing when the greedy baseline's width is at most 2^12 times the target (measured: the
+#: 53-qubit 12-cycle network's baseline is 2^9 above a 2^28 target; a 63-qubit QFT's 2^36 above,
+#: where one trial sliced for 48 s)
+IN_TRIAL_SLICING_LOG2 = 12
+#: log2 of how far above the memory target a tree may be for the final reconfiguration and for
+#: comparing trees by their sliced cost (beyond it the unsliced cost times the slices is the measure)
+FAR_ABOVE_TARGET = 6
+
+
+def _search(inputs, output, sizes, options: PlannerOptions, methods, deadline: float, target, width_log2: float,
+            grace: float = 1.0):
+    """The hyper-optimized search on (inputs, output, sizes) until ``deadline`` (see
+    :func:`_run_search`). When the greedy baseline's width is within 2^12 of ``target``, every trial
+    is scored after slicing to it, so the tree is chosen for the cap, not sliced after the fact."""
+    import cotengra as ctg
+
+    # slicing interleaved with a bounded subtree reconfiguration inside each trial: on the 53-qubit
+    # 12-cycle network at a 2^28 target it reached 10^13.66 multiply-adds in 60 s against 10^13.91
+    # with plain slicing per trial (kahypar trials, two processes, measured in one session). Far above
+    # the target trials are scored unsliced (one trial sliced for 48 s there) and the best tree is
+    # sliced afterwards.
+    slicing_reconf = None
+    if target is not None and width_log2 - math.log2(target) <= IN_TRIAL_SLICING_LOG2:
+        slicing_reconf = dict(target_size=target, allow_outer=False, reconf_opts=dict(maxiter=64))
+        if "kahypar" in methods:
+            methods = ["kahypar"]
+    workers = 0 if isinstance(options.parallel, bool) else int(options.parallel)
+    pool = cf.ProcessPoolExecutor(workers) if workers > 1 else None
+    try:
+        opt = ctg.HyperOptimizer(
+            methods=methods, minimize=options.minimize, max_repeats=options.max_repeats, max_time=1.0,
+            parallel=pool if pool is not None else options.parallel, reconf_opts=None, slicing_opts=None,
+            slicing_reconf_opts=slicing_reconf, progbar=False, on_trial_error="ignore",
+        )
+        return _run_search(opt, inputs, output, sizes, deadline, pool, grace)
+    finally:
+        if pool is not None:
+            pool.shutdown(wait=False, cancel_futures=True)
+
+
+def _run_search(opt, inputs, output, sizes, deadline: float, pool, grace: float):
+    """Run ``opt`` until ``deadline``; with a ``pool`` of worker processes, at most ``grace`` seconds
+    past it. Returns (best tree or None, trials done)."""
+    # one call for the whole budget: splitting it into rounds lost most trials in flight when a round
+    # ended (12 trials in 90 s against 34 in 60 s on the 53-qubit network)
+    opt.max_time = max(0.05, deadline - time.perf_counter())
+    if pool is None:
+        try:
+            best = opt.search(inputs, output, sizes)
+        except (ValueError, KeyError, RuntimeError):      # no trial finished in time
+            best = None
+        return best, len(opt.scores)
+    # with worker processes the deadline is hard: trials still running shortly after it are ended
+    # (their processes terminated) and the best tree reported so far is kept
+    done: dict = {}
+
+    def run() -> None:
+        try:
+            done["tree"] = opt.search(inputs, output, sizes)
+        except Exception:                                 # no trial finished, or the pool was ended
+            pass
+
+    worker = threading.Thread(target=run, name="veramp-plan-search", daemon=True)
+    worker.start()
+    worker.join(max(0.0, deadline - time.perf_counter()) + grace)
+    if worker.is_alive():
+        for proc in list((getattr(pool, "_processes", None) or {}).values()):
+            proc.terminate()
+        worker.join(5.0)
+    best = done.get("tree") or (opt.best or {}).get("tree")
+    trials = len(opt.scores)
+    return best, trials
+
+
+def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOptions()) -> Plan:
+    """Search a contraction tree for ``structure`` within ``options``' budget (all stages together).
+
+    Stages: structure-only simplification (:mod:`contraction.simplify`, its steps become the first
+    steps of the path); a randomised-greedy baseline; a hyper-optimized search over trees (greedy and,
+    when installed, kahypar partitions) for 90 % of the budget, in which — when the baseline is within
+    2^12 of the memory target — every trial is scored after slicing to the target, so the tree is
+    chosen for the cap; then a subtree reconfiguration and slicing of the best tree, stopped by the
+    deadline (slicing may take 5 % + 1 s more). With ``parallel`` > 1 the deadline is hard: trials still
+    running are ended. Raises :class:`MemoryLimitError` when no tree within ``max_elements`` is found,
+    with the best figures found ("not feasible" when it would take more than 2^48 slices).
+    """
+    import random
+
+    import cotengra as ctg
+
+    from contraction.network.simplify import simplify_structure
+
+    t0 = time.perf_counter()
+    deadline = t0 + max(0.0, options.budget_seconds)
+    # slicing may run a little past the budget to reach the cap; never more than 5 % (plus 1 s)
+    hard_deadline = deadline + 0.05 * max(0.0, options.budget_seconds) + 1.0
+    methods = ["greedy", "kahypar"] if kahypar_available() else ["greedy", "labels"]
+    target = None if options.max_elements is None else max(2, int(options.max_elements))
+    state = random.getstate()
+    random.seed(options.seed)
+    trials = 0
+    try:
+        if structure.num_tensors <= 2:
+            path = [(0, 1)] if structure.num_tensors == 2 else []
+            tree = ctg.ContractionTree.from_path(structure.inputs, structure.output, structure.size_dict, path=path)
+            reduced_tensors = structure.num_tensors
+        else:
+            red = simplify_structure(structure) if options.simplify else None
+            inputs, output, sizes = ((red.inputs, red.output, red.size_dict) if red is not None
+                                     else (structure.inputs, structure.output, structure.size_dict))
+            reduced_tensors = len(inputs)
+
+            def cost(t):
+                if target is None or t.max_size() <= target:
+                    return t.contraction_cost()
+                # far above the target, slicing only to compare would cost too much time: a lower bound
+                if _excess(t, target) > FAR_ABOVE_TARGET:
+                    return t.contraction_cost() * 2.0 ** _excess(t, target)
+                return _slice_inner(t, target, options.minimize, 0, hard_deadline).contraction_cost()
+
+            if len(inputs) == 1:
+                best = None
+            elif len(inputs) == 2:
+                best = ctg.ContractionTree.from_path(inputs, output, sizes, path=[(0, 1)])
+            else:
+                greedy = ctg.RandomGreedyOptimizer(max_repeats=32 if len(inputs) < 300 else 8, seed=options.seed)
+                best = ctg.array_contract_tree(inputs, output, sizes, optimize=greedy)
+                # the search gets 90 % of what is left; refinement and slicing the rest (measured at
+                # 53 qubits: under 3 s after a 120 s search)
+                search_deadline = time.perf_counter() + 0.9 * (deadline - time.perf_counter())
+                if len(inputs) > 8 and search_deadline - time.perf_counter() > 0.1:
+                    found, trials = _search(inputs, output, sizes, options, methods, search_deadline, target,
+                                            math.log2(max(best.max_size(), 1)),
+                                            grace=0.5 * (deadline - search_deadline))
+                    if found is not None and cost(found) < cost(best):
+                        best = found
+            if red is not None:
+                ssa = [] if best is None else best.get_ssa_path()
+                tree = ctg.ContractionTree.from_path(structure.inputs, structure.output, structure.size_dict,
+                                                     ssa_path=red.full_path(ssa))
+                for ix in ([] if best is None else best.sliced_inds):
+                    tree.remove_ind_(ix)
+            else:
+                tree = best
+            if time.perf_counter() < deadline and (target is None or _excess(tree, target) <= FAR_ABOVE_TARGET):
+                tree.subtree_reconfigure_(minimize=options.minimize, maxiter=256)
+            if target is not None and _excess(tree, target) > MAX_SLICED_LOG2:
+                raise MemoryLimitError(
+                    f"not feasible: the best tree found in {time.perf_counter() - t0:.3g} s has its largest "
+                    f"intermediate at 2^{math.log2(tree.max_size()):.0f} elements, so fitting the cap of "
+                    f"{options.max_elements:.3g} elements would take at least 2^{_excess(tree, target):.0f} slices of "
+                    f"10^{math.log10(max(tree.contraction_cost(), 1)):.1f} multiply-adds each")
+            if target is not None and tree.max_size() > target:
+                tree = _slice_inner(tree, target, options.minimize, deadline, hard_deadline)
+    finally:
+        random.setstate(state)
+    if target is not None and tree.max_size() > options.max_elements:
+        raise MemoryLimitError(
+            f"no plan found whose largest intermediate ({tree.max_size():.3g} elements) fits the cap of "
+            f"{options.max_elements:.3g} elements in {time.perf_counter() - t0:.3g} s (best cost found "
+            f"10^{math.log10(max(tree.contraction_cost(), 1)):.2f} multiply-adds); raise the memory cap or the "
+            f"planning budget")
+    record = options.to_dict()
+    record["methods"] = methods
+    record["trials"] = trials
+    record["tensors_after_simplify"] = reduced_tensors
+    record["search_seconds"] = round(time.perf_counter() - t0, 3)
+    return plan_from_tree(tree, structure, record)
