@@ -70,8 +70,9 @@ class Client:
         body = {"qasm": qasm} if qasm is not None else {"document": document}
         return self._request("POST", "/v1/circuits", json=body).json()
 
-    def estimate(self, bitstrings: int = 1, *, qasm=None, document=None, circuit_id=None, **opts) -> dict:
-        body = {**self._circuit(qasm, document, circuit_id), "bitstrings": bitstrings, **opts}
+    def estimate(self, count: int = 1, *, qasm=None, document=None, circuit_id=None, **opts) -> dict:
+        """The predicted cost of ``count`` distinct amplitudes (nothing is computed)."""
+        body = {**self._circuit(qasm, document, circuit_id), "count": count, **opts}
         return self._request("POST", "/v1/estimates", json=body).json()
 
     def amplitudes(self, bitstrings: list[str], *, qasm=None, document=None, circuit_id=None, **opts) -> dict:

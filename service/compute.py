@@ -59,9 +59,9 @@ def store_circuit(sessions: sessionmaker[Session], circuit: Circuit) -> CircuitR
     from sqlalchemy.exc import IntegrityError
 
     with sessions() as s:
-        row = s.get(CircuitRow, circuit.content_hash)
+        row = s.get(CircuitRow, circuit.circuit_id)
         if row is None:
-            row = CircuitRow(content_hash=circuit.content_hash, structure_hash=circuit.structure_hash,
+            row = CircuitRow(circuit_id=circuit.circuit_id, architecture_id=circuit.architecture_id,
                              num_qubits=circuit.num_qubits, num_gates=len(circuit.gates),
                              document=json.dumps(to_document(circuit)), created=time.time())
             s.add(row)
@@ -69,15 +69,15 @@ def store_circuit(sessions: sessionmaker[Session], circuit: Circuit) -> CircuitR
                 s.commit()
             except IntegrityError:      # another replica stored the same circuit first: same content
                 s.rollback()
-                row = s.get(CircuitRow, circuit.content_hash)
+                row = s.get(CircuitRow, circuit.circuit_id)
         return row
 
 
-def load_circuit(sessions: sessionmaker[Session], content_hash: str) -> Circuit | None:
+def load_circuit(sessions: sessionmaker[Session], circuit_id: str) -> Circuit | None:
     import json
 
     with sessions() as s:
-        row = s.get(CircuitRow, content_hash)
+        row = s.get(CircuitRow, circuit_id)
         if row is None:
             return None
         return from_document(json.loads(row.document), max_qubits=10 ** 9)
@@ -88,7 +88,7 @@ def load_circuit(sessions: sessionmaker[Session], content_hash: str) -> Circuit 
 _LOOKUP_ROWS = {"sqlite": 30000, "postgresql": 20000}
 
 
-def cached_results(s: Session, content_hash: str, bits: list[str], dtype: str) -> dict[str, ResultRow]:
+def cached_results(s: Session, circuit_id: str, bits: list[str], dtype: str) -> dict[str, ResultRow]:
     """Stored results among ``bits`` for this circuit and dtype, keyed by bitstring."""
     out: dict[str, ResultRow] = {}
     unique = list(dict.fromkeys(bits))
@@ -100,13 +100,13 @@ def cached_results(s: Session, content_hash: str, bits: list[str], dtype: str) -
             match = ResultRow.bitstring == any_(literal(part, ARRAY(String)))
         else:
             match = ResultRow.bitstring.in_(part)
-        q = select(ResultRow).where(ResultRow.circuit_hash == content_hash, ResultRow.dtype == dtype, match)
+        q = select(ResultRow).where(ResultRow.circuit_id == circuit_id, ResultRow.dtype == dtype, match)
         out.update({r.bitstring: r for r in s.scalars(q)})
     return out
 
 
-def _save(sessions, content_hash: str, dtype: str, results, engine: str, plan_hash: str | None) -> None:
-    rows = [{"circuit_hash": content_hash, "bitstring": r.bitstring, "dtype": dtype,
+def _save(sessions, circuit_id: str, dtype: str, results, engine: str, plan_hash: str | None) -> None:
+    rows = [{"circuit_id": circuit_id, "bitstring": r.bitstring, "dtype": dtype,
              "re": r.amplitude.real, "im": r.amplitude.imag, "engine": engine,
              "plan_hash": plan_hash, "created": time.time()}
             for r in results]
@@ -123,7 +123,7 @@ def _save(sessions, content_hash: str, dtype: str, results, engine: str, plan_ha
             # limits on bound variables ("insertmanyvalues")
             s.execute(insert(ResultRow).on_conflict_do_nothing(), rows)
         else:
-            have = cached_results(s, content_hash, [r["bitstring"] for r in rows], dtype)
+            have = cached_results(s, circuit_id, [r["bitstring"] for r in rows], dtype)
             s.add_all(ResultRow(**r) for r in rows if r["bitstring"] not in have)
         s.commit()
 
@@ -140,7 +140,7 @@ def compute(sessions: sessionmaker[Session], circuit: Circuit, bits: list[str], 
     t0 = time.perf_counter()
     if have is None:
         with sessions() as s:
-            have = cached_results(s, circuit.content_hash, bits, dtype)
+            have = cached_results(s, circuit.circuit_id, bits, dtype)
     todo = [b for b in dict.fromkeys(bits) if b not in have]
     stats = {"computed": 0, "cached": 0, "madds": 0.0, "engine": None, "plan_hash": None, "plan_cached": None}
     fresh: dict[str, ResultItem] = {}
@@ -151,7 +151,7 @@ def compute(sessions: sessionmaker[Session], circuit: Circuit, bits: list[str], 
 
         def on_results(results) -> None:
             nonlocal done_unique
-            _save(sessions, circuit.content_hash, dtype, results, stamp["engine"], stamp["plan_hash"])
+            _save(sessions, circuit.circuit_id, dtype, results, stamp["engine"], stamp["plan_hash"])
             for r in results:
                 fresh[r.bitstring] = ResultItem(r.bitstring, r.amplitude.real, r.amplitude.imag, False,
                                                 stamp["engine"], stamp["plan_hash"])

@@ -27,8 +27,8 @@ class Base(DeclarativeBase):
 
 class CircuitRow(Base):
     __tablename__ = "circuits"
-    content_hash: Mapped[str] = mapped_column(String(64), primary_key=True)
-    structure_hash: Mapped[str] = mapped_column(String(64), index=True)
+    circuit_id: Mapped[str] = mapped_column("content_hash", String(64), primary_key=True)  # column name of schema v1
+    architecture_id: Mapped[str] = mapped_column("structure_hash", String(64), index=True)  # column name of schema v1
     num_qubits: Mapped[int] = mapped_column(Integer)
     num_gates: Mapped[int] = mapped_column(Integer)
     document: Mapped[str] = mapped_column(Text)           # the JSON circuit document
@@ -46,7 +46,7 @@ class PlanRow(Base):
 
 class ResultRow(Base):
     __tablename__ = "results"
-    circuit_hash: Mapped[str] = mapped_column(String(64), primary_key=True)
+    circuit_id: Mapped[str] = mapped_column("circuit_hash", String(64), primary_key=True)  # column name of schema v1
     bitstring: Mapped[str] = mapped_column(String, primary_key=True)
     dtype: Mapped[str] = mapped_column(String(16), primary_key=True)
     re: Mapped[float] = mapped_column(Float)
@@ -60,7 +60,7 @@ class JobRow(Base):
     __tablename__ = "jobs"
     id: Mapped[str] = mapped_column(String(32), primary_key=True)
     status: Mapped[str] = mapped_column(String(16), index=True)
-    circuit_hash: Mapped[str] = mapped_column(String(64))
+    circuit_id: Mapped[str] = mapped_column("circuit_hash", String(64))  # column name of schema v1
     dtype: Mapped[str] = mapped_column(String(16))
     engine: Mapped[str] = mapped_column(String(16))
     bitstrings: Mapped[str] = mapped_column(Text)         # JSON list, input order

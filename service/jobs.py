@@ -53,7 +53,7 @@ def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_s
             return {}
         job.status, job.started = "running", job.started or time.time()
         s.commit()
-        bits, dtype, engine, chash = job.bitstring_list(), job.dtype, job.engine, job.circuit_hash
+        bits, dtype, engine, chash = job.bitstring_list(), job.dtype, job.engine, job.circuit_id
     last_check = [0.0, False]
 
     def cancelled() -> bool:
@@ -124,10 +124,10 @@ class JobManager:
         with self._lock:
             return len(self._active)
 
-    def create(self, circuit_hash: str, bits: list[str], dtype: str, engine: str, owner: str | None = None) -> JobRow:
+    def create(self, circuit_id: str, bits: list[str], dtype: str, engine: str, owner: str | None = None) -> JobRow:
         if self.depth >= self.settings.queue_size:
             raise Busy(retry_after=5)
-        job = JobRow(id=uuid.uuid4().hex, status="queued", circuit_hash=circuit_hash, dtype=dtype,
+        job = JobRow(id=uuid.uuid4().hex, status="queued", circuit_id=circuit_id, dtype=dtype,
                      engine=engine, bitstrings=json.dumps(bits), total=len(dict.fromkeys(bits)), done=0,
                      cancel_requested=0, created=time.time(), owner=owner)
         with self.sessions() as s:
@@ -223,6 +223,6 @@ def job_out(job: JobRow) -> JobOut:
     eta = None
     if job.status == "running" and job.started and job.done:
         eta = (time.time() - job.started) / job.done * (job.total - job.done)
-    return JobOut(job_id=job.id, status=job.status, circuit_id=job.circuit_hash, total=job.total,
+    return JobOut(job_id=job.id, status=job.status, circuit_id=job.circuit_id, total=job.total,
                   done=job.done, progress=progress, eta_seconds=eta, error=job.error,
                   provenance=json.loads(job.provenance) if job.provenance else None)

@@ -38,7 +38,7 @@ class CircuitDetail(CircuitOut):
 
 
 class EstimateIn(CircuitRef):
-    bitstrings: int = Field(1, ge=1, description="number of amplitudes wanted")
+    count: int = Field(1, ge=1, description="number of distinct amplitudes wanted")
     dtype: Dtype = "complex128"
     engine: Engine = "auto"
 
@@ -133,7 +133,7 @@ class MarginalIn(CircuitRef):
     model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [
         {"circuit": {"qasm": GHZ_EXAMPLE}, "qubits": [0, 2]}]})
     qubits: list[int] = Field(..., min_length=1, max_length=20, description="the k measured qubits, in output order")
-    engine: Literal["auto", "statevector", "network"] = "auto"
+    engine: Literal["auto", "statevector", "single"] = "auto"
 
 
 class MarginalOut(BaseModel):

@@ -9,27 +9,32 @@ from pathlib import Path
 from pydantic import Field
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
+from contraction import defaults
+
 
 def _default_data_dir() -> Path:
     return Path(os.environ.get("XDG_DATA_HOME", Path.home() / ".local" / "share")) / "veramp"
 
 
 class Settings(BaseSettings):
+    """Every setting of the service and the command line; each field is read from ``VERAMP_<NAME>``
+    (sizes in bytes, times in seconds). Engine defaults come from :mod:`contraction.defaults`."""
+
     model_config = SettingsConfigDict(env_prefix="VERAMP_", extra="ignore")
 
     data_dir: Path = Field(default_factory=_default_data_dir, description="database, plans, calibration")
     database_url: str | None = Field(None, description="SQLAlchemy URL; default SQLite in data_dir")
     host: str = Field("127.0.0.1", description="listen address of `veramp serve`")
     port: int = Field(8350, description="port of `veramp serve`")
-    memory_bytes: int = Field(8 * 2 ** 30, description="peak memory cap of one run (local worker processes that "
+    memory_bytes: int = Field(defaults.MEMORY_BYTES, description="peak memory cap of one run (local worker processes that "
                                                        "contract slices side by side share it)")
     workers: int = Field(max(1, (os.cpu_count() or 1)), description="worker processes for contractions")
-    plan_budget_seconds: float = Field(5.0, description="default planning budget")
+    plan_budget_seconds: float = Field(defaults.PLAN_BUDGET_SECONDS, description="default planning budget")
     plan_processes: int = Field(max(1, (os.cpu_count() or 1)), description="processes for the plan search of the "
                                                                            "CLI (1: in the calling process)")
     # service limits
-    max_qubits: int = 4096
-    max_gates: int = 200_000
+    max_qubits: int = defaults.MAX_QUBITS
+    max_gates: int = defaults.MAX_GATES
     max_bitstrings: int = 100_000
     max_request_bytes: int = 32 * 2 ** 20
     max_predicted_seconds: float = 24 * 3600.0

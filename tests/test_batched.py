@@ -128,7 +128,7 @@ def test_block_order_is_documented_order(small):
             assert _rel(v, psi[int("".join(b), 2)]) < 1e-10
 
 
-@pytest.mark.parametrize("engine", ["statevector", "network"])
+@pytest.mark.parametrize("engine", ["statevector", "single"])
 def test_marginals_match_state_vector_and_sum_to_one(small, engine):
     p = np.abs(einsum_state(small).reshape((2,) * 12)) ** 2
     qubits = (9, 0, 4)
@@ -148,7 +148,7 @@ def test_ghz_marginals_are_textbook():
     lines = ["OPENQASM 2.0;", 'include "qelib1.inc";', f"qreg q[{n}];", "h q[0];"]
     lines += [f"cx q[{i}],q[{i + 1}];" for i in range(n - 1)]
     ghz = read_qasm("\n".join(lines))
-    m = marginal_probabilities(ghz, (3, 17, 29), engine="network", planner=FAST_PLANNER)
+    m = marginal_probabilities(ghz, (3, 17, 29), engine="single", planner=FAST_PLANNER)
     assert np.allclose(m.values, [0.5, 0, 0, 0, 0, 0, 0, 0.5], atol=1e-12)
     # reverse light cone of qubit 3: H, CNOTs 0-1, 1-2, 2-3, and 3-4 (it touches qubit 3; a cone
     # built from the layout cannot tell a control from a target); the 25 later CNOTs are dropped

@@ -71,7 +71,7 @@ def test_path_endpoints(grid):
     thetas = [0.0, 0.3, 1.0]
     pn, engine_n = path_probabilities(path, x, thetas, engine="single", planner=FAST_PLANNER)
     ps, _ = path_probabilities(path, x, thetas)
-    assert engine_n == "network" and np.max(np.abs(pn - ps) / ps) < 1e-10
+    assert engine_n == "single" and np.max(np.abs(pn - ps) / ps) < 1e-10
 
 
 @pytest.fixture(scope="module")

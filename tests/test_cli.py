@@ -155,3 +155,24 @@ def test_path_command_recovers_with_honest_bounds(ghz_file, capsys):
     rec = doc["recovery"]
     assert rec["corrupted"] == []
     assert rec["actual_error"][0] <= rec["error_bound"][0]
+
+
+def test_plan_then_estimate_reads_the_stored_plan(tmp_path, capsys, monkeypatch):
+    """``veramp plan`` stores a plan; ``veramp estimate --count K`` then prices K one-by-one
+    contractions with that very plan: K times its multiply-adds, nothing searched again."""
+    from contraction.planning.rates import MachineRate
+
+    data = tmp_path / "data"
+    data.mkdir()
+    (data / "calibration.json").write_text(json.dumps(MachineRate(1e10, 0.5, 1e-8, 2e-5, 2e-8, 1, 0.0).to_dict()))
+    monkeypatch.setenv("VERAMP_DATA_DIR", str(data))
+    circ = str(tmp_path / "g.qasm")
+    assert main(["generate", "--grid", "3x3", "--cycles", "6", "--seed", "2", "--output", circ]) == 0
+    assert main(["plan", circ, "--budget", "0.5"]) == 0
+    planned = json.loads(capsys.readouterr().out)
+    assert planned["stored"] is True and planned["best_madds"] > 0
+    assert main(["estimate", circ, "--count", "4", "--engine", "single", "--format", "json"]) == 0
+    est = json.loads(capsys.readouterr().out)
+    assert est["count"] == 4 and est["engine"] == "single" and est["plan_cached"] is True
+    assert est["madds"] == pytest.approx(4 * planned["best_madds"], rel=1e-12)
+    assert est["reason"] == "requested"

@@ -22,9 +22,17 @@ from typing import Sequence
 
 import numpy as np
 
+from contraction import defaults
+from contraction.circuits.bitstrings import check_bitstrings
 from contraction.circuits.model import Circuit, Gate
 from contraction.circuits.random_instances import haar_unitary
 from contraction.errors import VerampError
+from contraction.execution.executor import combine_scaled
+from contraction.execution.slices import Task, make_runner
+from contraction.execution.statevector import state_vector
+from contraction.network.builder import build_structure, resolve_dtype, tensor_arrays
+from contraction.planning.engine_choice import network_plan
+from contraction.planning.search import PlannerOptions
 
 
 def cayley(h: np.ndarray, theta: float = 1.0) -> np.ndarray:
@@ -101,18 +109,12 @@ def path_probabilities(path: CayleyPath, bitstring: str, thetas: Sequence[float]
                        workers: int = 1, runner=None) -> tuple[np.ndarray, str]:
     """p(theta) = |<x|C(theta)|0...0>|^2 at each theta, and the engine used.
 
-    Small circuits use the state vector per theta. Otherwise the network is planned once for the
+    ``engine``: auto, statevector or single. Small circuits use the state vector per theta;
+    otherwise (``single``) the network is planned once for the
     whole path (the layout does not change) and every theta is one task of the runner, so the
     thetas run side by side on the local worker processes or a Dask cluster."""
-    from contraction import defaults
-    from contraction.circuits.bitstrings import check_bitstrings
-    from contraction.execution.executor import combine_scaled
-    from contraction.execution.slices import Task, make_runner
-    from contraction.execution.statevector import state_vector
-    from contraction.network.builder import build_structure, resolve_dtype, tensor_arrays
-    from contraction.planning.engine_choice import network_plan
-    from contraction.planning.search import PlannerOptions
-
+    if engine not in ("auto", "statevector", "single"):
+        raise VerampError(f"unknown engine {engine!r} for a path; choose auto, statevector or single")
     [bits] = check_bitstrings([bitstring], path.circuit.num_qubits)
     dt = resolve_dtype(dtype)
     n = path.circuit.num_qubits
@@ -130,4 +132,4 @@ def path_probabilities(path: CayleyPath, bitstring: str, thetas: Sequence[float]
         out[k] = abs(complex(combine_scaled(results).reshape(()))) ** 2
 
     runner.run(plan, structure, tasks, done)
-    return out, "network"
+    return out, "single"

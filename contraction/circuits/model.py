@@ -2,9 +2,9 @@
 
 A :class:`Circuit` is immutable once built. It has two fingerprints:
 
-* :attr:`Circuit.content_hash` covers everything that changes an amplitude (qubit count, gate
+* :attr:`Circuit.circuit_id` covers everything that changes an amplitude (qubit count, gate
   layout, every matrix entry, the global phase) and nothing that does not (labels);
-* :attr:`Circuit.structure_hash` covers the layout only: the qubit count and, in order, the
+* :attr:`Circuit.architecture_id` covers the layout only: the qubit count and, in order, the
   qubits each gate acts on. Random instances of one architecture share it.
 """
 
@@ -95,7 +95,7 @@ class Circuit:
         return tuple(g.qubits for g in self.gates)
 
     @cached_property
-    def structure_hash(self) -> str:
+    def architecture_id(self) -> str:
         h = hashlib.sha256(b"veramp-structure-v1\0")
         h.update(struct.pack("<q", self.num_qubits))
         for qs in self.layout:
@@ -103,7 +103,7 @@ class Circuit:
         return h.hexdigest()
 
     @cached_property
-    def content_hash(self) -> str:
+    def circuit_id(self) -> str:
         h = hashlib.sha256(b"veramp-content-v1\0")
         h.update(struct.pack("<qd", self.num_qubits, self.global_phase + 0.0))
         for g in self.gates:

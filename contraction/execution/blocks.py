@@ -116,8 +116,8 @@ def marginal_probabilities(circuit: Circuit, qubits, *, dtype: str = "complex128
     t0 = time.perf_counter()
     qs = _check_qubits(circuit, qubits)
     dt = resolve_dtype(dtype)
-    if engine not in ("auto", "statevector", "network"):
-        raise VerampError(f"unknown engine {engine!r} for marginals; choose auto, statevector or network")
+    if engine not in ("auto", "statevector", "single"):
+        raise VerampError(f"unknown engine {engine!r} for marginals; choose auto, statevector or single")
     rate = rate or NOMINAL_RATE
     sv = statevector_option(circuit, 1, dtype, rate)
     sv_fits = circuit.num_qubits <= defaults.STATEVECTOR_MAX_QUBITS and sv.peak_bytes <= memory_bytes
@@ -125,7 +125,7 @@ def marginal_probabilities(circuit: Circuit, qubits, *, dtype: str = "complex128
         raise VerampError(f"a {circuit.num_qubits}-qubit state vector does not fit the memory cap")
     plan = None
     small = sv_fits and circuit.num_qubits <= defaults.STATEVECTOR_AUTO_QUBITS
-    if engine == "network" or (engine == "auto" and not small):
+    if engine == "single" or (engine == "auto" and not small):
         structure, pruned, ket_structure = marginal_structure(circuit, qs)
         plan, tree, _ = network_plan(structure, plan_store, planner or PlannerOptions(), memory_bytes, dtype)
         predicted = network_seconds(plan, structure, rate, dtype)
@@ -140,7 +140,7 @@ def marginal_probabilities(circuit: Circuit, qubits, *, dtype: str = "complex128
                            time.perf_counter() - t0, None)
     ket = tensor_arrays(ket_structure, pruned, "0" * pruned.num_qubits, dt)
     value = contract_array(tree, ket + [a.conj() for a in ket])
-    reason = "requested" if engine == "network" else (
+    reason = "requested" if engine == "single" else (
         f"network predicted {predicted:.3g} s" + (f" < state vector {sv.seconds:.3g} s" if sv_fits
                                                  else "; a state vector does not fit the memory cap"))
-    return BlockResult(qs, np.real(value).reshape(-1), "network", reason, time.perf_counter() - t0, plan)
+    return BlockResult(qs, np.real(value).reshape(-1), "single", reason, time.perf_counter() - t0, plan)

@@ -27,7 +27,7 @@ class Estimate:
     engine: str
     reason: str
     num_qubits: int
-    bitstrings: int
+    count: int                   # distinct amplitudes asked for
     dtype: str
     madds: float                 # complex multiply-adds for the whole request
     flops: float                 # real floating-point operations (8 per complex multiply-add)
@@ -48,17 +48,17 @@ class Estimate:
         return asdict(self)
 
 
-def estimate(circuit: Circuit, bitstrings: int = 1, *, dtype: str = "complex128", engine: str = "auto",
+def estimate(circuit: Circuit, count: int = 1, *, dtype: str = "complex128", engine: str = "auto",
              rate: MachineRate, planner: PlannerOptions | None = None, plan_store: PlanStore | None = None,
              memory_bytes: float = defaults.MEMORY_BYTES) -> Estimate:
-    """The cost report for ``bitstrings`` distinct amplitudes of ``circuit``: the engine the
+    """The cost report for ``count`` distinct amplitudes of ``circuit``: the engine the
     automatic choice (or ``engine``) would run, why, and what every option would take."""
     resolve_dtype(dtype)
-    c = choose(circuit, bitstrings, engine=engine, dtype=dtype, rate=rate, store=plan_store, planner=planner,
+    c = choose(circuit, count, engine=engine, dtype=dtype, rate=rate, store=plan_store, planner=planner,
                memory_bytes=memory_bytes)
     o, n = c.chosen, circuit.num_qubits
-    common = dict(engine=c.engine, reason=c.reason, num_qubits=n, bitstrings=bitstrings, dtype=dtype,
-                  madds=o.madds, flops=FLOPS_PER_MADD * o.madds, madds_per_bitstring=o.madds / max(1, bitstrings),
+    common = dict(engine=c.engine, reason=c.reason, num_qubits=n, count=count, dtype=dtype,
+                  madds=o.madds, flops=FLOPS_PER_MADD * o.madds, madds_per_bitstring=o.madds / max(1, count),
                   peak_bytes=int(o.peak_bytes), predicted_seconds=o.seconds, memory_cap_bytes=int(memory_bytes),
                   predictions=c.predictions())
     if o.plan is None:

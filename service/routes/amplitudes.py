@@ -21,10 +21,10 @@ def post_estimate(body: EstimateIn, state: AppState = Depends(get_state)) -> dic
     """What the amplitudes would cost: multiply-adds, FLOPs, peak memory, slices, predicted time."""
     circuit = resolve_circuit(state, body)
     s = state.settings
-    est = estimate(circuit, body.bitstrings, dtype=body.dtype, engine=body.engine, rate=state.rate(),
+    est = estimate(circuit, body.count, dtype=body.dtype, engine=body.engine, rate=state.rate(),
                    planner=PlannerOptions(budget_seconds=min(s.plan_budget_seconds, 2.0)),
                    plan_store=SqlPlanStore(state.sessions), memory_bytes=s.memory_bytes)
-    return {"circuit_id": circuit.content_hash, **est.to_dict(), "rates": state.rate_source()}
+    return {"circuit_id": circuit.circuit_id, **est.to_dict(), "rates": state.rate_source()}
 
 
 def _all_cached(state: AppState, body: AmplitudesIn) -> AmplitudesOut | None:
@@ -76,10 +76,10 @@ def post_amplitudes(body: AmplitudesIn, response: Response, request: Request, st
     from ..compute import cached_results
 
     with state.sessions() as sess:
-        have = cached_results(sess, circuit.content_hash, bits, body.dtype)
+        have = cached_results(sess, circuit.circuit_id, bits, body.dtype)
     all_cached = len(have) == len(set(bits))
     if not all_cached and (predicted is None or predicted > s.sync_threshold_seconds):
-        job = state.jobs.create(circuit.content_hash, bits, body.dtype, body.engine, owner=owner_of(request))
+        job = state.jobs.create(circuit.circuit_id, bits, body.dtype, body.engine, owner=owner_of(request))
         state.metrics.queue_depth.set(state.jobs.depth)
         response.status_code = 202
         response.headers["Location"] = f"/v1/jobs/{job.id}"
@@ -95,6 +95,6 @@ def post_amplitudes(body: AmplitudesIn, response: Response, request: Request, st
                       wall_seconds=stats["wall_seconds"], computed=stats["computed"], cached=stats["cached"],
                       reason=stats.get("reason"), batch=stats.get("batch"), chunks=stats.get("chunks"),
                       predicted_seconds=stats.get("predicted_seconds"), rates=state.rate_source())
-    return AmplitudesOut(circuit_id=circuit.content_hash, provenance=prov, results=[
+    return AmplitudesOut(circuit_id=circuit.circuit_id, provenance=prov, results=[
         AmplitudeOut(bitstring=i.bitstring, amplitude=(i.re, i.im), probability=i.probability, cached=i.cached)
         for i in items])

@@ -26,7 +26,7 @@ def post_block(body: BlockIn, state: AppState = Depends(get_state)) -> BlockOut:
     """All 2^k amplitudes on ``qubits`` with the other qubits fixed, from one contraction."""
     circuit = resolve_circuit(state, body)
     r = block_amplitudes(circuit, body.qubits, body.fixed, dtype=body.dtype, engine=body.engine, **_options(state))
-    return BlockOut(circuit_id=circuit.content_hash, qubits=list(r.qubits), order=ORDER,
+    return BlockOut(circuit_id=circuit.circuit_id, qubits=list(r.qubits), order=ORDER,
                     amplitudes=[(v.real, v.imag) for v in r.values.tolist()], engine=r.engine, reason=r.reason,
                     wall_seconds=r.wall_seconds)
 
@@ -37,5 +37,5 @@ def post_marginal(body: MarginalIn, state: AppState = Depends(get_state)) -> Mar
     """Marginal probabilities on ``qubits`` (summed over every other qubit)."""
     circuit = resolve_circuit(state, body)
     r = marginal_probabilities(circuit, body.qubits, engine=body.engine, **_options(state))
-    return MarginalOut(circuit_id=circuit.content_hash, qubits=list(r.qubits), order=ORDER,
+    return MarginalOut(circuit_id=circuit.circuit_id, qubits=list(r.qubits), order=ORDER,
                        probabilities=r.values.tolist(), engine=r.engine, reason=r.reason, wall_seconds=r.wall_seconds)

@@ -19,7 +19,7 @@ def register_circuit(body: CircuitIn, state: AppState = Depends(get_state)) -> C
     """Register a circuit; its id is the content hash, its architecture id the structure hash."""
     c = parse_circuit(state, body)
     store_circuit(state.sessions, c)
-    return CircuitOut(circuit_id=c.content_hash, architecture_id=c.structure_hash,
+    return CircuitOut(circuit_id=c.circuit_id, architecture_id=c.architecture_id,
                       num_qubits=c.num_qubits, num_gates=len(c.gates))
 
 
@@ -29,5 +29,5 @@ def get_circuit(circuit_id: str, state: AppState = Depends(get_state)) -> Circui
         row = s.get(CircuitRow, circuit_id)
     if row is None:
         raise NotFound(f"no circuit with id {circuit_id}")
-    return CircuitDetail(circuit_id=row.content_hash, architecture_id=row.structure_hash,
+    return CircuitDetail(circuit_id=row.circuit_id, architecture_id=row.architecture_id,
                          num_qubits=row.num_qubits, num_gates=row.num_gates, document=json.loads(row.document))

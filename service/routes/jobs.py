@@ -50,7 +50,7 @@ def _items(state: AppState, job: JobRow, offset: int, limit: int | None):
     bits = job.bitstring_list()
     part = bits[offset:None if limit is None else offset + limit]
     with state.sessions() as s:
-        have = cached_results(s, job.circuit_hash, part, job.dtype)
+        have = cached_results(s, job.circuit_id, part, job.dtype)
     for b in part:
         r = have.get(b)
         if r is None:  # evicted or never stored: report, never invent

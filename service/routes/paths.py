@@ -48,7 +48,7 @@ def post_path(body: PathIn, state: AppState = Depends(get_state)) -> PathOut:
     """p(theta) at the given thetas (one plan for the whole path); with ``recover``, p recovered at
     ``targets`` from samples at ``nodes``, with error bounds (targets the samples do not determine are declined, with the reason)."""
     circuit, path, probs, engine, recovery = _compute(body, state)
-    return PathOut(circuit_id=circuit.content_hash, bitstring=body.bitstring, seed=body.seed, engine=engine,
+    return PathOut(circuit_id=circuit.circuit_id, bitstring=body.bitstring, seed=body.seed, engine=engine,
                    gate_dimension_sum=path.degree_bound, fitted_degree=2 * path.degree_bound, theta=body.thetas, probability=probs.tolist(),
                    recovery=recovery.to_dict() if recovery else None)
 

@@ -36,7 +36,7 @@ def _probabilities(state: AppState, body: XebIn):
     circuit = resolve_circuit(state, body)
     bits = check_bitstrings(body.samples, circuit.num_qubits)
     with state.sessions() as sess:
-        all_cached = len(cached_results(sess, circuit.content_hash, bits, "complex128")) == len(set(bits))
+        all_cached = len(cached_results(sess, circuit.circuit_id, bits, "complex128")) == len(set(bits))
     if not all_cached:
         predicted = state.predicted_seconds(circuit, len(set(bits)), "complex128", "auto")
         if predicted is None or predicted > s.sync_threshold_seconds:
@@ -52,7 +52,7 @@ def _probabilities(state: AppState, body: XebIn):
 def post_xeb(body: XebIn, state: AppState = Depends(get_state)) -> dict:
     """Linear XEB (sample, model and bootstrap errors) and log XEB of device samples."""
     circuit, probs = _probabilities(state, body)
-    return {"circuit_id": circuit.content_hash,
+    return {"circuit_id": circuit.circuit_id,
             **estimate_xeb(probs, circuit.num_qubits, bootstrap=body.bootstrap, seed=body.seed).to_dict()}
 
 

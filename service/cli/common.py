@@ -1,0 +1,145 @@
+"""What every command shares: reading files and bitstrings, settings, the plan store, output."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import numpy as np
+
+from contraction.circuits.bitstrings import read_bitstrings
+from contraction.circuits.loader import load_circuit
+from contraction.errors import VerampError
+from contraction.planning.estimate import parse_bytes
+from contraction.planning.rates import read_rate
+from contraction.planning.store import DirectoryPlanStore
+
+from ..settings import Settings
+
+
+
+class UsageError(VerampError):
+    """A command line that cannot be carried out (missing file, bad option value)."""
+
+    kind = "usage"
+
+
+def read_text(path: str) -> str:
+    """The text of ``path`` ('-' for stdin); raises :class:`UsageError` naming the problem."""
+    if path == "-":
+        return sys.stdin.read()
+    p = Path(path)
+    try:
+        return p.read_text()
+    except FileNotFoundError:
+        raise UsageError(f"no such file: {path}") from None
+    except IsADirectoryError:
+        raise UsageError(f"{path} is a directory, not a file") from None
+    except UnicodeDecodeError:
+        raise UsageError(f"{path} is not a text file") from None
+    except OSError as exc:
+        raise UsageError(f"cannot read {path}: {exc.strerror}") from None
+
+
+def load_circuit_file(path: str):
+    """Read a circuit file within the configured limits (VERAMP_MAX_QUBITS, VERAMP_MAX_GATES)."""
+    s = current_settings()
+    return load_circuit(read_text(path), source=path, max_qubits=s.max_qubits, max_gates=s.max_gates)
+
+
+def bitstrings_from_args(args) -> list[str]:
+    """The bitstrings of ``--bitstring B`` (repeatable) and ``--bitstrings FILE``, in order."""
+    out = list(args.bitstring or [])
+    if args.bitstrings:
+        out += read_bitstrings(read_text(args.bitstrings))
+    if not out:
+        raise UsageError("give bitstrings with --bitstring B (repeatable) or --bitstrings FILE")
+    return out
+
+
+def fmt_complex(z: complex) -> str:
+    """A complex number in full double precision, e.g. ``+7.0710678118654757e-01+0.0000000000000000e+00j``."""
+    return f"{z.real:+.16e}{z.imag:+.16e}j"
+
+
+def current_settings() -> Settings:
+    """The settings from the environment (``VERAMP_*``), read afresh for each command."""
+    return Settings()
+
+
+def memory_cap(args, settings) -> int:
+    """Bytes of ``--memory`` when given, else the configured cap."""
+    return parse_bytes(args.memory) if getattr(args, "memory", None) else settings.memory_bytes
+
+
+def plan_store(settings) -> DirectoryPlanStore:
+    """The plan directory of the settings; raises :class:`UsageError` when it cannot be used."""
+    try:
+        return DirectoryPlanStore(settings.plan_dir)
+    except OSError as exc:
+        raise UsageError(f"cannot use the plan directory {settings.plan_dir}: {exc.strerror}") from None
+
+
+class ProgressBar:
+    """A one-line progress bar on stderr (only when stderr is a terminal or forced)."""
+
+    def __init__(self, enabled: bool):
+        self.enabled = enabled
+
+    def __call__(self, p) -> None:
+        if not self.enabled:
+            return
+        width = 30
+        filled = int(width * p.done / max(1, p.total))
+        eta = "?" if p.eta_seconds is None else f"{p.eta_seconds:.0f}s"
+        sys.stderr.write(f"\r[{'#' * filled}{'.' * (width - filled)}] {p.done}/{p.total} tasks, ETA {eta} ")
+        if p.done >= p.total:
+            sys.stderr.write("\n")
+        sys.stderr.flush()
+
+
+def stored_rate(settings):
+    """The stored calibration, or None (nominal rates) — never a silent calibration run."""
+    return read_rate(settings.calibration_path)
+
+
+def qubit_list(text: str, n: int) -> tuple[int, ...]:
+    """'0,3,5' or '0-3,7' -> qubit numbers, checked against the circuit."""
+    out: list[int] = []
+    try:
+        for part in text.split(","):
+            if "-" in part:
+                a, b = part.split("-", 1)
+                out.extend(range(int(a), int(b) + 1))
+            else:
+                out.append(int(part))
+    except ValueError:
+        raise VerampError(f"cannot read qubits from {text!r} (e.g. 0,3,5 or 0-3)") from None
+    bad = [q for q in out if not 0 <= q < n]
+    if bad or len(set(out)) != len(out) or not out:
+        raise VerampError(f"qubits {text!r} must be distinct numbers in 0..{n - 1}")
+    return tuple(out)
+
+
+def theta_list(text: str) -> list[float]:
+    """'0:1:21' (21 points from 0 to 1) or '0.1,0.5,1' -> values."""
+    try:
+        if ":" in text:
+            a, b, k = text.split(":")
+            if int(k) < 1 or int(k) > 100_000:
+                raise ValueError
+            return [float(v) for v in np.linspace(float(a), float(b), int(k))]
+        return [float(v) for v in text.split(",")]
+    except ValueError:
+        raise VerampError(f"cannot read theta values from {text!r} (e.g. 0:1:21 or 0.1,0.5,1)") from None
+
+
+def write_out(path: str | None, text: str) -> None:
+    """Write ``text`` to ``path`` (stdout for None or '-')."""
+    if path in (None, "-"):
+        sys.stdout.write(text)
+    else:
+        try:
+            Path(path).write_text(text)
+        except OSError as exc:
+            raise UsageError(f"cannot write {path}: {exc.strerror}") from None

@@ -1,0 +1,41 @@
+"""``veramp serve``: the REST service on uvicorn."""
+
+from __future__ import annotations
+
+import json
+import logging
+from pathlib import Path
+
+import uvicorn
+
+from ..app import create_app
+from ..db import DatabaseError, check_sqlite_file
+from ..settings import Settings
+from .common import UsageError
+
+
+def cmd_serve(args) -> int:
+    overrides = {}
+    if args.data_dir:
+        overrides["data_dir"] = Path(args.data_dir)
+
+    settings = Settings(**overrides)
+    logging.basicConfig(level=logging.INFO, format="%(message)s")
+
+    try:
+        note = check_sqlite_file(settings.sqlalchemy_url)
+    except DatabaseError as exc:
+        raise UsageError(f"refusing to start: {exc}") from None
+    if note:
+        logging.getLogger("veramp.api").warning(json.dumps({"event": "database", "note": note}))
+    host = args.host or settings.host
+    if host not in ("127.0.0.1", "localhost", "::1") and not settings.token_set():
+        if args.require_tokens:
+            raise UsageError(f"refusing to serve on {host} without bearer tokens (set VERAMP_TOKENS or "
+                             "VERAMP_TOKENS_FILE, or drop --require-tokens)")
+        logging.getLogger("veramp.api").warning(
+            "WARNING: serving on %s without bearer tokens: anyone who can reach this address can submit work "
+            "and read every job; set VERAMP_TOKENS (or use --require-tokens to refuse this)", host)
+    uvicorn.run(create_app(settings, database_checked=True), host=host, port=args.port or settings.port, log_level="warning",
+                timeout_graceful_shutdown=5)
+    return 0
