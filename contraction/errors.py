@@ -20,6 +20,7 @@ class VerampError(Exception):
         self.message = message
 
     def to_dict(self) -> dict:
+        """The error as the API's JSON body: ``error`` (the kind) and ``message``."""
         return {"error": self.kind, "message": str(self)}
 
 
@@ -50,6 +51,7 @@ class ParseError(VerampError):
         super().__init__(where + message)
 
     def to_dict(self) -> dict:
+        """The JSON body with ``line`` and ``column``."""
         out = super().to_dict()
         out.update({"line": self.line, "column": self.column})
         return out
@@ -71,6 +73,7 @@ class LimitError(VerampError):
         self.limit = limit
 
     def to_dict(self) -> dict:
+        """The JSON body with the name of the ``limit``."""
         out = super().to_dict()
         out["limit"] = self.limit
         return out

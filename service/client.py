@@ -16,12 +16,17 @@ RETRY_STATUS = {429, 502, 503, 504}
 
 
 class ServiceError(Exception):
+    """A 4xx/5xx answer of the service, with its status and JSON body."""
+
     def __init__(self, status: int, body: dict):
         super().__init__(f"{status}: {body.get('message', body)}")
         self.status, self.body = status, body
 
 
 class Client:
+    """A small client for the REST service: bearer token, retries with exponential backoff on connection errors, 429
+    and 5xx."""
+
     def __init__(self, base_url: str, token: str | None = None, timeout: float = 60.0, retries: int = 5,
                  backoff: float = 0.5, transport: httpx.BaseTransport | None = None):
         headers = {"Authorization": f"Bearer {token}"} if token else {}
@@ -35,6 +40,7 @@ class Client:
         self.close()
 
     def close(self) -> None:
+        """Close the HTTP connection pool."""
         self._http.close()
 
     def _request(self, method: str, path: str, **kw) -> httpx.Response:
@@ -67,6 +73,7 @@ class Client:
         return {"circuit": {"qasm": qasm} if qasm is not None else {"document": document}}
 
     def register(self, qasm: str | None = None, document: dict | None = None) -> dict:
+        """Register a circuit (OpenQASM text or JSON document); its ids."""
         body = {"qasm": qasm} if qasm is not None else {"document": document}
         return self._request("POST", "/v1/circuits", json=body).json()
 
@@ -81,12 +88,15 @@ class Client:
         return self._request("POST", "/v1/amplitudes", json=body).json()
 
     def job(self, job_id: str) -> dict:
+        """The job's status, progress and provenance."""
         return self._request("GET", f"/v1/jobs/{job_id}").json()
 
     def cancel(self, job_id: str) -> dict:
+        """Ask for the job to be cancelled; its status after the request."""
         return self._request("POST", f"/v1/jobs/{job_id}/cancel").json()
 
     def wait(self, job_id: str, poll: float = 0.5, on_progress: Callable[[dict], None] | None = None) -> dict:
+        """Poll the job until it is succeeded, failed or cancelled; ``on_progress`` sees every poll."""
         while True:
             job = self.job(job_id)
             if on_progress is not None:
@@ -96,6 +106,7 @@ class Client:
             time.sleep(poll)
 
     def results(self, job_id: str, page: int = 1000) -> Iterator[dict[str, Any]]:
+        """The job's results in input order, fetched a page at a time."""
         offset = 0
         while True:
             doc = self._request("GET", f"/v1/jobs/{job_id}/results", params={"offset": offset, "limit": page}).json()

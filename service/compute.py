@@ -30,6 +30,8 @@ from .db import CircuitRow, ResultRow, SqlPlanStore
 
 @dataclass
 class ResultItem:
+    """One amplitude of a request, from the cache or computed now, with the engine and plan that made it."""
+
     bitstring: str
     re: float
     im: float
@@ -39,11 +41,13 @@ class ResultItem:
 
     @property
     def probability(self) -> float:
+        """|amplitude|²."""
         return self.re * self.re + self.im * self.im
 
 
 @functools.lru_cache(maxsize=1)
 def versions() -> dict:
+    """Versions of veramp and the numeric libraries, for provenance."""
     import cotengra
     import numpy
 
@@ -54,6 +58,7 @@ def versions() -> dict:
 
 
 def store_circuit(sessions: sessionmaker[Session], circuit: Circuit) -> CircuitRow:
+    """Store the circuit (once; concurrent stores of the same circuit are safe) and return its row."""
     import json
 
     from sqlalchemy.exc import IntegrityError
@@ -74,6 +79,7 @@ def store_circuit(sessions: sessionmaker[Session], circuit: Circuit) -> CircuitR
 
 
 def load_circuit(sessions: sessionmaker[Session], circuit_id: str) -> Circuit | None:
+    """The stored circuit with this id, or None."""
     import json
 
     with sessions() as s:
@@ -132,11 +138,13 @@ def compute(sessions: sessionmaker[Session], circuit: Circuit, bits: list[str], 
             planner: PlannerOptions, memory_bytes: float,
             on_chunk: Callable[[int], None] | None = None,
             cancelled: Callable[[], bool] | None = None,
-            have: dict[str, ResultRow] | None = None, rate=None, runner=None) -> tuple[list[ResultItem], dict]:
+            have: dict[str, ResultRow] | None = None, rate=None, runner=None,
+            choice=None) -> tuple[list[ResultItem], dict]:
     """Amplitudes for ``bits`` (input order), from the cache where possible. Returns (items, stats).
 
     Each finished chunk of new amplitudes is stored at once, so an interrupted job keeps it.
-    ``have`` is the cache lookup when the caller has just made it (saves a second query)."""
+    ``have`` is the cache lookup when the caller has just made it (saves a second query); ``choice``
+    the engine choice the caller made for its prediction (not made again when it fits)."""
     t0 = time.perf_counter()
     if have is None:
         with sessions() as s:
@@ -165,7 +173,7 @@ def compute(sessions: sessionmaker[Session], circuit: Circuit, bits: list[str], 
 
         run = amplitudes(circuit, todo, dtype=dtype, engine=engine, planner=planner,
                          plan_store=SqlPlanStore(sessions), memory_bytes=memory_bytes, cancelled=cancelled,
-                         rate=rate, runner=runner, on_results=on_results, on_choice=chosen)
+                         rate=rate, runner=runner, on_results=on_results, on_choice=chosen, choice=choice)
         stats.update(engine=run.engine, plan_hash=stamp["plan_hash"], plan_cached=run.plan_cached,
                      madds=run.madds, reason=run.reason, batch=run.batch, chunks=run.chunks,
                      predicted_seconds=run.predicted_seconds)

@@ -22,10 +22,14 @@ from contraction.planning.store import best_fitting, target_key
 
 
 class Base(DeclarativeBase):
+    """Declarative base of the storage models."""
+
     pass
 
 
 class CircuitRow(Base):
+    """A registered circuit: ids, sizes and its JSON document."""
+
     __tablename__ = "circuits"
     circuit_id: Mapped[str] = mapped_column("content_hash", String(64), primary_key=True)  # column name of schema v1
     architecture_id: Mapped[str] = mapped_column("structure_hash", String(64), index=True)  # column name of schema v1
@@ -36,6 +40,8 @@ class CircuitRow(Base):
 
 
 class PlanRow(Base):
+    """A stored plan: network key, memory class, cost and the plan's JSON."""
+
     __tablename__ = "plans"
     network_key: Mapped[str] = mapped_column(String(64), primary_key=True)
     target: Mapped[str] = mapped_column(String(16), primary_key=True)
@@ -45,6 +51,8 @@ class PlanRow(Base):
 
 
 class ResultRow(Base):
+    """A cached amplitude, by circuit id, bitstring and dtype, with the engine and plan that computed it."""
+
     __tablename__ = "results"
     circuit_id: Mapped[str] = mapped_column("circuit_hash", String(64), primary_key=True)  # column name of schema v1
     bitstring: Mapped[str] = mapped_column(String, primary_key=True)
@@ -57,6 +65,8 @@ class ResultRow(Base):
 
 
 class JobRow(Base):
+    """A job: its bitstrings, status, progress, owner and provenance (a row before it is queued)."""
+
     __tablename__ = "jobs"
     id: Mapped[str] = mapped_column(String(32), primary_key=True)
     status: Mapped[str] = mapped_column(String(16), index=True)
@@ -76,6 +86,7 @@ class JobRow(Base):
     owner: Mapped[str | None] = mapped_column(String(64), nullable=True)
 
     def bitstring_list(self) -> list[str]:
+        """The job's bitstrings in input order."""
         return json.loads(self.bitstrings)
 
 
@@ -151,6 +162,7 @@ def make_engine(url: str) -> Engine:
 
 
 def session_factory(engine: Engine) -> sessionmaker[Session]:
+    """Sessions on ``engine`` whose objects stay readable after commit."""
     return sessionmaker(engine, expire_on_commit=False)
 
 
@@ -168,12 +180,14 @@ class SqlPlanStore:
                 s.delete(row)
 
     def get(self, network_key: str, max_peak_elements: float | None = None) -> Plan | None:
+        """The cheapest stored plan for the key that fits ``max_peak_elements``, or None."""
         with self.sessions() as s:
             plans = list(self._plans(s, network_key))
             s.commit()
         return best_fitting(plans, max_peak_elements)
 
     def put(self, plan: Plan) -> bool:
+        """Keep the plan unless its memory class already has one as cheap; whether it was kept."""
         with self.sessions() as s:
             row = s.get(PlanRow, (plan.network_key, target_key(plan)))
             if row is not None and row.madds <= plan.madds:

@@ -24,6 +24,8 @@ from .settings import Settings
 
 @dataclass
 class AppState:
+    """What every request shares: settings, sessions, the job manager, metrics and the machine rates."""
+
     settings: Settings
     sessions: sessionmaker[Session]
     jobs: JobManager
@@ -70,16 +72,16 @@ class AppState:
             self._rate = load_or_measure(self.settings.calibration_path)
             return self._rate
 
-    def predicted_seconds(self, circuit: Circuit, count: int, dtype: str, engine: str) -> float | None:
-        """Predicted seconds for ``count`` amplitudes from stored plans only (nothing is planned);
-        None when a plan would have to be searched first."""
+    def predict(self, circuit: Circuit, count: int, dtype: str, engine: str):
+        """The engine choice for ``count`` amplitudes from stored plans only (nothing is planned), with
+        its predicted seconds; None when a plan would have to be searched first."""
         from contraction.planning.engine_choice import choose
 
         from .db import SqlPlanStore
 
         c = choose(circuit, count, engine=engine, dtype=dtype, rate=self.rate(), store=SqlPlanStore(self.sessions),
                    memory_bytes=self.settings.memory_bytes, search=False)
-        return None if c is None else c.chosen.seconds
+        return c
 
     def rate_source(self) -> str:
         """'measured', or 'nominal (calibration running)' for provenance."""
@@ -94,10 +96,13 @@ def owner_of(request: Request) -> str | None:
 
 
 def get_state(request: Request) -> AppState:
+    """Dependency: the application's :class:`AppState`."""
     return request.app.state.veramp
 
 
 def parse_circuit(state: AppState, body: CircuitIn) -> Circuit:
+    """The circuit of a request body (OpenQASM or document) within the configured limits; raises :class:`VerampError`
+    or :class:`LimitError`."""
     s = state.settings
     if (body.qasm is None) == (body.document is None):
         raise VerampError("give exactly one of 'qasm' or 'document'")
@@ -113,6 +118,7 @@ def parse_circuit(state: AppState, body: CircuitIn) -> Circuit:
 
 
 def resolve_circuit(state: AppState, ref: CircuitRef) -> Circuit:
+    """The circuit a request names (by id) or carries (stored on the way); raises :class:`NotFound` for an unknown id."""
     if (ref.circuit_id is None) == (ref.circuit is None):
         raise VerampError("give exactly one of 'circuit_id' or 'circuit'")
     if ref.circuit_id is not None:

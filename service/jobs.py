@@ -109,6 +109,8 @@ def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_s
 
 
 class JobManager:
+    """Durable jobs: rows in the database, run in worker processes, resumed after a restart."""
+
     def __init__(self, settings, sessions, on_finish=None):
         self.settings = settings
         self.sessions = sessions
@@ -121,10 +123,12 @@ class JobManager:
 
     @property
     def depth(self) -> int:
+        """Jobs queued or running."""
         with self._lock:
             return len(self._active)
 
     def create(self, circuit_id: str, bits: list[str], dtype: str, engine: str, owner: str | None = None) -> JobRow:
+        """Store and queue a job; raises :class:`Busy` when the queue is full."""
         if self.depth >= self.settings.queue_size:
             raise Busy(retry_after=5)
         job = JobRow(id=uuid.uuid4().hex, status="queued", circuit_id=circuit_id, dtype=dtype,
@@ -181,6 +185,7 @@ class JobManager:
         return len(ids)
 
     def cancel(self, job_id: str) -> None:
+        """Mark the job for cancellation; a queued job never starts, a running one stops at its next task."""
         with self.sessions() as s:
             s.execute(update(JobRow).where(JobRow.id == job_id).values(cancel_requested=1))
             s.commit()

@@ -6,6 +6,9 @@ from prometheus_client import CollectorRegistry, Counter, Gauge, Histogram, gene
 
 
 class Metrics:
+    """Prometheus metrics of one application: requests, latency, queue depth, job seconds, multiply-adds, cache hits
+    and misses."""
+
     def __init__(self) -> None:
         r = self.registry = CollectorRegistry()
         self.requests = Counter("veramp_requests_total", "HTTP requests", ["method", "route", "status"], registry=r)
@@ -19,4 +22,5 @@ class Metrics:
         self.madds = Counter("veramp_madds_total", "complex multiply-adds contracted", registry=r)
 
     def render(self) -> bytes:
+        """The metrics in Prometheus' text format."""
         return generate_latest(self.registry)

@@ -21,12 +21,16 @@ class CircuitIn(BaseModel):
 
 
 class CircuitRef(BaseModel):
+    """A circuit given by id or inline (exactly one of the two)."""
+
     model_config = ConfigDict(extra="forbid")
     circuit_id: str | None = Field(None, description="content hash of a registered circuit")
     circuit: CircuitIn | None = None
 
 
 class CircuitOut(BaseModel):
+    """A registered circuit's ids and sizes."""
+
     circuit_id: str
     architecture_id: str
     num_qubits: int
@@ -34,16 +38,22 @@ class CircuitOut(BaseModel):
 
 
 class CircuitDetail(CircuitOut):
+    """A registered circuit with its JSON document."""
+
     document: dict[str, Any]
 
 
 class EstimateIn(CircuitRef):
+    """What to estimate: a circuit and how many distinct amplitudes."""
+
     count: int = Field(1, ge=1, description="number of distinct amplitudes wanted")
     dtype: Dtype = "complex128"
     engine: Engine = "auto"
 
 
 class AmplitudesIn(CircuitRef):
+    """A circuit and the bitstrings (qubit 0 first) whose amplitudes are wanted."""
+
     model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [
         {"circuit": {"qasm": GHZ_EXAMPLE}, "bitstrings": ["000", "111", "010"]}]})
     bitstrings: list[str] = Field(..., min_length=1, description="qubit 0 first")
@@ -52,6 +62,8 @@ class AmplitudesIn(CircuitRef):
 
 
 class AmplitudeOut(BaseModel):
+    """One bitstring's amplitude (re, im), probability and whether it came from the cache."""
+
     bitstring: str
     amplitude: tuple[float, float]
     probability: float
@@ -59,6 +71,8 @@ class AmplitudeOut(BaseModel):
 
 
 class Provenance(BaseModel):
+    """How an answer was made: versions, engine and reason, plan, dtype, times, cache counts and the rates used."""
+
     versions: dict[str, str]
     engine: str | None
     plan_hash: str | None
@@ -74,6 +88,8 @@ class Provenance(BaseModel):
 
 
 class AmplitudesOut(BaseModel):
+    """Amplitudes in input order with their provenance."""
+
     circuit_id: str
     results: list[AmplitudeOut]
     provenance: Provenance
@@ -83,6 +99,8 @@ JobStatus = Literal["queued", "running", "succeeded", "failed", "cancelled"]
 
 
 class JobOut(BaseModel):
+    """A job's status, progress, ETA, error and provenance."""
+
     job_id: str
     status: JobStatus
     circuit_id: str
@@ -95,6 +113,8 @@ class JobOut(BaseModel):
 
 
 class ResultsPage(BaseModel):
+    """A page of a job's results."""
+
     job_id: str
     offset: int
     limit: int
@@ -103,6 +123,8 @@ class ResultsPage(BaseModel):
 
 
 class ErrorOut(BaseModel):
+    """Every error body: kind, message, and line/column/limit when they apply."""
+
     error: str
     message: str
     line: int | None = None
@@ -111,6 +133,8 @@ class ErrorOut(BaseModel):
 
 
 class BlockIn(CircuitRef):
+    """A circuit, the k open qubits and the fixed values of the others."""
+
     model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [
         {"circuit": {"qasm": GHZ_EXAMPLE}, "qubits": [0, 2], "fixed": "000"}]})
     qubits: list[int] = Field(..., min_length=1, max_length=20, description="the k open qubits, in output order")
@@ -120,6 +144,8 @@ class BlockIn(CircuitRef):
 
 
 class BlockOut(BaseModel):
+    """The 2^k amplitudes of a block, entry order described in ``order``."""
+
     circuit_id: str
     qubits: list[int]
     order: str = Field(..., description="how entry i maps to the qubits' values")
@@ -130,6 +156,8 @@ class BlockOut(BaseModel):
 
 
 class MarginalIn(CircuitRef):
+    """A circuit and the k measured qubits."""
+
     model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [
         {"circuit": {"qasm": GHZ_EXAMPLE}, "qubits": [0, 2]}]})
     qubits: list[int] = Field(..., min_length=1, max_length=20, description="the k measured qubits, in output order")
@@ -137,6 +165,8 @@ class MarginalIn(CircuitRef):
 
 
 class MarginalOut(BaseModel):
+    """The 2^k marginal probabilities, entry order described in ``order``."""
+
     circuit_id: str
     qubits: list[int]
     order: str
@@ -147,6 +177,8 @@ class MarginalOut(BaseModel):
 
 
 class RecoverIn(BaseModel):
+    """Where to sample p(θ) and where to recover it, with the corruption and noise the recovery allows for."""
+
     model_config = ConfigDict(extra="forbid")
     nodes: list[float] = Field(..., min_length=2, max_length=1000, description="theta values to sample p at")
     targets: list[float] = Field([1.0], min_length=1, max_length=200, description="where to evaluate the recovery")
@@ -158,6 +190,8 @@ class RecoverIn(BaseModel):
 
 
 class PathIn(CircuitRef):
+    """A circuit, a bitstring and the Cayley path's seed and thetas, with an optional recovery."""
+
     model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [
         {"circuit": {"qasm": GHZ_EXAMPLE}, "bitstring": "111", "seed": 7, "thetas": [0, 0.5, 1],
          "recover": {"nodes": [0.0, 0.05, 0.1, 0.15, 0.2, 0.25, 0.3, 0.35, 0.4, 0.45, 0.5, 0.55, 0.6, 0.65, 0.7,
@@ -169,6 +203,8 @@ class PathIn(CircuitRef):
 
 
 class PathOut(BaseModel):
+    """p(θ) along the path, the engine used and the recovery if asked for."""
+
     circuit_id: str
     bitstring: str
     seed: int

@@ -47,17 +47,21 @@ class Settings(BaseSettings):
 
     @property
     def plan_dir(self) -> Path:
+        """Directory of the CLI's plan store."""
         return self.data_dir / "plans"
 
     @property
     def calibration_path(self) -> Path:
+        """File of the stored machine rates."""
         return self.data_dir / "calibration.json"
 
     @property
     def sqlalchemy_url(self) -> str:
+        """The database URL: ``database_url`` or SQLite in the data directory."""
         return self.database_url or f"sqlite:///{self.data_dir / 'veramp.sqlite'}"
 
     def token_set(self) -> frozenset[str]:
+        """The bearer tokens from ``tokens`` and ``tokens_file``."""
         tokens = set()
         if self.tokens:
             tokens |= {t.strip() for t in self.tokens.split(",") if t.strip()}
@@ -68,4 +72,5 @@ class Settings(BaseSettings):
 
 @lru_cache
 def get_settings() -> Settings:
+    """The settings, read from the environment once per process."""
     return Settings()

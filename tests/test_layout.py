@@ -93,3 +93,32 @@ def test_no_import_circle_inside_a_layer():
     for m in sorted(graph):
         if m not in state:
             visit(m)
+
+
+PUBLIC_FILES = sorted(list(ROOT.rglob("*.py")) + list((ROOT.parent / "service").rglob("*.py")))
+
+
+def _public_definitions(path: Path):
+    tree = ast.parse(path.read_text())
+    for node in tree.body:
+        if isinstance(node, (ast.FunctionDef, ast.AsyncFunctionDef, ast.ClassDef)) and not node.name.startswith("_"):
+            yield node.name, node
+            if isinstance(node, ast.ClassDef):
+                for sub in node.body:
+                    if isinstance(sub, (ast.FunctionDef, ast.AsyncFunctionDef)) and not sub.name.startswith("_"):
+                        yield f"{node.name}.{sub.name}", sub
+
+
+def test_every_public_function_and_class_says_what_it_does():
+    missing = [f"{p.relative_to(ROOT.parent)}:{n.lineno} {name}" for p in PUBLIC_FILES
+               for name, n in _public_definitions(p) if not ast.get_docstring(n)]
+    assert not missing, "no docstring:\n" + "\n".join(missing)
+
+
+def test_every_package_lists_its_public_names():
+    for init in sorted(list(ROOT.rglob("__init__.py")) + list((ROOT.parent / "service").rglob("__init__.py"))):
+        tree = ast.parse(init.read_text())
+        names = [t.id for node in tree.body if isinstance(node, ast.Assign) for t in node.targets
+                 if isinstance(t, ast.Name)]
+        assert "__all__" in names, f"{init} has no __all__"
+        assert ast.get_docstring(tree), f"{init} has no docstring"

@@ -84,8 +84,7 @@ def test_memory_cap_is_never_exceeded(circuit):
     with pytest.raises(MemoryLimitError):
         network_plan(s, None, PlannerOptions(budget_seconds=0.2, max_repeats=2), memory_bytes=64)
     # the inputs alone take ~14 kB; a 24 kB cap forces slicing and is honoured
-    plan, _tree, _hit = network_plan(s, None, PlannerOptions(budget_seconds=0.2, max_repeats=2),
-                                     memory_bytes=24_000)
+    plan = network_plan(s, None, PlannerOptions(budget_seconds=0.2, max_repeats=2), memory_bytes=24_000).plan
     assert plan.nslices > 1
     assert plan.peak_bytes("complex128") <= 24_000
 
@@ -124,7 +123,7 @@ def test_tampered_plans_are_detected_and_replanned(tmp_path, circuit):
     s = build_structure(circuit)
     store = DirectoryPlanStore(tmp_path)
     opts = PlannerOptions(budget_seconds=0.3, max_repeats=4)
-    plan, _t, _h = network_plan(s, store, opts)
+    plan = network_plan(s, store, opts).plan
     path = tmp_path / f"{s.key}.json"
     doc = json.loads(path.read_text())
     (slot,) = doc
@@ -139,8 +138,9 @@ def test_tampered_plans_are_detected_and_replanned(tmp_path, circuit):
     assert store.get(s.key) is not None
     with pytest.raises(PlanError):
         bad.tree(s)
-    plan2, tree2, hit = network_plan(s, store, opts)
-    assert not hit
+    again = network_plan(s, store, opts)
+    tree2 = again.tree
+    assert not again.from_store
     ref = state_vector(circuit)[0]
     assert abs(contract_scalar(tree2, tensor_arrays(s, circuit, "0" * 16)) - ref) < 1e-12
     # 3. garbage file
@@ -181,3 +181,24 @@ def test_parse_bytes():
     assert parse_bytes("1000") == 1000
     with pytest.raises(Exception, match="memory size"):
         parse_bytes("lots")
+
+
+def test_a_request_builds_the_contraction_tree_once(monkeypatch, fast_planner):
+    """The tree is built (and validated against the network) once per contraction size, by the plan
+    lookup; the runner uses that tree, it does not rebuild it from the plan. The amplitude is checked
+    against the state vector (common practice: the two engines must agree)."""
+    circuit = random_instance(grid_architecture(3, 3, 6), seed=4)
+    store = MemoryPlanStore()
+    amplitudes(circuit, ["0" * 9], engine="single", planner=fast_planner, plan_store=store)
+    built = []
+    real = Plan.tree
+
+    def counting(self, structure):
+        built.append(structure.key)
+        return real(self, structure)
+
+    monkeypatch.setattr(Plan, "tree", counting)
+    run = amplitudes(circuit, ["101010101", "000000000"], engine="single", planner=fast_planner, plan_store=store)
+    assert run.plan_cached and len(built) == 1
+    ref = state_vector(circuit)
+    assert abs(run.results[0].amplitude - ref[int("101010101", 2)]) < 1e-12

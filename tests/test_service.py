@@ -319,3 +319,25 @@ def test_every_refusal_has_one_error_shape(client):
         assert set(body) <= {"error", "message", "line", "column", "limit"}, (name, body)
         assert isinstance(body["error"], str) and body["error"] and isinstance(body["message"], str), (name, body)
     assert answers["bad qasm"].json()["line"] == 1 and answers["bad qasm"].json()["column"] == 30
+
+
+def test_a_request_chooses_its_engine_once(client, monkeypatch):
+    """The prediction that decides between answering now and queueing a job is the same choice the
+    computation then runs: ``choose`` runs once per request, not once for each."""
+    import contraction.execution.amplitudes as amp_module
+    import contraction.planning.engine_choice as choice_module
+
+    calls = []
+    real = choice_module.choose
+
+    def counting(*args, **kw):
+        calls.append(kw.get("search", True))
+        return real(*args, **kw)
+
+    monkeypatch.setattr(choice_module, "choose", counting)
+    monkeypatch.setattr(amp_module, "choose", counting)
+    r = client.post("/v1/amplitudes", json={"circuit": {"qasm": GHZ}, "bitstrings": ["000", "111", "011"]})
+    assert r.status_code == 200, r.text
+    probs = [x["probability"] for x in r.json()["results"]]
+    assert probs == pytest.approx([0.5, 0.5, 0.0], abs=1e-15)      # GHZ: Nielsen & Chuang 2010
+    assert calls == [False]

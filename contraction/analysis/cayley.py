@@ -55,11 +55,14 @@ def inverse_cayley(u: np.ndarray) -> np.ndarray:
 
 @dataclass(frozen=True)
 class PathGate:
+    """One gate on the path: C_k and the eigen-decomposition of h_k (eigenvalues λ_kj, eigenvectors as columns)."""
+
     gate: Gate
     eigvals: np.ndarray        # lambda_kj of h_k
     eigvecs: np.ndarray        # columns: eigenvectors of h_k
 
     def at(self, theta: float) -> np.ndarray:
+        """The gate's matrix at ``theta``: C_k · f(θ h_k) with f(x) = (1 + i x)/(1 − i x) applied to the eigenvalues."""
         phase = (1 + 1j * theta * self.eigvals) / (1 - 1j * theta * self.eigvals)
         return self.gate.matrix @ ((self.eigvecs * phase) @ self.eigvecs.conj().T)
 
@@ -78,6 +81,7 @@ class CayleyPath:
         return sum(len(g.eigvals) for g in self.gates)
 
     def at(self, theta: float) -> Circuit:
+        """The circuit at ``theta`` (same layout, every gate moved along its path)."""
         return self.circuit.with_gates([Gate(g.gate.qubits, g.at(theta)) for g in self.gates])
 
     def denominator(self, theta) -> np.ndarray:
@@ -87,6 +91,7 @@ class CayleyPath:
         return np.prod(1 + np.multiply.outer(t ** 2, lam2), axis=-1)
 
     def log_denominator(self, theta) -> np.ndarray:
+        """ln D(θ) = Σ_kj ln(1 + θ² λ_kj²), elementwise over ``theta`` (the exactly known denominator of p(θ))."""
         lam2 = np.concatenate([g.eigvals ** 2 for g in self.gates])
         t = np.asarray(theta, dtype=float)
         return np.sum(np.log1p(np.multiply.outer(t ** 2, lam2)), axis=-1)
@@ -122,14 +127,14 @@ def path_probabilities(path: CayleyPath, bitstring: str, thetas: Sequence[float]
         idx = int(bits, 2)
         return np.array([abs(state_vector(path.at(float(t)), dtype=dt)[idx]) ** 2 for t in thetas]), "statevector"
     structure = build_structure(path.circuit)
-    plan, tree, _ = network_plan(structure, plan_store, planner or PlannerOptions(),
+    contraction = network_plan(structure, plan_store, planner or PlannerOptions(),
                                  memory_bytes or defaults.MEMORY_BYTES, dtype)
-    runner = runner or make_runner(workers, tree)
-    tasks = [Task(tensor_arrays(structure, path.at(float(t)), bits, dt), list(range(plan.nslices))) for t in thetas]
+    runner = runner or make_runner(workers)
+    tasks = [Task(tensor_arrays(structure, path.at(float(t)), bits, dt), list(range(contraction.plan.nslices))) for t in thetas]
     out = np.empty(len(tasks))
 
     def done(k, results):
         out[k] = abs(complex(combine_scaled(results).reshape(()))) ** 2
 
-    runner.run(plan, structure, tasks, done)
+    runner.run(contraction, tasks, done)
     return out, "single"

@@ -141,6 +141,7 @@ class PathRecovery:
     actual_error: list[float | None] | None = None
 
     def to_dict(self) -> dict:
+        """The recovery as a JSON-ready dict (field names as in the dataclass)."""
         return dict(self.__dict__)
 
 

@@ -19,6 +19,8 @@ EULER_GAMMA = 0.5772156649015329
 
 @dataclass(frozen=True)
 class XebResult:
+    """Linear and log XEB of a set of samples, with sample-variance, model and bootstrap errors."""
+
     samples: int
     num_qubits: int
     linear_xeb: float
@@ -30,6 +32,7 @@ class XebResult:
     log_xeb_stderr: float | None
 
     def to_dict(self) -> dict:
+        """The result as a JSON-ready dict."""
         return asdict(self)
 
 
@@ -123,6 +126,8 @@ def digital_error_fidelity(gate_errors: Sequence[float], readout_errors: Sequenc
 
 @dataclass(frozen=True)
 class DepthFit:
+    """Fit of F(d) = A·(1 − e)^d to fidelities against cycles, with the covariance and a 95 % interval on e."""
+
     amplitude: float                 # F at zero cycles (state preparation and readout)
     per_cycle_error: float           # e in F(d) = A·(1 − e)^d
     per_cycle_error_ci: tuple[float, float]
@@ -137,6 +142,7 @@ class DepthFit:
         return f, math.sqrt(max(var, 0.0))
 
     def to_dict(self) -> dict:
+        """The fit as a JSON-ready dict."""
         return asdict(self)
 
 
@@ -168,12 +174,14 @@ class SizeDepthFit:
     covariance: list[list[float]]
 
     def predict(self, qubits: float, cycles: float) -> tuple[float, float]:
+        """(F, standard error) predicted for ``qubits`` and ``cycles``, the error propagated from the fit's covariance."""
         er, ec = self.readout_error, self.cycle_error
         f = (1 - er) ** qubits * (1 - ec) ** (qubits * cycles)
         grad = np.array([-qubits * f / (1 - er), -qubits * cycles * f / (1 - ec)])
         return f, math.sqrt(max(float(grad @ np.array(self.covariance) @ grad), 0.0))
 
     def to_dict(self) -> dict:
+        """The fit as a JSON-ready dict."""
         return asdict(self)
 
 

@@ -32,6 +32,7 @@ def _m(rows) -> np.ndarray:
 # ---------------------------------------------------------------- single-qubit gates
 
 def u_gate(theta: float, phi: float, lam: float) -> np.ndarray:
+    """OpenQASM 3's U(θ, φ, λ) (no extra global phase)."""
     c, s = math.cos(theta / 2), math.sin(theta / 2)
     return _m([[c, -cmath.exp(1j * lam) * s],
                [cmath.exp(1j * phi) * s, cmath.exp(1j * (phi + lam)) * c]])
@@ -43,20 +44,24 @@ def u3_gate(theta: float, phi: float, lam: float) -> np.ndarray:
 
 
 def phase_gate(lam: float) -> np.ndarray:
+    """diag(1, e^{iλ})."""
     return _m([[1, 0], [0, cmath.exp(1j * lam)]])
 
 
 def rx(theta: float) -> np.ndarray:
+    """exp(−i θ X / 2)."""
     c, s = math.cos(theta / 2), math.sin(theta / 2)
     return _m([[c, -1j * s], [-1j * s, c]])
 
 
 def ry(theta: float) -> np.ndarray:
+    """exp(−i θ Y / 2)."""
     c, s = math.cos(theta / 2), math.sin(theta / 2)
     return _m([[c, -s], [s, c]])
 
 
 def rz(theta: float) -> np.ndarray:
+    """exp(−i θ Z / 2) = diag(e^{−iθ/2}, e^{iθ/2})."""
     return _m([[cmath.exp(-0.5j * theta), 0], [0, cmath.exp(0.5j * theta)]])
 
 
@@ -97,6 +102,7 @@ def controlled(matrix: np.ndarray, n_controls: int = 1, ctrl_state: int | None =
 
 
 def inverse(matrix: np.ndarray) -> np.ndarray:
+    """The inverse of a unitary matrix (its conjugate transpose)."""
     return matrix.conj().T
 
 
@@ -156,6 +162,7 @@ def power(matrix: np.ndarray, exponent: float) -> np.ndarray:
 
 
 def kron(*ms: np.ndarray) -> np.ndarray:
+    """Kronecker product of the matrices, the first one on the most significant qubits."""
     out = ms[0]
     for m in ms[1:]:
         out = np.kron(out, m)
@@ -268,6 +275,7 @@ INCLUDE_FILES = {
 
 
 def is_unitary(m: np.ndarray, atol: float = 1e-9) -> bool:
+    """Whether m m† equals the identity within ``atol`` (absolute, per entry)."""
     d = m.shape[0]
     return bool(np.allclose(m @ m.conj().T, np.eye(d), atol=atol, rtol=0.0))
 

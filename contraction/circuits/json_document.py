@@ -109,6 +109,8 @@ def from_document(doc: Any, max_qubits: int = defaults.MAX_QUBITS) -> Circuit:
 
 
 def read_json(text: str, source: str = "<circuit>", max_qubits: int = defaults.MAX_QUBITS) -> Circuit:
+    """A circuit from the text of a JSON document; raises :class:`ParseError` (with line and column for invalid JSON)
+    or :class:`CircuitError`."""
     try:
         doc = json.loads(text)
     except json.JSONDecodeError as exc:
@@ -138,4 +140,5 @@ def to_document(circuit: Circuit) -> dict:
 
 
 def write_json(circuit: Circuit, indent: int | None = None) -> str:
+    """The circuit as the text of a JSON document (one line unless ``indent`` is given)."""
     return json.dumps(to_document(circuit), indent=indent)

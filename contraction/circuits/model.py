@@ -40,6 +40,7 @@ class Gate:
 
     @property
     def arity(self) -> int:
+        """Number of qubits the gate acts on."""
         return len(self.qubits)
 
 
@@ -92,10 +93,12 @@ class Circuit:
 
     @property
     def layout(self) -> tuple[tuple[int, ...], ...]:
+        """The qubits of every gate, in order: what an architecture fixes."""
         return tuple(g.qubits for g in self.gates)
 
     @cached_property
     def architecture_id(self) -> str:
+        """Hash of the qubit count and the layout only; shared by every random instance of an architecture."""
         h = hashlib.sha256(b"veramp-structure-v1\0")
         h.update(struct.pack("<q", self.num_qubits))
         for qs in self.layout:
@@ -104,6 +107,7 @@ class Circuit:
 
     @cached_property
     def circuit_id(self) -> str:
+        """Hash of everything that changes an amplitude: qubit count, global phase, gates' qubits and matrices."""
         h = hashlib.sha256(b"veramp-content-v1\0")
         h.update(struct.pack("<qd", self.num_qubits, self.global_phase + 0.0))
         for g in self.gates:
@@ -113,8 +117,10 @@ class Circuit:
         return h.hexdigest()
 
     def with_gates(self, gates: Sequence[Gate], **kw) -> "Circuit":
+        """A circuit on the same qubits with other gates (``global_phase``, ``name``, ``validate`` may be given)."""
         return Circuit(self.num_qubits, gates, kw.get("global_phase", self.global_phase),
                        kw.get("name", self.name), validate=kw.get("validate", True))
 
     def two_qubit_count(self) -> int:
+        """Number of gates on two or more qubits."""
         return sum(1 for g in self.gates if g.arity >= 2)

@@ -59,17 +59,21 @@ class Source:
         self._line_starts: list[int] | None = None
 
     def where(self, offset: int) -> tuple[int, int]:
+        """(line, column), both 1-based, of a character offset."""
         if self._line_starts is None:
             self._line_starts = [0] + [m.end() for m in re.finditer("\n", self.text)]
         line = bisect.bisect_right(self._line_starts, offset)
         return line, offset - self._line_starts[line - 1] + 1
 
     def error(self, message: str, offset: int, cls=ParseError) -> ParseError:
+        """An error of class ``cls`` located at ``offset`` in this source."""
         line, col = self.where(min(offset, len(self.text)))
         return cls(message, line, col, self.name)
 
 
 def tokenize(src: Source) -> list[Token]:
+    """The tokens of the source, ending with an ``eof`` token; raises :class:`ParseError` at the first character no
+    token starts with."""
     out: list[Token] = []
     append = out.append
     for m in _TOKEN_RE.finditer(src.text):
@@ -179,6 +183,7 @@ class ExpressionParser:
     src: Source
 
     def expect(self, text: str) -> Token:
+        """Consume the token ``text`` or raise a :class:`ParseError` naming what was found instead."""
         tok = self.toks[self.i]
         if tok[1] != text or tok[0] == "str":
             shown = tok[1] if tok[0] != "eof" else "end of file"
@@ -187,6 +192,7 @@ class ExpressionParser:
         return tok
 
     def accept(self, text: str) -> bool:
+        """Consume the token ``text`` when it is next; whether it was."""
         tok = self.toks[self.i]
         if tok[1] == text and tok[0] != "str":
             self.i += 1
@@ -194,6 +200,7 @@ class ExpressionParser:
         return False
 
     def expression(self) -> tuple:
+        """Parse a parameter expression (sums of terms) into a tree for :func:`evaluate`."""
         node = self._term()
         while self.toks[self.i][1] in ("+", "-") and self.toks[self.i][0] == "op":
             op, pos = self.toks[self.i][1], self.toks[self.i][2]

@@ -74,6 +74,8 @@ class _Sink:
 
 
 class QasmReader(ExpressionParser):
+    """Reads one OpenQASM 2.0 or 3 program into a :class:`Circuit`, within ``max_qubits`` and ``max_gates``."""
+
     def __init__(self, text: str, source: str = "<circuit>", max_qubits: int = defaults.MAX_QUBITS,
                  max_gates: int = defaults.MAX_GATES):
         self.src = Source(text, source)
@@ -123,6 +125,8 @@ class QasmReader(ExpressionParser):
 
     # ------------------------------------------------------------------ entry point
     def read(self) -> Circuit:
+        """The circuit of the whole program; raises :class:`ParseError`, :class:`UnsupportedError` or
+        :class:`GateLimitError` with line and column."""
         toks = self.toks
         if toks[0][0] == "eof":
             raise self._err("the circuit text is empty", 0)

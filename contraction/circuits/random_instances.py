@@ -22,6 +22,8 @@ from contraction.errors import VerampError
 
 
 def haar_unitary(d: int, rng: np.random.Generator) -> np.ndarray:
+    """A d×d unitary drawn from the Haar measure (QR of a complex Gaussian matrix with the phases of R's diagonal
+    divided out, after Mezzadri 2007)."""
     z = (rng.standard_normal((d, d)) + 1j * rng.standard_normal((d, d))) / math.sqrt(2.0)
     q, r = np.linalg.qr(z)
     diag = np.diagonal(r)
@@ -36,6 +38,8 @@ def haar_state(d: int, rng: np.random.Generator) -> np.ndarray:
 
 @dataclass(frozen=True)
 class Architecture:
+    """Which qubit pairs get a two-qubit gate in which layer; gate values are drawn per instance."""
+
     num_qubits: int
     layers: tuple[tuple[tuple[int, int], ...], ...]   # each layer: disjoint qubit pairs
     name: str = ""
@@ -71,6 +75,8 @@ def grid_matchings(rows: int, cols: int, removed: frozenset[int] = frozenset()):
 
 def grid_architecture(rows: int, cols: int, cycles: int, pattern: str = "ABCDCDAB",
                       removed: frozenset[int] = frozenset()) -> Architecture:
+    """Qubits on a rows × cols grid (minus ``removed`` sites), ``cycles`` layers of nearest-neighbour pairs from the
+    matchings A–D in ``pattern`` order; raises :class:`VerampError` on bad sizes or patterns."""
     if rows < 1 or cols < 1 or cycles < 0:
         raise VerampError("a grid needs positive rows and columns and a non-negative cycle count")
     if not pattern or set(pattern) - set("ABCD"):

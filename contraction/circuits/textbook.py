@@ -23,6 +23,8 @@ from contraction.circuits.random_instances import haar_unitary
 
 
 def quantum_volume(num_qubits: int, depth: int, seed: int = 0) -> Circuit:
+    """A quantum-volume circuit: ``depth`` layers, each a seeded random permutation of the qubits paired off with a
+    Haar-random SU(4) gate on each pair (Cross et al. 2019)."""
     rng = np.random.default_rng(seed)
     out = []
     for _ in range(depth):
@@ -36,6 +38,8 @@ def quantum_volume(num_qubits: int, depth: int, seed: int = 0) -> Circuit:
 
 
 def qft(num_qubits: int) -> Circuit:
+    """The quantum Fourier transform on ``num_qubits`` qubits: Hadamards and controlled phases 2π/2^k, then the swaps
+    that reverse the qubit order (Nielsen & Chuang §5.1)."""
     out = []
     for j in range(num_qubits):
         out.append(Gate((j,), G.H, "h"))

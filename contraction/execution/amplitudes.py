@@ -37,11 +37,14 @@ log = logging.getLogger(__name__)
 
 @dataclass(frozen=True)
 class Amplitude:
+    """One bitstring (qubit 0 first) and its amplitude ⟨x|C|0…0⟩."""
+
     bitstring: str
     amplitude: complex
 
     @property
     def probability(self) -> float:
+        """|amplitude|²."""
         a = self.amplitude
         return a.real * a.real + a.imag * a.imag
 
@@ -74,11 +77,12 @@ def amplitudes(circuit: Circuit, bitstrings: Iterable[str], *, dtype: str = "com
                cancelled: CancelCheck | None = None, rate: MachineRate | None = None,
                runner: Runner | None = None, on_results: ResultsCallback | None = None,
                open_qubits: Sequence[int] = (),
-               on_choice: Callable[[Choice], None] | None = None) -> AmplitudeRun:
+               on_choice: Callable[[Choice], None] | None = None, choice: Choice | None = None) -> AmplitudeRun:
     """Exact amplitudes of ``circuit`` for ``bitstrings`` (qubit 0 first), in input order.
 
     ``memory_bytes`` caps the whole run: with ``workers`` local processes each contraction is planned
-    within its share of it."""
+    within its share of it. ``choice``: an engine choice already made for these bitstrings (e.g. for
+    a prediction), used as it is when it was made for as many distinct bitstrings (or groups)."""
     t0 = time.perf_counter()
     bits = check_bitstrings(bitstrings, circuit.num_qubits)
     dt = resolve_dtype(dtype)
@@ -87,8 +91,9 @@ def amplitudes(circuit: Circuit, bitstrings: Iterable[str], *, dtype: str = "com
     groups = _groups(unique, open_qubits)
     # local processes contracting side by side share the memory cap (a Dask runner's do not)
     local = runner.workers if isinstance(runner, ProcessRunner) else (workers if runner is None else 1)
-    choice = choose(circuit, len(groups), engine=engine, dtype=dtype, rate=rate, store=plan_store,
-                    planner=planner, memory_bytes=memory_bytes, open_qubits=open_qubits, workers=local)
+    if choice is None or choice.count != len(groups):
+        choice = choose(circuit, len(groups), engine=engine, dtype=dtype, rate=rate, store=plan_store,
+                        planner=planner, memory_bytes=memory_bytes, open_qubits=open_qubits, workers=local)
     if on_choice is not None:
         on_choice(choice)
     found: dict[str, complex] = {}
@@ -145,7 +150,8 @@ def _run_network(circuit: Circuit, option: Option, groups: dict[str, list[str]],
         tasks, owner = [], []
         for number, part in items:
             padded = part + [part[-1]] * (b - len(part))
-            arrays = tensor_arrays(sub.structure, circuit, padded if sub.structure.batch else padded[0], dt)
+            s = sub.contraction.structure
+            arrays = tensor_arrays(s, circuit, padded if s.batch else padded[0], dt)
             for piece in pieces:
                 tasks.append(Task(arrays, piece))
                 owner.append(number)
@@ -164,11 +170,11 @@ def _run_network(circuit: Circuit, option: Option, groups: dict[str, list[str]],
             done_tasks += 1
             if len(parts_of[number]) == sub.plan.nslices:
                 value = combine_scaled(parts_of.pop(number)) * phase
-                emit(_pick(value, members[number], groups, open_qubits, bool(sub.structure.batch)))
+                emit(_pick(value, members[number], groups, open_qubits, bool(sub.contraction.structure.batch)))
             if progress is not None:
                 progress(Progress(done_tasks, total_tasks, time.perf_counter() - t0))
 
-        runner.run(sub.plan, sub.structure, tasks, done, cancelled)
+        runner.run(sub.contraction, tasks, done, cancelled)
 
 
 def _pick(value: np.ndarray, part: list[str], groups: dict[str, list[str]], open_qubits: tuple[int, ...],

@@ -34,6 +34,9 @@ from contraction.planning.store import PlanStore
 
 @dataclass
 class BlockResult:
+    """The 2^k values of a block or marginal on ``qubits`` (entry order in the module docstring), the engine that
+    computed them and why."""
+
     qubits: tuple[int, ...]
     values: np.ndarray             # length 2^k, ordering in the module docstring
     engine: str
@@ -127,7 +130,8 @@ def marginal_probabilities(circuit: Circuit, qubits, *, dtype: str = "complex128
     small = sv_fits and circuit.num_qubits <= defaults.STATEVECTOR_AUTO_QUBITS
     if engine == "single" or (engine == "auto" and not small):
         structure, pruned, ket_structure = marginal_structure(circuit, qs)
-        plan, tree, _ = network_plan(structure, plan_store, planner or PlannerOptions(), memory_bytes, dtype)
+        contraction = network_plan(structure, plan_store, planner or PlannerOptions(), memory_bytes, dtype)
+        plan, tree = contraction.plan, contraction.tree
         predicted = network_seconds(plan, structure, rate, dtype)
     if engine == "statevector" or (engine == "auto" and (small or (sv_fits and sv.seconds <= predicted))):
         p = np.abs(state_vector(circuit, dtype=dt).reshape((2,) * circuit.num_qubits)) ** 2

@@ -17,22 +17,11 @@ from typing import Sequence
 from contraction.errors import MemoryLimitError
 from contraction.execution.executor import CancelCheck
 from contraction.execution.slices import SliceResults, Task, TaskDone, run_task, wait_all
-from contraction.network.builder import NetworkStructure
-from contraction.planning.search import Plan
+from contraction.planning.engine_choice import Contraction
 
-_trees: dict[str, object] = {}
-
-
-def _task_on_worker(plan_blob: tuple, arrays: list, slices: list[int]) -> SliceResults:
+def _task_on_worker(tree, arrays: list, slices: list[int]) -> SliceResults:
     from threadpoolctl import threadpool_limits
 
-    plan_json, plan_hash, structure = plan_blob
-    tree = _trees.get(plan_hash)
-    if tree is None:
-        tree = Plan.from_json(plan_json).tree(structure)
-        if len(_trees) > 8:
-            _trees.clear()
-        _trees[plan_hash] = tree
     with threadpool_limits(1):
         return run_task(tree, Task(arrays, slices))
 
@@ -51,11 +40,15 @@ class DaskRunner:
         self.memory_limit = min((m for m in limits if m), default=None)
 
     def close(self) -> None:
+        """Close the client if this runner opened it."""
         if self._own:
             self.client.close()
 
-    def run(self, plan: Plan, structure: NetworkStructure, tasks: Sequence[Task], done: TaskDone,
+    def run(self, contraction: Contraction, tasks: Sequence[Task], done: TaskDone,
             cancelled: CancelCheck | None = None) -> None:
+        """Run the tasks on the cluster, the tree and each distinct array list sent to the workers once; raises
+        :class:`MemoryLimitError` when the plan's peak exceeds the smallest worker's memory limit."""
+        plan = contraction.plan
         if tasks and self.memory_limit is not None:
             itemsize = tasks[0].arrays[0].dtype.itemsize
             peak = plan.peak_elements * itemsize
@@ -64,8 +57,8 @@ class DaskRunner:
                                        f"allows {self.memory_limit:.4g} bytes")
         import distributed
 
-        # the plan and every distinct array list travel to the workers once, not with every task
-        [blob] = self.client.scatter([(plan.to_json(), plan.plan_hash, structure)], broadcast=True, hash=False)
+        # the tree and every distinct array list travel to the workers once, not with every task
+        [blob] = self.client.scatter([contraction.tree], broadcast=True, hash=False)
         shared: dict[int, object] = {}
 
         def submit(task: Task):

@@ -21,12 +21,15 @@ from contraction.errors import Cancelled
 
 @dataclass(frozen=True)
 class Progress:
+    """Tasks done out of total, and seconds elapsed."""
+
     done: int
     total: int
     elapsed: float
 
     @property
     def eta_seconds(self) -> float | None:
+        """Seconds left at the rate so far; None before the first task is done."""
         if self.done == 0:
             return None
         return self.elapsed / self.done * (self.total - self.done)

@@ -19,14 +19,15 @@ import numpy as np
 
 from contraction.errors import Cancelled
 from contraction.execution.executor import CancelCheck, contract_slice_scaled
-from contraction.network.builder import NetworkStructure
-from contraction.planning.search import Plan
+from contraction.planning.engine_choice import Contraction
 
 SliceResults = list[tuple[np.ndarray, float]]
 
 
 @dataclass
 class Task:
+    """A unit of work for a runner: the network's tensor values and the slice numbers to contract with them."""
+
     arrays: list[np.ndarray]
     slices: list[int]
 
@@ -35,15 +36,18 @@ TaskDone = Callable[[int, SliceResults], None]
 
 
 class Runner(Protocol):
-    """Runs tasks of one plan; calls ``done(task_index, results)`` as each task finishes."""
+    """Runs tasks of one contraction; calls ``done(task_index, results)`` as each task finishes."""
 
     workers: int
 
-    def run(self, plan: Plan, structure: NetworkStructure, tasks: Sequence[Task], done: TaskDone,
-            cancelled: CancelCheck | None = None) -> None: ...
+    def run(self, contraction: Contraction, tasks: Sequence[Task], done: TaskDone,
+            cancelled: CancelCheck | None = None) -> None:
+        """Contract every task with the contraction's tree; ``done(k, results)`` as task k finishes;
+        raises :class:`Cancelled` when ``cancelled()`` turns true."""
 
 
 def run_task(tree, task: Task) -> SliceResults:
+    """Contract the task's slices with ``tree``: (mantissa array, log10 scale) per slice."""
     return [contract_slice_scaled(tree, task.arrays, i) for i in task.slices]
 
 
@@ -52,11 +56,10 @@ class InlineRunner:
 
     workers = 1
 
-    def __init__(self, tree=None):
-        self._tree = tree
-
-    def run(self, plan, structure, tasks, done, cancelled=None) -> None:
-        tree = self._tree if self._tree is not None else plan.tree(structure)
+    def run(self, contraction: Contraction, tasks: Sequence[Task], done: TaskDone,
+            cancelled: CancelCheck | None = None) -> None:
+        """Run the tasks one after the other in this process."""
+        tree = contraction.tree
         for k, task in enumerate(tasks):
             if cancelled is not None and cancelled():
                 raise Cancelled(f"cancelled after {k} of {len(tasks)} tasks")
@@ -66,11 +69,11 @@ class InlineRunner:
 _worker_state: dict = {}
 
 
-def _init_worker(plan_json: str, structure: NetworkStructure) -> None:
+def _init_worker(tree) -> None:
     from threadpoolctl import threadpool_limits
 
     threadpool_limits(1)
-    _worker_state["tree"] = Plan.from_json(plan_json).tree(structure)
+    _worker_state["tree"] = tree
 
 
 def _run_in_worker(task: Task) -> SliceResults:
@@ -83,10 +86,13 @@ class ProcessRunner:
     def __init__(self, workers: int):
         self.workers = max(1, int(workers))
 
-    def run(self, plan, structure, tasks, done, cancelled=None) -> None:
+    def run(self, contraction: Contraction, tasks: Sequence[Task], done: TaskDone,
+            cancelled: CancelCheck | None = None) -> None:
+        """Run the tasks on a fresh pool of worker processes (one BLAS thread each); cancelled tasks are dropped."""
         ctx = mp.get_context("forkserver")
+        # the tree travels to each worker once (pickled between our own processes), not rebuilt there
         pool = cf.ProcessPoolExecutor(max_workers=self.workers, mp_context=ctx, initializer=_init_worker,
-                                      initargs=(plan.to_json(), structure))
+                                      initargs=(contraction.tree,))
         try:
             wait_all(lambda t: pool.submit(_run_in_worker, t), tasks, done, cancelled,
                      lambda futures: [f.cancel() for f in futures])
@@ -110,8 +116,9 @@ def wait_all(submit, tasks: Sequence[Task], done: TaskDone, cancelled: CancelChe
             raise Cancelled(f"cancelled after {finished_count} of {len(tasks)} tasks")
 
 
-def make_runner(workers: int = 1, tree=None) -> Runner:
-    return InlineRunner(tree) if workers <= 1 else ProcessRunner(workers)
+def make_runner(workers: int = 1) -> Runner:
+    """In the calling process for one worker, else a pool of local worker processes."""
+    return InlineRunner() if workers <= 1 else ProcessRunner(workers)
 
 
 def split_slices(total: int, pieces: int) -> list[list[int]]:

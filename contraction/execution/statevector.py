@@ -41,6 +41,8 @@ def apply_gate_in_place(psi: np.ndarray, matrix: np.ndarray, qubits: Sequence[in
 
 
 def apply_gates(psi: np.ndarray, gates: Sequence[Gate]) -> np.ndarray:
+    """Apply the gates in order to ``psi`` (of shape (2,)*n); in place from ``defaults.STATEVECTOR_IN_PLACE_QUBITS``
+    qubits on. Returns the state."""
     if psi.ndim >= defaults.STATEVECTOR_IN_PLACE_QUBITS:
         for g in gates:
             apply_gate_in_place(psi, g.matrix, g.qubits)

@@ -59,6 +59,7 @@ class NetworkStructure:
 
     @property
     def size_dict(self) -> dict[str, int]:
+        """Size of every index: 2 for qubit indices, the batch size for the batch index."""
         sizes = {ix: 2 for term in self.inputs for ix in term}
         if self.batch_label is not None:
             sizes[self.batch_label] = self.batch
@@ -66,11 +67,13 @@ class NetworkStructure:
 
     @property
     def output_shape(self) -> tuple[int, ...]:
+        """Shape of the contraction's result (batch index first, then open qubits)."""
         sizes = self.size_dict
         return tuple(sizes[ix] for ix in self.output)
 
     @property
     def num_tensors(self) -> int:
+        """Number of input tensors."""
         return len(self.inputs)
 
     @cached_property

@@ -33,6 +33,7 @@ class Simplified:
 
     @property
     def num_tensors(self) -> int:
+        """Number of tensors left after the simplification."""
         return len(self.inputs)
 
     def full_path(self, reduced_ssa_path) -> list[tuple[int, ...]]:

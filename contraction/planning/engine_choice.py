@@ -38,12 +38,20 @@ ENGINES = ("auto", "statevector", "batch", "single")
 
 
 
-#: default memory cap of one contraction (peak bytes of all live tensors)
+@dataclass(frozen=True)
+class Contraction:
+    """A network ready to run: its structure, the plan and the plan's contraction tree, built and
+    validated once (runners use the tree as it is; worker processes receive it, they do not rebuild it)."""
+
+    structure: NetworkStructure
+    plan: Plan
+    tree: object
+    from_store: bool = False
 
 
 def network_plan(structure: NetworkStructure, store: PlanStore | None, options: PlannerOptions | None,
-                 memory_bytes: float = defaults.MEMORY_BYTES, dtype="complex128"):
-    """``(plan, tree, from_store)`` for ``structure`` with a peak within ``memory_bytes``.
+                 memory_bytes: float = defaults.MEMORY_BYTES, dtype="complex128") -> Contraction:
+    """The :class:`Contraction` of ``structure`` with a peak within ``memory_bytes``.
 
     A stored plan is used when one fits the cap and passes validation against the network;
     otherwise a new plan is searched and stored. Raises :class:`MemoryLimitError` when no plan
@@ -54,7 +62,7 @@ def network_plan(structure: NetworkStructure, store: PlanStore | None, options: 
         plan = store.get(structure.key, cap_elements)
         if plan is not None:
             try:
-                return plan, plan.tree(structure), True
+                return Contraction(structure, plan, plan.tree(structure), True)
             except PlanError as exc:
                 log.warning("stored plan rejected, planning again: %s", exc)
     if options is None:
@@ -67,7 +75,7 @@ def network_plan(structure: NetworkStructure, store: PlanStore | None, options: 
                                f"over the memory cap of {memory_bytes:.4g} bytes")
     if store is not None:
         store.put(plan)
-    return plan, plan.tree(structure), False
+    return Contraction(structure, plan, plan.tree(structure), False)
 
 
 def statevector_peak_elements(n: int) -> float:
@@ -87,28 +95,36 @@ class Option:
     seconds: float
     peak_bytes: float
     batch: int = 1                          # bitstrings per contraction (network engines)
-    plan: Plan | None = None
-    tree: object = None
-    structure: NetworkStructure | None = None
-    plan_cached: bool = False
+    contraction: Contraction | None = None  # network engines: the largest batch size's contraction
+    plan_cached: bool = False               # every contraction's plan came from the store
     madds: float = 0.0                      # whole request
     schedule: list[int] = field(default_factory=list)      # batch size of each chunk, in order
     parts: dict[int, "Option"] = field(default_factory=dict)  # batch size -> its planned contraction
 
     @property
     def chunks(self) -> int:
+        """Contractions the request runs (0 for the state vector)."""
         return len(self.schedule)
+
+    @property
+    def plan(self) -> Plan | None:
+        """The plan of :attr:`contraction`, if any."""
+        return self.contraction.plan if self.contraction is not None else None
 
 
 @dataclass
 class Choice:
+    """The engine chosen for ``count`` amplitudes (or groups), why, and every option considered."""
+
     engine: str
     reason: str
     chosen: Option
     options: list[Option] = field(default_factory=list)
     planned: dict[int, Option] = field(default_factory=dict)   # every contraction size planned, per chunk
+    count: int = 0                                              # amplitudes (or groups) it was made for
 
     def predictions(self) -> dict[str, float]:
+        """Predicted seconds of every option considered, by label (``statevector``, ``single``, ``batchB``)."""
         return {_label(o): o.seconds for o in self.options}
 
 
@@ -117,6 +133,8 @@ def _label(o: Option) -> str:
 
 
 def statevector_option(circuit: Circuit, count: int, dtype: str, rate: MachineRate) -> Option:
+    """The state-vector engine's predicted seconds and peak bytes for this circuit (any number of amplitudes costs the
+    same)."""
     n = circuit.num_qubits
     # the fused gates the state-vector engine applies, counted from the layout (no matrices built)
     arities = [len(src[1]) if src[0] == "gate" else 1 for src in build_structure(circuit).sources
@@ -161,9 +179,9 @@ def network_option(circuit: Circuit, batch: int, dtype: str, rate: MachineRate, 
     """One contraction of ``batch`` bitstrings (or groups, with ``open_qubits``), planned or read
     from the store."""
     s = build_structure(circuit, batch=batch if batch > 1 else 0, open_qubits=open_qubits)
-    plan, tree, hit = network_plan(s, store, planner, memory_bytes, dtype)
-    return Option("batch" if batch > 1 else "single", network_seconds(plan, s, rate, dtype), plan.peak_bytes(dtype),
-                  batch, plan, tree, s, hit, plan.madds)
+    c = network_plan(s, store, planner, memory_bytes, dtype)
+    return Option("batch" if batch > 1 else "single", network_seconds(c.plan, s, rate, dtype), c.plan.peak_bytes(dtype),
+                  batch, c, c.from_store, c.plan.madds)
 
 
 def scheduled(engine: str, count: int, parts: dict[int, Option]) -> Option:
@@ -172,7 +190,7 @@ def scheduled(engine: str, count: int, parts: dict[int, Option]) -> Option:
     used = {b: parts[b] for b in set(schedule)}
     main = max(used.values(), key=lambda o: o.batch)
     return Option(engine, sum(parts[b].seconds for b in schedule), max(o.peak_bytes for o in used.values()),
-                  main.batch, main.plan, main.tree, main.structure, all(o.plan_cached for o in used.values()),
+                  main.batch, main.contraction, all(o.plan_cached for o in used.values()),
                   sum(parts[b].madds for b in schedule), schedule, used)
 
 
@@ -200,16 +218,16 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
                                    f"gate; the memory cap is {memory_bytes:.4g} bytes"
                                    + (f" and the engine is limited to {defaults.STATEVECTOR_MAX_QUBITS} qubits" if n > defaults.STATEVECTOR_MAX_QUBITS
                                       else ""))
-        return Choice("statevector", "requested", sv, [sv])
+        return Choice("statevector", "requested", sv, [sv], count=count)
     if engine == "auto" and sv_fits and n <= defaults.STATEVECTOR_AUTO_QUBITS:
         return Choice("statevector", f"{n} qubits <= {defaults.STATEVECTOR_AUTO_QUBITS}: one state vector answers every bitstring",
-                      sv, [sv])
+                      sv, [sv], count=count)
     if engine == "auto" and sv_fits:
         options.append(sv)
         planning = planner.budget_seconds if planner is not None else 0.0
         if sv.seconds <= planning:
             return Choice("statevector", f"state vector predicted {sv.seconds:.3g} s, less than planning the "
-                                         f"network engines would take (~{planning:.3g} s)", sv, [sv])
+                                         f"network engines would take (~{planning:.3g} s)", sv, [sv], count=count)
     errors = []
     planned: dict[int, Option] = {}
     sizes = ([1] if engine in ("auto", "single") or count < 2 else []) + \
@@ -247,4 +265,4 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
             reason += f"; batches of {'/'.join(map(str, sorted(slower)))} predicted slower per bitstring"
         if not sv_fits:
             reason += f"; a state vector needs {sv.peak_bytes:.3g} bytes, over the cap"
-    return Choice(best.engine, reason, best, options, planned)
+    return Choice(best.engine, reason, best, options, planned, count=count)

@@ -24,6 +24,9 @@ FLOPS_PER_MADD = 8
 
 @dataclass(frozen=True)
 class Estimate:
+    """The cost of a request before it runs: engine and reason, multiply-adds, peak memory, slices and predicted
+    seconds."""
+
     engine: str
     reason: str
     num_qubits: int
@@ -45,6 +48,7 @@ class Estimate:
     predictions: dict = field(default_factory=dict)   # predicted seconds of every option considered
 
     def to_dict(self) -> dict:
+        """The estimate as a JSON-ready dict."""
         return asdict(self)
 
 

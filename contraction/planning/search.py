@@ -26,6 +26,7 @@ PLAN_FORMAT = "veramp-plan-v1"
 
 
 def kahypar_available() -> bool:
+    """Whether the kahypar partitioner can be imported (the hyper search uses it when it can)."""
     try:
         import kahypar  # noqa: F401
     except ImportError:
@@ -35,6 +36,9 @@ def kahypar_available() -> bool:
 
 @dataclass(frozen=True)
 class Plan:
+    """A contraction plan as plain data: the path, the sliced indices (canonical numbers) and its costs; valid for
+    every network with ``network_key``."""
+
     network_key: str
     ssa_path: tuple[tuple[int, ...], ...]
     sliced: tuple[int, ...]          # canonical index numbers
@@ -54,13 +58,16 @@ class Plan:
 
     @property
     def slicing_overhead(self) -> float:
+        """Multiply-adds of all slices over those of the unsliced contraction (≥ 1)."""
         return self.madds / self.madds_unsliced if self.madds_unsliced else 1.0
 
     def peak_bytes(self, dtype="complex128") -> int:
+        """Peak bytes of all live tensors of one slice in ``dtype``."""
         return int(self.peak_elements * np.dtype(dtype).itemsize)
 
     # ---- plain data
     def to_dict(self) -> dict:
+        """The plan as a JSON-ready dict with its format tag and checksum."""
         doc = asdict(self)
         doc["format"] = PLAN_FORMAT
         doc["ssa_path"] = [list(p) for p in self.ssa_path]
@@ -69,10 +76,12 @@ class Plan:
         return doc
 
     def to_json(self) -> str:
+        """The plan as JSON text (sorted keys)."""
         return json.dumps(self.to_dict(), sort_keys=True)
 
     @property
     def plan_hash(self) -> str:
+        """Checksum of the plan's content (identifies a plan in provenance and stores)."""
         return _checksum(self.to_dict())
 
     @classmethod
@@ -97,6 +106,8 @@ class Plan:
 
     @classmethod
     def from_json(cls, text: str) -> "Plan":
+        """A plan from :meth:`to_json` text; raises :class:`PlanError` on invalid JSON, a wrong format or a bad
+        checksum."""
         try:
             return cls.from_dict(json.loads(text))
         except json.JSONDecodeError as exc:
@@ -163,6 +174,7 @@ def _checksum(doc: dict) -> str:
 
 
 def plan_from_tree(tree, structure: NetworkStructure, options: dict) -> Plan:
+    """The :class:`Plan` of a cotengra tree for ``structure`` (costs measured on the tree, sliced and unsliced)."""
     canon = structure.canonical
     sliced = tuple(canon[ix] for ix in tree.sliced_inds)
     if tree.sliced_inds:
@@ -201,6 +213,7 @@ class PlannerOptions:
     simplify: bool = True                 # structure-only simplification before the search
 
     def to_dict(self) -> dict:
+        """The options as a JSON-ready dict (kept with each plan)."""
         return asdict(self)
 
 

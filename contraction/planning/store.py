@@ -37,9 +37,13 @@ def best_fitting(plans: Iterable[Plan], max_peak_elements: float | None) -> Plan
 
 
 class PlanStore(Protocol):
-    def get(self, network_key: str, max_peak_elements: float | None = None) -> Plan | None: ...
+    """Where plans are kept, by network key; several plans per key, one per memory class."""
 
-    def put(self, plan: Plan) -> bool: ...
+    def get(self, network_key: str, max_peak_elements: float | None = None) -> Plan | None:
+        """The cheapest stored plan for the key whose peak fits ``max_peak_elements`` (any, when None), or None."""
+
+    def put(self, plan: Plan) -> bool:
+        """Keep the plan unless an equal or cheaper one of its memory class is stored; whether it was kept."""
 
 
 class _SlotStore:
@@ -129,4 +133,5 @@ class DirectoryPlanStore(_SlotStore):
         os.replace(tmp, self._path(network_key))
 
     def discard(self, network_key: str) -> None:
+        """Remove every plan stored for the key."""
         self._path(network_key).unlink(missing_ok=True)

@@ -18,6 +18,7 @@ from .common import UsageError, current_settings, load_circuit_file, memory_cap,
 
 
 def cmd_xeb(args) -> int:
+    """``veramp xeb``: linear and log XEB of device samples, a mixture KS test and an optional Porter–Thomas plot."""
     settings = current_settings()
     circuit = load_circuit_file(args.circuit)
     samples = read_bitstrings(read_text(args.samples))
@@ -56,6 +57,7 @@ def cmd_xeb(args) -> int:
 
 
 def cmd_fit(args) -> int:
+    """``veramp fit``: fit fidelity against cycles from a table, with extrapolations and an optional plot."""
     rows = []
     for n, line in enumerate(read_text(args.table).splitlines(), 1):
         if not line.strip() or line.lstrip().startswith("#") or line.lower().startswith("cycles"):
@@ -79,6 +81,7 @@ def cmd_fit(args) -> int:
 
 
 def cmd_path(args) -> int:
+    """``veramp path``: p(θ) along the Cayley path, optionally recovered from samples at other nodes with error bounds."""
     settings = current_settings()
     circuit = load_circuit_file(args.circuit)
     [bits] = check_bitstrings([args.bitstring], circuit.num_qubits)
@@ -129,6 +132,7 @@ def cmd_path(args) -> int:
 
 
 def cmd_path_study(args) -> int:
+    """``veramp path-study``: recovery of p(target) from noisy samples on [0, δ] over a table of δ and noise."""
     circuit = load_circuit_file(args.circuit)
     [bits] = check_bitstrings([args.bitstring], circuit.num_qubits)
     path = cayley_path(circuit, args.seed)

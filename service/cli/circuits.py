@@ -10,6 +10,7 @@ from .common import UsageError, load_circuit_file, write_out
 
 
 def cmd_convert(args) -> int:
+    """``veramp convert``: write a circuit as a JSON document or OpenQASM 3."""
     circuit = load_circuit_file(args.circuit)
     text = write_json(circuit, indent=None) + "\n" if args.to == "json" else write_qasm3(circuit)
     write_out(args.output, text)
@@ -17,6 +18,7 @@ def cmd_convert(args) -> int:
 
 
 def cmd_generate(args) -> int:
+    """``veramp generate``: a seeded random circuit on a grid architecture."""
     try:
         rows, cols = (int(x) for x in args.grid.lower().split("x"))
     except ValueError:

@@ -22,6 +22,8 @@ from .common import (
 
 
 def cmd_amplitudes(args) -> int:
+    """``veramp amplitudes``: exact amplitudes in input order (table, JSON or CSV), locally or on the configured Dask
+    cluster."""
     settings = current_settings()
     circuit = load_circuit_file(args.circuit)
     budget = args.budget if args.budget is not None else settings.plan_budget_seconds
@@ -86,6 +88,7 @@ def _print_block(args, qubits, values, header: list[str], engine: str, reason: s
 
 
 def cmd_block(args) -> int:
+    """``veramp block``: the 2^k amplitudes on k qubits with the others fixed."""
     settings = current_settings()
     circuit = load_circuit_file(args.circuit)
     qubits = qubit_list(args.qubits, circuit.num_qubits)
@@ -100,6 +103,7 @@ def cmd_block(args) -> int:
 
 
 def cmd_marginal(args) -> int:
+    """``veramp marginal``: marginal probabilities on k qubits."""
     settings = current_settings()
     circuit = load_circuit_file(args.circuit)
     qubits = qubit_list(args.qubits, circuit.num_qubits)
@@ -112,6 +116,7 @@ def cmd_marginal(args) -> int:
 
 
 def cmd_estimate(args) -> int:
+    """``veramp estimate``: the predicted cost of ``--count`` amplitudes (measures the machine first if it never was)."""
     settings = current_settings()
     circuit = load_circuit_file(args.circuit)
     rate = load_or_measure(settings.calibration_path)
@@ -137,13 +142,14 @@ def cmd_estimate(args) -> int:
 
 
 def cmd_plan(args) -> int:
+    """``veramp plan``: search a plan with the whole budget and keep it when it beats the stored one."""
     settings = current_settings()
     circuit = load_circuit_file(args.circuit)
     store = plan_store(settings)
     structure = build_structure(circuit)
     before = store.get(structure.key)
     options = PlannerOptions(budget_seconds=args.budget, parallel=settings.plan_processes)
-    plan, _tree, _hit = network_plan(structure, None, options, memory_cap(args, settings), args.dtype)
+    plan = network_plan(structure, None, options, memory_cap(args, settings), args.dtype).plan
     kept = store.put(plan)
     best = store.get(structure.key)
     print(json.dumps({"network_key": structure.key, "found_madds": plan.madds, "found_width": plan.width,
@@ -153,6 +159,7 @@ def cmd_plan(args) -> int:
 
 
 def cmd_calibrate(args) -> int:
+    """``veramp calibrate``: measure this machine's rates again and store them."""
     rate = load_or_measure(current_settings().calibration_path, remeasure=True)
     print(json.dumps(rate.to_dict()))
     return 0

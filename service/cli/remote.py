@@ -15,6 +15,7 @@ from .common import ProgressBar, UsageError, current_settings, read_text
 
 
 def cmd_health(args) -> int:
+    """``veramp health``: exit 0 when the service answers its health route, 1 otherwise."""
     url = (args.url or f"http://127.0.0.1:{current_settings().port}").rstrip("/") + "/v1/health"
     try:
         ok = httpx.get(url, timeout=args.timeout).status_code == 200
@@ -27,6 +28,7 @@ def cmd_health(args) -> int:
 
 
 def cmd_submit(args) -> int:
+    """``veramp submit``: send a circuit and bitstrings to a running service, follow the job, print the results."""
     text = read_text(args.circuit)
     bits = read_bitstrings(read_text(args.bitstrings))
     circuit = {"qasm": text} if not text.lstrip().startswith("{") else {"document": json.loads(text)}

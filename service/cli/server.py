@@ -15,6 +15,7 @@ from .common import UsageError
 
 
 def cmd_serve(args) -> int:
+    """``veramp serve``: check the database, warn or refuse when exposed without tokens, then serve."""
     overrides = {}
     if args.data_dir:
         overrides["data_dir"] = Path(args.data_dir)

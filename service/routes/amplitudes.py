@@ -69,7 +69,8 @@ def post_amplitudes(body: AmplitudesIn, response: Response, request: Request, st
             return hit
     circuit = resolve_circuit(state, body)
     bits = check_bitstrings(body.bitstrings, circuit.num_qubits)
-    predicted = state.predicted_seconds(circuit, len(dict.fromkeys(bits)), body.dtype, body.engine)
+    choice = state.predict(circuit, len(dict.fromkeys(bits)), body.dtype, body.engine)
+    predicted = None if choice is None else choice.chosen.seconds
     if predicted is not None and predicted > s.max_predicted_seconds:
         raise LimitError("max_predicted_seconds", f"predicted {predicted:.4g} s exceeds the limit of "
                                                      f"{s.max_predicted_seconds:.4g} s")
@@ -86,7 +87,7 @@ def post_amplitudes(body: AmplitudesIn, response: Response, request: Request, st
         return job_out(job)
     items, stats = compute(state.sessions, circuit, bits, dtype=body.dtype, engine=body.engine,
                            planner=PlannerOptions(budget_seconds=s.plan_budget_seconds),
-                           memory_bytes=s.memory_bytes, have=have, rate=state.rate())
+                           memory_bytes=s.memory_bytes, have=have, rate=state.rate(), choice=choice)
     state.metrics.cache_hits.inc(stats["cached"])
     state.metrics.cache_misses.inc(stats["computed"])
     state.metrics.madds.inc(stats["madds"])

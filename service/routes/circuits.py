@@ -25,6 +25,7 @@ def register_circuit(body: CircuitIn, state: AppState = Depends(get_state)) -> C
 
 @router.get("/{circuit_id}", response_model=CircuitDetail, responses={404: {"model": ErrorOut}})
 def get_circuit(circuit_id: str, state: AppState = Depends(get_state)) -> CircuitDetail:
+    """A registered circuit with its JSON document."""
     with state.sessions() as s:
         row = s.get(CircuitRow, circuit_id)
     if row is None:

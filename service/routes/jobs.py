@@ -35,11 +35,13 @@ def _finished(state: AppState, job_id: str, request: Request) -> JobRow:
 
 @router.get("/{job_id}", response_model=JobOut, responses={404: {"model": ErrorOut}})
 def get_job(job_id: str, request: Request, state: AppState = Depends(get_state)) -> JobOut:
+    """A job's status, progress and ETA."""
     return job_out(_job(state, job_id, request))
 
 
 @router.post("/{job_id}/cancel", response_model=JobOut, responses={404: {"model": ErrorOut}})
 def cancel_job(job_id: str, request: Request, state: AppState = Depends(get_state)) -> JobOut:
+    """Cancel a queued or running job; finished jobs are left as they are."""
     job = _job(state, job_id, request)
     if job.status not in ("succeeded", "failed", "cancelled"):
         state.jobs.cancel(job_id)
@@ -62,6 +64,7 @@ def _items(state: AppState, job: JobRow, offset: int, limit: int | None):
             responses={404: {"model": ErrorOut}, 409: {"model": ErrorOut}})
 def results_page(job_id: str, request: Request, offset: int = Query(0, ge=0),
                  limit: int = Query(1000, ge=1, le=10000), state: AppState = Depends(get_state)) -> ResultsPage:
+    """A page of a finished job's results, in input order."""
     job = _finished(state, job_id, request)
     rows = [AmplitudeOut(bitstring=b, amplitude=(re, im), probability=re * re + im * im, cached=True)
             for b, re, im in _items(state, job, offset, limit)]
@@ -83,11 +86,13 @@ def _stream(state: AppState, job: JobRow, fmt: str):
 
 @router.get("/{job_id}/results.ndjson", responses={404: {"model": ErrorOut}, 409: {"model": ErrorOut}})
 def results_ndjson(job_id: str, request: Request, state: AppState = Depends(get_state)):
+    """A finished job's results as newline-delimited JSON, streamed."""
     job = _finished(state, job_id, request)
     return StreamingResponse(_stream(state, job, "ndjson"), media_type="application/x-ndjson")
 
 
 @router.get("/{job_id}/results.csv", responses={404: {"model": ErrorOut}, 409: {"model": ErrorOut}})
 def results_csv(job_id: str, request: Request, state: AppState = Depends(get_state)):
+    """A finished job's results as CSV, streamed."""
     job = _finished(state, job_id, request)
     return StreamingResponse(_stream(state, job, "csv"), media_type="text/csv")

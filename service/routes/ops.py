@@ -29,5 +29,6 @@ def ready(state: AppState = Depends(get_state)):
 
 @router.get("/metrics")
 def metrics(state: AppState = Depends(get_state)) -> Response:
+    """Prometheus metrics."""
     state.metrics.queue_depth.set(state.jobs.depth)
     return Response(state.metrics.render(), media_type="text/plain; version=0.0.4")

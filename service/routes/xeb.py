@@ -24,6 +24,8 @@ router = APIRouter(prefix="/v1/xeb", tags=["analysis"])
 
 
 class XebIn(CircuitRef):
+    """Device samples of a circuit and the bootstrap settings for their XEB."""
+
     samples: list[str] = Field(..., min_length=1, description="sampled bitstrings, qubit 0 first")
     bootstrap: int = Field(1000, ge=0, le=10000)
     seed: int = 0
@@ -36,15 +38,16 @@ def _probabilities(state: AppState, body: XebIn):
     circuit = resolve_circuit(state, body)
     bits = check_bitstrings(body.samples, circuit.num_qubits)
     with state.sessions() as sess:
-        all_cached = len(cached_results(sess, circuit.circuit_id, bits, "complex128")) == len(set(bits))
-    if not all_cached:
-        predicted = state.predicted_seconds(circuit, len(set(bits)), "complex128", "auto")
-        if predicted is None or predicted > s.sync_threshold_seconds:
+        have = cached_results(sess, circuit.circuit_id, bits, "complex128")
+    choice = None
+    if len(have) != len(set(bits)):
+        choice = state.predict(circuit, len(set(bits)), "complex128", "auto")
+        if choice is None or choice.chosen.seconds > s.sync_threshold_seconds:
             raise Conflict("these probabilities are not cached and would take a while: POST them to "
                            "/v1/amplitudes (a job) first, then ask again", limit="sync_threshold_seconds")
     items, _stats = compute(state.sessions, circuit, bits, dtype="complex128", engine="auto",
                             planner=PlannerOptions(budget_seconds=s.plan_budget_seconds), memory_bytes=s.memory_bytes,
-                            rate=state.rate())
+                            rate=state.rate(), have=have, choice=choice)
     return circuit, [i.probability for i in items]
 
 
@@ -69,6 +72,8 @@ def post_xeb_plot(body: XebIn, format: Literal["png", "svg"] = Query("png"),
 
 
 class FitIn(BaseModel):
+    """Fidelities with standard errors against cycles, and cycle counts to extrapolate to."""
+
     cycles: list[float] = Field(..., min_length=3)
     fidelities: list[float] = Field(..., min_length=3)
     stderrs: list[float] = Field(..., min_length=3)

@@ -22,6 +22,7 @@ from contraction.execution.dask_runner import DaskRunner
 from contraction.execution.executor import combine_scaled
 from contraction.execution.slices import ProcessRunner, Task, split_slices
 from contraction.network.builder import build_structure, tensor_arrays
+from contraction.planning.engine_choice import Contraction
 from contraction.planning.search import PlannerOptions, find_plan
 
 
@@ -29,7 +30,7 @@ def timed_run(runner, plan, structure, arrays, pieces: int) -> tuple[float, comp
     parts: list = []
     tasks = [Task(arrays, p) for p in split_slices(plan.nslices, pieces)]
     t = time.perf_counter()
-    runner.run(plan, structure, tasks, lambda k, res: parts.extend(res))
+    runner.run(Contraction(structure, plan, plan.tree(structure)), tasks, lambda k, res: parts.extend(res))
     return time.perf_counter() - t, complex(combine_scaled(parts).reshape(()))
 
 

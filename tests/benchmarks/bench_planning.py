@@ -75,7 +75,7 @@ def part_c(budget: float) -> dict:
     for r, c, cy in [(5, 5, 12), (5, 6, 12), (5, 6, 14)]:
         circ = random_instance(grid_architecture(r, c, cy), seed=7)
         s = build_structure(circ)
-        plan, _tree, _hit = network_plan(s, None, PlannerOptions(budget_seconds=budget), 8 * 2 ** 30)
+        plan = network_plan(s, None, PlannerOptions(budget_seconds=budget), 8 * 2 ** 30).plan
         if plan.width < 20:
             rows.append({"grid": f"{r}x{c}", "cycles": cy, "width": plan.width, "skipped": "width < 20"})
             continue
