@@ -1,3 +1,12 @@
+"""Fixtures and references shared by several test files.
+
+``einsum_state`` is the amplitude reference that shares no code with the engine: it applies the
+circuit's gates one by one, unfused and in order (single-qubit gates included), each with a plain
+``numpy.einsum`` on the full state tensor — no gate fusion, no planning, no slicing, no
+transpose-and-multiply kernel. The project's own state vector is checked against it, not used in
+its place.
+"""
+
 import os
 
 import numpy as np
@@ -25,3 +34,21 @@ def rng() -> np.random.Generator:
 
 def random_bitstrings(rng: np.random.Generator, n: int, k: int) -> list[str]:
     return ["".join("1" if b else "0" for b in rng.integers(0, 2, n)) for _ in range(k)]
+
+
+def einsum_state(circuit) -> np.ndarray:
+    """C|0...0> as a flat vector (qubit 0 most significant), one ``numpy.einsum`` per gate."""
+    n = circuit.num_qubits
+    letters = "abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ"
+    if n + 10 > len(letters):
+        raise ValueError(f"the einsum reference handles up to {len(letters) - 10} qubits")
+    psi = np.zeros((2,) * n, dtype=np.complex128)
+    psi[(0,) * n] = 1.0
+    state = letters[:n]
+    for g in circuit.gates:
+        k = len(g.qubits)
+        outs = letters[n:n + k]
+        ins = "".join(state[q] for q in g.qubits)
+        result = "".join(outs[g.qubits.index(q)] if q in g.qubits else state[q] for q in range(n))
+        psi = np.einsum(f"{outs}{ins},{state}->{result}", g.matrix.reshape((2,) * (2 * k)), psi)
+    return psi.reshape(-1) * np.exp(1j * circuit.global_phase)

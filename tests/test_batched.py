@@ -1,7 +1,7 @@
 """Batched contractions, open-qubit blocks, marginals and the engine choice.
 
-References outside the batching code: an einsum-based dense reference written here (one
-``np.einsum`` per gate, a different code path from the engine's transpose-and-multiply state
+References outside the batching code: the einsum reference of ``tests/conftest.py`` (one
+``np.einsum`` per unfused gate, a different code path from the engine's transpose-and-multiply state
 vector), the textbook GHZ state (Nielsen & Chuang 2010, section 1.3.6: (|0...0> + |1...1>)/sqrt 2,
 so every k-qubit marginal is 1/2 on 0...0 and 1...1), and normalisation (sum of a marginal = 1 for a
 unitary circuit).
@@ -21,24 +21,7 @@ from contraction.network.builder import build_structure
 from contraction.planning.engine_choice import batch_candidates, choose, chunk_schedule
 from contraction.planning.store import MemoryPlanStore
 
-from .conftest import FAST_PLANNER, random_bitstrings
-
-
-def einsum_state(circuit) -> np.ndarray:
-    """C|0...0> with one einsum per gate (test-local reference)."""
-    n = circuit.num_qubits
-    psi = np.zeros((2,) * n, dtype=np.complex128)
-    psi[(0,) * n] = 1
-    letters = "abcdefghijklmnopqrstuvwxyz"
-    for g in circuit.gates:
-        k = len(g.qubits)
-        t = g.matrix.reshape((2,) * (2 * k))
-        outs = "".join("ABCDEFGH"[i] for i in range(k))
-        ins = "".join(letters[q] for q in g.qubits)
-        state_in = letters[:n]
-        state_out = "".join(outs[g.qubits.index(q)] if q in g.qubits else letters[q] for q in range(n))
-        psi = np.einsum(f"{outs}{ins},{state_in}->{state_out}", t, psi)
-    return psi.reshape(-1) * np.exp(1j * circuit.global_phase)
+from .conftest import FAST_PLANNER, einsum_state, random_bitstrings
 
 
 @pytest.fixture(scope="module")

@@ -1,5 +1,6 @@
-"""The tensor-network engine against the state-vector engine on random grid circuits, and the
-Porter–Thomas statistics of the resulting output distribution.
+"""The tensor-network and state-vector engines against the einsum reference of ``tests/conftest.py``
+(one ``numpy.einsum`` per unfused gate, single-qubit gates included), and the Porter–Thomas
+statistics of the resulting output distribution.
 
 Porter–Thomas: S. Boixo et al., Nature Physics 14, 595 (2018), arXiv:1608.00263 — for a deep
 random circuit, N·p over uniformly drawn bitstrings is ~Exp(1): E[N·p] = 1, E[(N·p)²] = 2,
@@ -15,7 +16,7 @@ from contraction.execution.statevector import state_vector
 from contraction.network.builder import build_structure
 from contraction.planning.store import MemoryPlanStore
 
-from .conftest import random_bitstrings
+from .conftest import einsum_state, random_bitstrings
 
 
 def _rel_err(a, b, floor=0.0):
@@ -30,8 +31,9 @@ def test_network_equals_statevector(rows, cols, cycles, gates, rng, fast_planner
     c = random_instance(grid_architecture(rows, cols, cycles), seed=rows * 100 + cycles, gates=gates)
     n = c.num_qubits
     bits = random_bitstrings(rng, n, 12)
-    psi = state_vector(c)
-    ref = [psi[int(b, 2)] for b in bits]
+    reference = einsum_state(c)
+    ref = [reference[int(b, 2)] for b in bits]
+    assert np.max(np.abs(state_vector(c) - reference)) < 1e-12
     cache = MemoryPlanStore()
     r128 = amplitudes(c, bits, engine="single", planner=fast_planner, plan_store=cache)
     assert _rel_err([r.amplitude for r in r128.results], ref) < 1e-10
@@ -64,10 +66,40 @@ def test_porter_thomas_moments_from_network(rng, fast_planner):
     bits = random_bitstrings(rng, n, k)
     run = amplitudes(c, bits, engine="single", planner=fast_planner)
     x = N * np.array([r.probability for r in run.results])
-    # sample means with 5-sigma bands: sd(N p) = 1, sd((N p)^2) = sqrt(20)
-    assert abs(x.mean() - 1) < 5 / np.sqrt(k)
-    assert abs((x ** 2).mean() - 2) < 5 * np.sqrt(20 / k)
+    # sample means with 3-sigma bands: sd(N p) = 1, sd((N p)^2) = sqrt(20); a flat distribution
+    # (N p = 1 everywhere) has second moment 1 and fails the second band (3 sqrt(20/400) = 0.67 < 1)
+    assert abs(x.mean() - 1) < 3 / np.sqrt(k)
+    assert abs((x ** 2).mean() - 2) < 3 * np.sqrt(20 / k)
+    # the whole law: N p ~ Exp(1) (Kolmogorov–Smirnov against scipy's exponential distribution); the
+    # flat distribution's KS distance from Exp(1) is 1 - 1/e = 0.63, far beyond any p-value cut
+    from scipy import stats
+
+    assert stats.kstest(x, "expon").pvalue > 1e-3
+    assert stats.kstest(np.ones_like(x), "expon").pvalue < 1e-10
     # the whole distribution (state vector): E[sum p^2] = 2/(N+1) for Haar states (Boixo et al. 2018)
     p = np.abs(state_vector(c)) ** 2
     assert abs(p.sum() - 1) < 1e-12
     assert abs(N * (p ** 2).sum() - 2 * N / (N + 1)) < 0.1
+
+
+def test_engines_on_circuits_with_one_qubit_gates_match_the_einsum_reference(rng, fast_planner):
+    """Programs with single-qubit gates of every kind the reader knows (the fusion rule merges them
+    into neighbouring gates in both engines, the reference applies each one on its own)."""
+    from contraction.circuits.qasm_reader import read_qasm
+    from contraction.circuits.textbook import qft
+
+    text = ('OPENQASM 3.0; include "stdgates.inc"; qubit[6] q;\n'
+            "h q[0]; t q[1]; sx q[2]; rx(0.3) q[3]; ry(-1.1) q[4]; u(0.4, 0.2, -0.9) q[5];\n"
+            "cx q[0], q[1]; cz q[2], q[3]; s q[1]; tdg q[0]; rz(2.2) q[4]; cx q[4], q[5];\n"
+            "swap q[1], q[4]; y q[2]; p(0.5) q[3]; cp(1.3) q[0], q[5]; ccx q[1], q[2], q[3]; h q[5];\n")
+    for circuit in (read_qasm(text), qft(7)):
+        n = circuit.num_qubits
+        reference = einsum_state(circuit)
+        assert np.max(np.abs(state_vector(circuit) - reference)) < 1e-12
+        bits = random_bitstrings(rng, n, 6)
+        run = amplitudes(circuit, bits, engine="single", planner=fast_planner)
+        got = np.array([r.amplitude for r in run.results])
+        want = np.array([reference[int(b, 2)] for b in bits])
+        assert np.max(np.abs(got - want)) < 1e-12
+    # the QFT of |0…0> is the uniform superposition (Nielsen & Chuang §5.1): every amplitude 2^(-7/2)
+    assert np.allclose(einsum_state(qft(7)), 2 ** -3.5, atol=1e-14)

@@ -1,8 +1,8 @@
 """Planning: slicing, memory caps, plan reuse and plan-store safety, cost-estimate consistency.
 
 Checks: sliced and unsliced contractions are the same sum (slicing partitions the sum over an
-index — Gray & Kourtis, Quantum 5, 410 (2021)); the state vector (numpy) is the outside reference
-for values; FLOPs = 8 x complex multiply-adds (one complex multiply = 4 real multiplies + 2 adds,
+index — Gray & Kourtis, Quantum 5, 410 (2021)); values are compared with the state-vector engine,
+itself checked against the einsum reference of ``tests/conftest.py``; FLOPs = 8 x complex multiply-adds (one complex multiply = 4 real multiplies + 2 adds,
 one complex add = 2 adds: common practice); bytes = elements x itemsize (numpy dtype sizes).
 """
 
@@ -39,7 +39,8 @@ def test_sliced_equals_unsliced_and_state_vector(circuit, rng):
     sliced = find_plan(s, PlannerOptions(budget_seconds=0.3, max_repeats=4, max_elements=2 ** 6))
     assert sliced.nslices > 1 and unsliced.nslices == 1
     assert sliced.width <= 6
-    assert sliced.madds >= unsliced.madds * 0.999 or sliced.madds_unsliced <= unsliced.madds
+    # a sliced plan repeats work, never saves it: its total is at least its own unsliced cost
+    assert sliced.madds >= sliced.madds_unsliced and sliced.slicing_overhead >= 1.0
     psi = state_vector(circuit)
     for b in random_bitstrings(rng, 16, 4):
         arrays = tensor_arrays(s, circuit, b)

@@ -9,7 +9,6 @@
   complex128, 1e-5 in complex64; common practice for these precisions).
 """
 
-import numpy as np
 import pytest
 
 from contraction.circuits.patches import elide, split
@@ -19,23 +18,12 @@ from contraction.execution.executor import contract_scalar
 from contraction.network.builder import build_structure, tensor_arrays
 from contraction.planning.search import PlannerOptions, find_plan
 
+from .conftest import einsum_state
+
 
 def einsum_amplitude(circuit, bits: str) -> complex:
-    """<bits|C|0…0> by applying each gate with numpy.einsum to the full state tensor."""
-    n = circuit.num_qubits
-    psi = np.zeros((2,) * n, dtype=np.complex128)
-    psi[(0,) * n] = 1.0
-    letters = "abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ"
-    state = letters[:n]
-    for g in circuit.gates:
-        k = len(g.qubits)
-        outs = "".join(letters[n + i] for i in range(k))
-        ins = "".join(state[q] for q in g.qubits)
-        result = list(state)
-        for i, q in enumerate(g.qubits):
-            result[q] = outs[i]
-        psi = np.einsum(f"{outs}{ins},{state}->{''.join(result)}", g.matrix.reshape((2,) * (2 * k)), psi)
-    return complex(psi[tuple(int(b) for b in bits)])
+    """<bits|C|0…0> from the einsum reference."""
+    return complex(einsum_state(circuit)[int(bits, 2)])
 
 
 @pytest.mark.slow

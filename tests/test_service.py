@@ -93,7 +93,8 @@ def test_large_work_becomes_a_job(tmp_path):
         nd = [json.loads(line) for line in client.get(f"/v1/jobs/{job['job_id']}/results.ndjson").text.splitlines()]
         csv = client.get(f"/v1/jobs/{job['job_id']}/results.csv").text.splitlines()
         assert csv[0] == "bitstring,amplitude_re,amplitude_im,probability" and len(csv) == 4
-    # the amplitudes against an independent engine: the network result vs the 24-qubit state vector
+    # the network result against the other engine, the 24-qubit state vector (itself checked against the
+    # einsum reference in tests/test_network_vs_statevector.py)
     psi = state_vector(c)
     for row in nd:
         a = complex(*row["amplitude"])

@@ -75,7 +75,13 @@ def test_mixture_estimate_and_error_bar():
     res = estimate_xeb(p[sample_mixture(p, fid, k, rng)], n, bootstrap=300)
     expect = fid * (2 ** n - 1) / (2 ** n + 1)                     # exact finite-N expectation
     assert abs(res.linear_xeb - expect) < 4 * res.linear_xeb_stderr_model
-    assert res.linear_xeb_stderr_model == pytest.approx(math.sqrt((1 + 2 * res.linear_xeb - res.linear_xeb ** 2) / k))
+    # the model error bar is the spread of the estimate over repeated experiments: Var[N·p] = 1 + 2F − F²
+    # for the mixture (Arute et al. 2019, supplement), checked here by repeating the experiment 300 times
+    other = np.random.default_rng(6)
+    reps = [linear_xeb(p[sample_mixture(p, fid, 2000, other)], n) for _ in range(300)]
+    assert np.std(reps) == pytest.approx(math.sqrt((1 + 2 * fid - fid ** 2) / 2000), rel=0.15)
+    small = estimate_xeb(p[sample_mixture(p, fid, 2000, other)], n, bootstrap=0)
+    assert small.linear_xeb_stderr_model == pytest.approx(np.std(reps), rel=0.2)
     assert res.linear_xeb_stderr == pytest.approx(res.linear_xeb_stderr_model, rel=0.1)
     assert res.bootstrap_low < res.linear_xeb < res.bootstrap_high
     assert (res.bootstrap_high - res.bootstrap_low) == pytest.approx(2 * 1.96 * res.linear_xeb_stderr, rel=0.2)
