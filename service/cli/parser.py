@@ -5,8 +5,23 @@ from __future__ import annotations
 
 import argparse
 
+from contraction import defaults
+
 #: how bitstrings are read everywhere (help texts)
 BITSTRING_HELP = "bitstrings are written qubit 0 first: '0110' means q0=0, q1=1, q2=1, q3=0"
+
+
+def _circuit(p: argparse.ArgumentParser) -> None:
+    p.add_argument("circuit", help="OpenQASM 2/3 or veramp JSON file ('-' for stdin)")
+
+
+def _memory(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--memory", metavar="SIZE", help="peak memory cap, e.g. 8GiB (default VERAMP_MEMORY_BYTES, "
+                                                    f"{defaults.MEMORY_BYTES / 2 ** 30:g}GiB)")
+
+
+def _dtype(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--dtype", choices=["complex128", "complex64"], default=defaults.DTYPE)
 
 
 class _Parser(argparse.ArgumentParser):
@@ -24,15 +39,16 @@ def build_parser() -> argparse.ArgumentParser:
     a = sub.add_parser("amplitudes", help="exact amplitudes <x|C|0...0>",
                        description="Exact amplitudes <x|C|0...0> for the given bitstrings. " + BITSTRING_HELP,
                        epilog=BITSTRING_HELP)
-    a.add_argument("circuit", help="OpenQASM 2/3 or veramp JSON file ('-' for stdin)")
+    _circuit(a)
     a.add_argument("--bitstring", "-b", action="append", metavar="B", help="a bitstring (repeatable)")
     a.add_argument("--bitstrings", metavar="FILE", help="file with one bitstring per line")
-    a.add_argument("--dtype", choices=["complex128", "complex64"], default="complex128")
+    _dtype(a)
     a.add_argument("--engine", choices=["auto", "statevector", "batch", "single"], default="auto")
     a.add_argument("--format", choices=["table", "json", "csv"], default="table")
     a.add_argument("--budget", type=float, metavar="SECONDS",
-                   help="time budget for finding a contraction order (default: VERAMP_PLAN_BUDGET_SECONDS, 5)")
-    a.add_argument("--memory", metavar="SIZE", help="peak memory cap, e.g. 8GiB (default VERAMP_MEMORY_BYTES)")
+                   help="time budget for finding a contraction order (default: VERAMP_PLAN_BUDGET_SECONDS, "
+                        f"{defaults.PLAN_BUDGET_SECONDS:g})")
+    _memory(a)
     a.add_argument("--open", metavar="QUBITS",
                    help="leave these qubits open (e.g. 0-3): bitstrings that agree on all other qubits "
                         "share one contraction")
@@ -42,22 +58,22 @@ def build_parser() -> argparse.ArgumentParser:
                         description="All 2^k amplitudes on the given qubits with the others fixed, from one "
                                     "contraction. Row i: the qubits' values are the binary digits of i, the first "
                                     "listed qubit first.")
-    bl.add_argument("circuit", help="OpenQASM 2/3 or veramp JSON file ('-' for stdin)")
+    _circuit(bl)
     bl.add_argument("--qubits", required=True, metavar="QUBITS", help="open qubits, e.g. 0-3 or 5,2,7")
     bl.add_argument("--fixed", metavar="BITS", help="n-bit string for the other qubits (default all 0)")
     bl.add_argument("--engine", choices=["auto", "statevector", "batch", "single"], default="auto")
     bl.add_argument("--format", choices=["csv", "json"], default="csv")
-    bl.add_argument("--memory", metavar="SIZE", help="peak memory cap, e.g. 8GiB")
+    _memory(bl)
     bl.set_defaults(func="compute:cmd_block")
 
     mg = sub.add_parser("marginal", help="marginal probabilities on k qubits",
                         description="P(y) on the given qubits, summed over all other qubits. Row i: the "
                                     "qubits' values are the binary digits of i, the first listed qubit first.")
-    mg.add_argument("circuit", help="OpenQASM 2/3 or veramp JSON file ('-' for stdin)")
+    _circuit(mg)
     mg.add_argument("--qubits", required=True, metavar="QUBITS", help="measured qubits, e.g. 0-3 or 5,2,7")
     mg.add_argument("--engine", choices=["auto", "statevector", "single"], default="auto")
     mg.add_argument("--format", choices=["csv", "json"], default="csv")
-    mg.add_argument("--memory", metavar="SIZE", help="peak memory cap, e.g. 8GiB")
+    _memory(mg)
     mg.set_defaults(func="compute:cmd_marginal")
 
     pa = sub.add_parser("path", help="p(theta) along the Cayley path from the circuit to a Haar deformation",
@@ -66,7 +82,7 @@ def build_parser() -> argparse.ArgumentParser:
                                     "the circuit with gates C_k H_k. Optionally recover p from samples at other "
                                     "nodes (weighted least squares of N/D in ball arithmetic with error bounds; Berlekamp–Welch with "
                                     "--errors).")
-    pa.add_argument("circuit", help="OpenQASM 2/3 or veramp JSON file ('-' for stdin)")
+    _circuit(pa)
     pa.add_argument("--bitstring", "-b", required=True, metavar="B")
     pa.add_argument("--seed", type=int, default=0, help="seed of the Haar deformations")
     pa.add_argument("--thetas", default="0:1:21", help="'a:b:k' (k points) or a list (default 0:1:21)")
@@ -83,14 +99,14 @@ def build_parser() -> argparse.ArgumentParser:
     pa.add_argument("--dps", type=int, default=50, help="decimal digits for --precision mp")
     pa.add_argument("--plot", metavar="FILE", help="write the figure (PNG or SVG)")
     pa.add_argument("--format", choices=["table", "json"], default="table")
-    pa.add_argument("--memory", metavar="SIZE", help="peak memory cap, e.g. 8GiB")
+    _memory(pa)
     pa.set_defaults(func="analysis:cmd_path")
 
     ps = sub.add_parser("path-study", help="how well p(1) is determined by noisy samples on [0, delta]",
                         description="For each delta and noise level: sample p at Chebyshev nodes on [0, delta], "
                                     "add seeded relative noise, recover p at the target with its error bound "
                                     "(or decline), and compare with p computed directly.")
-    ps.add_argument("circuit", help="OpenQASM 2/3 or veramp JSON file ('-' for stdin)")
+    _circuit(ps)
     ps.add_argument("--bitstring", "-b", required=True, metavar="B")
     ps.add_argument("--seed", type=int, default=0, help="seed of the Haar deformations and of the noise")
     ps.add_argument("--deltas", default="0.25,0.5,0.75,1", metavar="LIST", help="interval lengths (default 0.25,0.5,0.75,1)")
@@ -101,24 +117,24 @@ def build_parser() -> argparse.ArgumentParser:
     ps.set_defaults(func="analysis:cmd_path_study")
 
     e = sub.add_parser("estimate", help="cost of a run, before computing it")
-    e.add_argument("circuit")
+    _circuit(e)
     e.add_argument("--count", type=int, default=1, metavar="K", help="number of distinct amplitudes wanted")
-    e.add_argument("--dtype", choices=["complex128", "complex64"], default="complex128")
+    _dtype(e)
     e.add_argument("--engine", choices=["auto", "statevector", "batch", "single"], default="auto")
-    e.add_argument("--memory", metavar="SIZE", help="peak memory cap, e.g. 8GiB")
+    _memory(e)
     e.add_argument("--budget", type=float, metavar="SECONDS", help="planning budget")
     e.add_argument("--format", choices=["table", "json"], default="table")
     e.set_defaults(func="compute:cmd_estimate")
 
     pl = sub.add_parser("plan", help="search a contraction plan ahead of time and store it")
-    pl.add_argument("circuit")
+    _circuit(pl)
     pl.add_argument("--budget", type=float, default=60.0, metavar="SECONDS")
-    pl.add_argument("--memory", metavar="SIZE")
-    pl.add_argument("--dtype", choices=["complex128", "complex64"], default="complex128")
+    _memory(pl)
+    _dtype(pl)
     pl.set_defaults(func="compute:cmd_plan")
 
     x = sub.add_parser("xeb", help="linear and log XEB fidelity of device samples")
-    x.add_argument("circuit")
+    _circuit(x)
     x.add_argument("--samples", required=True, metavar="FILE", help="sampled bitstrings, one per line")
     x.add_argument("--bootstrap", type=int, default=1000, help="bootstrap resamples (default 1000)")
     x.add_argument("--seed", type=int, default=0)
@@ -127,12 +143,12 @@ def build_parser() -> argparse.ArgumentParser:
     x.set_defaults(func="analysis:cmd_xeb")
 
     sb = sub.add_parser("submit", help="send a circuit and bitstrings to a running service and follow the job")
-    sb.add_argument("circuit")
+    _circuit(sb)
     sb.add_argument("--bitstrings", required=True, metavar="FILE")
     sb.add_argument("--url", default="http://127.0.0.1:8350")
     sb.add_argument("--token", help="bearer token (or VERAMP_TOKEN)")
     sb.add_argument("--retries", type=int, default=5, help="retries with exponential backoff (default 5)")
-    sb.add_argument("--dtype", choices=["complex128", "complex64"], default="complex128")
+    _dtype(sb)
     sb.add_argument("--format", choices=["json", "csv"], default="csv")
     sb.set_defaults(func="remote:cmd_submit")
 
@@ -159,7 +175,7 @@ def build_parser() -> argparse.ArgumentParser:
     cal.set_defaults(func="compute:cmd_calibrate")
 
     c = sub.add_parser("convert", help="write a circuit as JSON or OpenQASM 3")
-    c.add_argument("circuit")
+    _circuit(c)
     c.add_argument("--to", choices=["json", "qasm3"], required=True)
     c.add_argument("--output", "-o", metavar="FILE")
     c.set_defaults(func="circuits:cmd_convert")
