@@ -19,6 +19,7 @@ from contraction.execution.blocks import block_amplitudes, light_cone, marginal_
 from contraction.execution.statevector import state_vector
 from contraction.network.builder import build_structure
 from contraction.planning.engine_choice import batch_candidates, choose, chunk_schedule
+from contraction.planning.search import PlannerOptions
 from contraction.planning.store import MemoryPlanStore
 
 from .conftest import FAST_PLANNER, einsum_state, random_bitstrings
@@ -201,3 +202,24 @@ def test_unreachable_memory_target_is_an_error_not_a_hang(small):
     s = build_structure(small, batch=8, open_qubits=(4,))
     with pytest.raises(MemoryLimitError, match="fits the cap"):
         find_plan(s, PlannerOptions(budget_seconds=0.2, max_repeats=2, max_elements=2 ** 3))
+
+
+def test_auto_choice_does_not_charge_a_cheap_network_the_planning_budget():
+    """A 25-qubit swap test (Buhrman, Cleve, Watrous & de Wolf, PRL 87, 167902 (2001)): rx rotations
+    on two 12-qubit registers, then H, 12 controlled swaps, H on the ancilla. Its network plans in
+    milliseconds, so the automatic choice must not pick the 2^25-element state vector because a
+    search *could* use the whole budget. Closed form: with |a>, |b> the product states, the amplitude
+    of |0>|0…0>|0…0> is ½(a₀b₀ + b₀a₀) = ∏ cos(θ_i/2) and that of |1>|0…0>|0…0> is ½(a₀b₀ − b₀a₀) = 0."""
+    from contraction.circuits import gates as G
+    from contraction.circuits.model import Circuit, Gate
+
+    rng = np.random.default_rng(1)
+    thetas = rng.uniform(0, 1.5, 24)
+    gates = [Gate((q + 1,), G.rx(float(t)), "rx") for q, t in enumerate(thetas)] + [Gate((0,), G.H, "h")]
+    gates += [Gate((0, 1 + i, 13 + i), G.controlled(G.SWAP), "cswap") for i in range(12)] + [Gate((0,), G.H, "h")]
+    circuit = Circuit(25, gates)
+    run = amplitudes(circuit, ["0" * 25, "1" + "0" * 24], planner=PlannerOptions(budget_seconds=5.0),
+                     plan_store=MemoryPlanStore())
+    assert run.engine in ("single", "batch"), run.reason          # a network engine, not the state vector
+    assert abs(run.results[0].amplitude - np.prod(np.cos(thetas / 2))) < 1e-13
+    assert abs(run.results[1].amplitude) < 1e-15

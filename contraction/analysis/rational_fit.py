@@ -31,6 +31,7 @@ from typing import Sequence
 
 import numpy as np
 
+from contraction.analysis.cayley import path_probabilities
 from contraction.errors import VerampError
 
 EPS = np.finfo(float).eps
@@ -370,7 +371,6 @@ def extrapolation_study(path, bitstring: str, deltas: Sequence[float], noises: S
     size and p(target) is recovered with the noise-aware bound. Returns (p(target) computed directly,
     cells): each cell has the recovered value and its bound, or the reason it was declined, and the
     actual error against the direct value."""
-    from contraction.analysis.cayley import path_probabilities
 
     d = 2 * path.degree_bound
     k = nodes or d + 17

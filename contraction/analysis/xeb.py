@@ -14,6 +14,8 @@ from typing import Sequence
 
 import numpy as np
 
+from contraction.errors import VerampError
+
 EULER_GAMMA = 0.5772156649015329
 
 
@@ -54,7 +56,6 @@ def estimate_xeb(probabilities: Sequence[float], num_qubits: int, bootstrap: int
     p = np.asarray(probabilities, dtype=float)
     k = len(p)
     if k == 0:
-        from contraction.errors import VerampError
 
         raise VerampError("XEB needs at least one sample")
     x = 2.0 ** num_qubits * p

@@ -148,27 +148,29 @@ def _run_network(circuit: Circuit, option: Option, groups: dict[str, list[str]],
         sub = option.parts[b]
         pieces = split_slices(sub.plan.nslices, 4 * runner.workers if sub.plan.nslices > 1 else 1)
         tasks, owner = [], []
+        first = None                      # gate tensors are computed once per contraction size, then shared
         for number, part in items:
             padded = part + [part[-1]] * (b - len(part))
             s = sub.contraction.structure
-            arrays = tensor_arrays(s, circuit, padded if s.batch else padded[0], dt)
+            arrays = tensor_arrays(s, circuit, padded if s.batch else padded[0], dt, reuse=first)
+            first = first or arrays
             for piece in pieces:
                 tasks.append(Task(arrays, piece))
                 owner.append(number)
-        plans.append((sub, items, tasks, owner))
+        plans.append((sub, items, tasks, owner, len(pieces)))
         total_tasks += len(tasks)
     done_tasks = 0
     t0 = time.perf_counter()
-    for sub, items, tasks, owner in plans:
+    for sub, items, tasks, owner, per_chunk in plans:
         parts_of: dict[int, list] = {}
         members = dict(items)
 
-        def done(k: int, results, sub=sub, owner=owner, members=members, parts_of=parts_of):
+        def done(k: int, results, sub=sub, owner=owner, members=members, parts_of=parts_of, per_chunk=per_chunk):
             nonlocal done_tasks
             number = owner[k]
             parts_of.setdefault(number, []).extend(results)
             done_tasks += 1
-            if len(parts_of[number]) == sub.plan.nslices:
+            if len(parts_of[number]) == per_chunk:        # every task of the chunk has sent its reduced part
                 value = combine_scaled(parts_of.pop(number)) * phase
                 emit(_pick(value, members[number], groups, open_qubits, bool(sub.contraction.structure.batch)))
             if progress is not None:

@@ -22,7 +22,13 @@ from pathlib import Path
 
 import numpy as np
 
+from contraction.circuits.random_instances import grid_architecture, random_instance
+from contraction.execution.amplitudes import amplitudes
+from contraction.execution.statevector import apply_gate_in_place
+from contraction.network.builder import build_structure
 from contraction.planning.rates import MachineRate, read_rate
+from contraction.planning.search import PlannerOptions
+from contraction.planning.store import MemoryPlanStore
 
 
 def _median_time(fn, repeats: int) -> float:
@@ -46,11 +52,6 @@ def matmul_rate(n: int = 1024, repeats: int = 3, dtype=np.complex128) -> float:
 def _network_time(rows: int, cols: int, cycles: int, repeats: int) -> tuple[float, float, float, int]:
     """Median wall time of one amplitude through the same path a request takes (stored plan,
     tree rebuild, tensor values, contraction), with the plan's madds, writes and steps."""
-    from contraction.circuits.random_instances import grid_architecture, random_instance
-    from contraction.execution.amplitudes import amplitudes
-    from contraction.network.builder import build_structure
-    from contraction.planning.search import PlannerOptions
-    from contraction.planning.store import MemoryPlanStore
 
     c = random_instance(grid_architecture(rows, cols, cycles), seed=1)
     store = MemoryPlanStore()
@@ -86,7 +87,6 @@ def _statevector_update_time() -> float:
     updated in place block by block, the path states of 25 qubits and more take. (Measured at 30
     qubits: 1.15e-8 s; the copying path at 20 qubits gave 3e-8 s and made the prediction for a
     30-qubit run 2.6x too high.)"""
-    from contraction.execution.statevector import apply_gate_in_place
 
     n = 24
     psi = np.zeros((2,) * n, dtype=np.complex128)

@@ -19,6 +19,7 @@ from contraction.execution.executor import CancelCheck
 from contraction.execution.slices import SliceResults, Task, TaskDone, run_task, wait_all
 from contraction.planning.engine_choice import Contraction
 
+
 def _task_on_worker(tree, arrays: list, slices: list[int]) -> SliceResults:
     from threadpoolctl import threadpool_limits
 

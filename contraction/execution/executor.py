@@ -39,14 +39,19 @@ ProgressCallback = Callable[[Progress], None]
 CancelCheck = Callable[[], bool]
 
 
-def combine_scaled(parts: Sequence[tuple]) -> np.ndarray:
-    """Sum values (scalars or arrays of one shape) given as (mantissa, base-10 exponent) pairs
-    without overflow or underflow; returns an array (0-d for scalars)."""
+def sum_scaled(parts: Sequence[tuple]) -> tuple[np.ndarray, float]:
+    """Sum values (scalars or arrays of one shape) given as (mantissa, base-10 exponent) pairs into one
+    such pair, without overflow or underflow (a worker reduces its slices with it before sending)."""
     nonzero = [(np.asarray(m, dtype=np.complex128), e) for m, e in parts if np.any(np.asarray(m) != 0)]
     if not nonzero:
-        return np.zeros_like(np.asarray(parts[0][0], dtype=np.complex128)) if parts else np.zeros(())
+        return (np.zeros_like(np.asarray(parts[0][0], dtype=np.complex128)) if parts else np.zeros(())), 0.0
     top = max(e for _, e in nonzero)
-    total = sum(m * 10.0 ** (e - top) for m, e in nonzero)
+    return sum(m * 10.0 ** (e - top) for m, e in nonzero), top
+
+
+def combine_scaled(parts: Sequence[tuple]) -> np.ndarray:
+    """The sum of (mantissa, base-10 exponent) pairs as a plain array (0-d for scalars)."""
+    total, top = sum_scaled(parts)
     return total * 10.0 ** top
 
 

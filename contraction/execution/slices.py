@@ -18,7 +18,7 @@ from typing import Callable, Protocol, Sequence
 import numpy as np
 
 from contraction.errors import Cancelled
-from contraction.execution.executor import CancelCheck, contract_slice_scaled
+from contraction.execution.executor import CancelCheck, contract_slice_scaled, sum_scaled
 from contraction.planning.engine_choice import Contraction
 
 SliceResults = list[tuple[np.ndarray, float]]
@@ -47,8 +47,9 @@ class Runner(Protocol):
 
 
 def run_task(tree, task: Task) -> SliceResults:
-    """Contract the task's slices with ``tree``: (mantissa array, log10 scale) per slice."""
-    return [contract_slice_scaled(tree, task.arrays, i) for i in task.slices]
+    """Contract the task's slices with ``tree`` and sum them where they were computed: one
+    (mantissa, log10 scale) pair per task, so only one output travels back per task."""
+    return [sum_scaled([contract_slice_scaled(tree, task.arrays, i) for i in task.slices])]
 
 
 class InlineRunner:

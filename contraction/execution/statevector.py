@@ -9,6 +9,7 @@ of a basis state is its bitstring read with qubit 0 as the most significant bit.
 
 from __future__ import annotations
 
+import itertools
 from typing import Sequence
 
 import numpy as np
@@ -16,13 +17,14 @@ import numpy as np
 from contraction import defaults
 from contraction.circuits.gates import apply_gate
 from contraction.circuits.model import Circuit, Gate
+from contraction.errors import PlanError
+from contraction.network.builder import fused_gates
 
 
 def apply_gate_in_place(psi: np.ndarray, matrix: np.ndarray, qubits: Sequence[int],
                         chunk: int = defaults.STATEVECTOR_CHUNK_ELEMENTS) -> None:
     """Apply a gate to ``psi`` in place, a block of about ``chunk`` elements at a time: the loop
     runs over the leading axes the gate does not touch, so every block holds whole gate orbits."""
-    import itertools
 
     n = psi.ndim
     free = [a for a in range(n) if a not in qubits]
@@ -54,13 +56,10 @@ def apply_gates(psi: np.ndarray, gates: Sequence[Gate]) -> np.ndarray:
 
 def state_vector(circuit: Circuit, dtype=np.complex128, max_qubits: int = defaults.STATEVECTOR_MAX_QUBITS) -> np.ndarray:
     """The flat state C|0...0> (length 2^n)."""
-    from contraction.errors import PlanError
-
     n = circuit.num_qubits
     if n > max_qubits:
         raise PlanError(f"a state vector of {n} qubits needs {2 ** n * np.dtype(dtype).itemsize} bytes; "
                         f"the state-vector engine is limited to {max_qubits} qubits")
-    from contraction.network.builder import fused_gates
 
     psi = np.zeros((2,) * n, dtype=dtype)
     psi[(0,) * n] = 1.0

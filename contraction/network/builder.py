@@ -29,7 +29,7 @@ from functools import cached_property
 
 import numpy as np
 
-from contraction.circuits.model import Circuit
+from contraction.circuits.model import Circuit, Gate
 from contraction.errors import VerampError
 
 
@@ -209,17 +209,25 @@ def _gate_tensor(circuit: Circuit, qubits: tuple[int, ...], steps) -> np.ndarray
 
 
 def tensor_arrays(structure: NetworkStructure, circuit: Circuit, bits,
-                  dtype=np.complex128) -> list[np.ndarray]:
+                  dtype=np.complex128, reuse: list[np.ndarray] | None = None) -> list[np.ndarray]:
     """The values of every tensor of ``structure`` for this circuit and bitstring (a list of
-    ``structure.batch`` bitstrings for a batch; the bits of open qubits are ignored)."""
+    ``structure.batch`` bitstrings for a batch; the bits of open qubits are ignored).
+
+    ``reuse``: arrays this function returned for the same structure, circuit and dtype (another
+    bitstring); its gate and initial-state tensors are shared instead of computed again, so many
+    bitstrings cost one set of gate tensors plus their own projectors."""
     if structure.batch:
         if isinstance(bits, str) or len(bits) != structure.batch:
             raise ValueError(f"a batch structure needs a list of {structure.batch} bitstrings")
         table = np.array([[c == "1" for c in b] for b in bits], dtype=np.intp)  # (B, n)
+    if reuse is not None and len(reuse) != len(structure.sources):
+        raise ValueError("reuse must come from the same structure")
     arrays: list[np.ndarray] = []
-    for src in structure.sources:
+    for k, src in enumerate(structure.sources):
         kind = src[0]
-        if kind == "gate":
+        if kind in ("gate", "init") and reuse is not None:
+            arrays.append(reuse[k])
+        elif kind == "gate":
             m = _gate_tensor(circuit, src[1], src[2])
             arrays.append(np.asarray(m, dtype=dtype).reshape((2,) * (2 * len(src[1]))))
         elif kind == "init":
@@ -244,7 +252,6 @@ def tensor_arrays(structure: NetworkStructure, circuit: Circuit, bits,
 def fused_gates(circuit: Circuit) -> list:
     """The circuit's gates after the network's fusion: each multi-qubit tensor as one gate, then
     the single-qubit gates left at the end of each wire. Same product as ``circuit.gates``."""
-    from contraction.circuits.model import Gate
 
     structure = build_structure(circuit)
     out = []

@@ -26,7 +26,7 @@ from contraction.circuits.model import Circuit
 from contraction.errors import MemoryLimitError, NoStoredPlan, PlanError, VerampError
 from contraction.network.builder import NetworkStructure, build_structure
 from contraction.planning.rates import NOMINAL_RATE, MachineRate
-from contraction.planning.search import Plan, PlannerOptions, find_plan
+from contraction.planning.search import Plan, PlannerOptions, find_plan, planning_seconds
 from contraction.planning.store import PlanStore
 
 log = logging.getLogger(__name__)
@@ -36,6 +36,10 @@ ENGINES = ("auto", "statevector", "batch", "single")
 #: the automatic choice uses the state vector without planning anything up to this many qubits
 #: largest batch index tried
 
+
+
+#: searches with a halved intermediate target when a plan's peak overshoots the cap
+PEAK_RETRIES = 3
 
 
 @dataclass(frozen=True)
@@ -67,9 +71,14 @@ def network_plan(structure: NetworkStructure, store: PlanStore | None, options: 
                 log.warning("stored plan rejected, planning again: %s", exc)
     if options is None:
         raise NoStoredPlan(structure.key)
-    # the peak holds a contraction's two inputs and its output at once: aim each below a quarter
-    options = replace(options, max_elements=min(options.max_elements or math.inf, cap_elements / 4))
-    plan = find_plan(structure, options)
+    # the peak holds a contraction's two inputs and its output at once: aim each below a quarter; when
+    # the peak still overshoots (live inputs add up), aim lower, a few times, before giving up
+    target = min(options.max_elements or math.inf, cap_elements / 4)
+    for _ in range(PEAK_RETRIES):
+        plan = find_plan(structure, replace(options, max_elements=target))
+        if plan.peak_elements <= cap_elements:
+            break
+        target /= 2
     if plan.peak_elements > cap_elements:
         raise MemoryLimitError(f"the best plan found needs {plan.peak_bytes(dtype):.4g} bytes at its peak, "
                                f"over the memory cap of {memory_bytes:.4g} bytes")
@@ -130,6 +139,16 @@ class Choice:
 
 def _label(o: Option) -> str:
     return f"batch{o.batch}" if o.engine == "batch" else o.engine
+
+
+def _planning_seconds(circuit: Circuit, store: PlanStore | None, planner: PlannerOptions, memory_bytes: float,
+                      dtype: str, open_qubits: tuple[int, ...]) -> float:
+    """Predicted seconds to plan the one-bitstring network: none with a stored plan, else from a quick
+    greedy pass (:func:`planning_seconds`), never simply the budget."""
+    s = build_structure(circuit, open_qubits=open_qubits)
+    if store is not None and store.get(s.key, memory_bytes / np.dtype(dtype).itemsize) is not None:
+        return 0.0
+    return planning_seconds(s, planner)
 
 
 def statevector_option(circuit: Circuit, count: int, dtype: str, rate: MachineRate) -> Option:
@@ -224,7 +243,8 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
                       sv, [sv], count=count)
     if engine == "auto" and sv_fits:
         options.append(sv)
-        planning = planner.budget_seconds if planner is not None else 0.0
+        planning = 0.0 if planner is None else _planning_seconds(circuit, store, planner, memory_bytes, dtype,
+                                                                  open_qubits)
         if sv.seconds <= planning:
             return Choice("statevector", f"state vector predicted {sv.seconds:.3g} s, less than planning the "
                                          f"network engines would take (~{planning:.3g} s)", sv, [sv], count=count)

@@ -13,6 +13,7 @@ from dataclasses import asdict, dataclass, field
 
 from contraction import defaults
 from contraction.circuits.model import Circuit
+from contraction.errors import VerampError
 from contraction.network.builder import resolve_dtype
 from contraction.planning.engine_choice import choose
 from contraction.planning.rates import MachineRate
@@ -73,8 +74,6 @@ def estimate(circuit: Circuit, count: int = 1, *, dtype: str = "complex128", eng
 
 def parse_bytes(text: str) -> int:
     """'8GiB', '512MB', '1.5G', '1000000' -> bytes."""
-    from contraction.errors import VerampError
-
     units = {"": 1, "b": 1, "k": 1e3, "kb": 1e3, "kib": 2 ** 10, "m": 1e6, "mb": 1e6, "mib": 2 ** 20,
              "g": 1e9, "gb": 1e9, "gib": 2 ** 30, "t": 1e12, "tb": 1e12, "tib": 2 ** 40}
     s = text.strip().lower().replace(" ", "")

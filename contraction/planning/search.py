@@ -12,6 +12,7 @@ import concurrent.futures as cf
 import hashlib
 import json
 import math
+import random
 import threading
 import time
 from dataclasses import asdict, dataclass, field
@@ -21,6 +22,7 @@ import numpy as np
 from contraction import defaults
 from contraction.errors import MemoryLimitError, PlanError
 from contraction.network.builder import NetworkStructure
+from contraction.network.simplify import simplify_structure
 
 PLAN_FORMAT = "veramp-plan-v1"
 
@@ -217,6 +219,39 @@ class PlannerOptions:
         return asdict(self)
 
 
+#: a greedy tree cheaper than this (complex multiply-adds; ~0.05 s on the machines this is built on) is
+#: not searched further: a search cannot save more time than the contraction takes (common practice)
+SEARCH_WORTHWHILE_MADDS = 1e8
+
+
+def _not_worth_searching(tree, target) -> bool:
+    return (target is None or tree.max_size() <= target) and tree.contraction_cost() < SEARCH_WORTHWHILE_MADDS
+
+
+def quick_madds(structure: NetworkStructure, seed: int = 0) -> float:
+    """Multiply-adds of a quick greedy tree (simplified network, a few greedy trials; milliseconds up to
+    a few hundred tensors): an upper bound of what a search finds, used to predict planning time."""
+    import cotengra as ctg
+
+    if structure.num_tensors <= 2:
+        return 1.0
+    red = simplify_structure(structure)
+    if len(red.inputs) <= 2:
+        return 1.0
+    tree = ctg.array_contract_tree(red.inputs, red.output, red.size_dict,
+                                   optimize=ctg.RandomGreedyOptimizer(max_repeats=4, seed=seed))
+    return float(tree.contraction_cost())
+
+
+def planning_seconds(structure: NetworkStructure, options: "PlannerOptions") -> float:
+    """Predicted seconds :func:`find_plan` takes on ``structure``: a network whose quick greedy tree is
+    already cheap is not searched (about the greedy pass itself), any other uses the whole budget."""
+    t0 = time.perf_counter()
+    if quick_madds(structure, options.seed) < SEARCH_WORTHWHILE_MADDS:
+        return 2.0 * (time.perf_counter() - t0)
+    return options.budget_seconds
+
+
 #: a tree needing more than 2^48 slices is not sliced at all: it is not feasible on any machine this
 #: service runs on, and slicing it would take minutes of search for nothing
 MAX_SLICED_LOG2 = 48
@@ -306,11 +341,7 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
     running are ended. Raises :class:`MemoryLimitError` when no tree within ``max_elements`` is found,
     with the best figures found ("not feasible" when it would take more than 2^48 slices).
     """
-    import random
-
     import cotengra as ctg
-
-    from contraction.network.simplify import simplify_structure
 
     t0 = time.perf_counter()
     deadline = t0 + max(0.0, options.budget_seconds)
@@ -350,7 +381,8 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
                 # the search gets 90 % of what is left; refinement and slicing the rest (measured at
                 # 53 qubits: under 3 s after a 120 s search)
                 search_deadline = time.perf_counter() + 0.9 * (deadline - time.perf_counter())
-                if len(inputs) > 8 and search_deadline - time.perf_counter() > 0.1:
+                if (len(inputs) > 8 and search_deadline - time.perf_counter() > 0.1
+                        and not _not_worth_searching(best, target)):
                     found, trials = _search(inputs, output, sizes, options, methods, search_deadline, target,
                                             math.log2(max(best.max_size(), 1)),
                                             grace=0.5 * (deadline - search_deadline))

@@ -2,8 +2,10 @@
 
 One 30-qubit (5x6) circuit, planned with slices whose largest intermediate is 2^22 elements (or
 what ``--max-log2`` says); the same plan and arrays run on two local worker processes and on a
-LocalCluster of two single-threaded worker processes on 127.0.0.1. Overhead per slice of the
-cluster path = (cluster time - local time) / slices, also as a share of the local time per slice.
+LocalCluster of two single-threaded worker processes on 127.0.0.1, with the grouping the request
+path uses (about four tasks per worker, each task's slices summed on its worker) and with one task
+per slice. Overhead per slice of the cluster path = (cluster time - local time) / slices, also as a
+share of the local time per slice.
 
     python tests/benchmarks/bench_dask.py [--cycles 12] [--max-log2 22] [--repeats 3]
 """
@@ -54,22 +56,28 @@ def main() -> None:
                                   dashboard_address=None) as cluster:
         dask = DaskRunner(cluster.scheduler_address)
         timed_run(dask, plan, s, arrays, 2)                    # warm-up: trees built on the workers
-        t_dask = [timed_run(dask, plan, s, arrays, plan.nslices) for _ in range(args.repeats)]
+        # the production grouping (about four tasks per worker thread, each reduced on its worker) and,
+        # for comparison, one task per slice
+        t_dask = [timed_run(dask, plan, s, arrays, 2 * 4) for _ in range(args.repeats)]
+        t_per_slice = [timed_run(dask, plan, s, arrays, plan.nslices) for _ in range(args.repeats)]
         dask.close()
     local_s = statistics.median(t for t, _ in t_local)
     dask_s = statistics.median(t for t, _ in t_dask)
+    per_slice_s = statistics.median(t for t, _ in t_per_slice)
     per_slice_local = local_s / plan.nslices * 2               # two workers: wall per slice per worker
     overhead = (dask_s - local_s) / plan.nslices * 2
-    values = [v for _, v in t_local + t_dask]
+    values = [v for _, v in t_local + t_dask + t_per_slice]
     print(json.dumps({
         "qubits": 30, "cycles": args.cycles, "slices": plan.nslices, "width_log2": plan.width,
         "madds": plan.madds, "local_pool_s_median": round(local_s, 3), "dask_s_median": round(dask_s, 3),
-        "dask_tasks": plan.nslices, "local_tasks": 8,
+        "dask_tasks": 8, "local_tasks": 8, "dask_one_task_per_slice_s_median": round(per_slice_s, 3),
+        "ratio_dask_one_task_per_slice_over_local": round(per_slice_s / local_s, 3),
         "ratio_dask_over_local": round(dask_s / local_s, 3),
         "overhead_per_slice_s": round(overhead, 4), "overhead_share_of_slice": round(overhead / per_slice_local, 4),
         "goal_overhead_share": 0.10,
         "results_agree": bool(max(abs(v - values[0]) for v in values) <= 1e-12 * abs(values[0])),
         "runs_local": [round(t, 3) for t, _ in t_local], "runs_dask": [round(t, 3) for t, _ in t_dask],
+        "runs_dask_one_task_per_slice": [round(t, 3) for t, _ in t_per_slice],
     }))
 
 
