@@ -139,12 +139,14 @@ def compute(sessions: sessionmaker[Session], circuit: Circuit, bits: list[str], 
             on_chunk: Callable[[int], None] | None = None,
             cancelled: Callable[[], bool] | None = None,
             have: dict[str, ResultRow] | None = None, rate=None, runner=None,
-            choice=None) -> tuple[list[ResultItem], dict]:
+            choice=None, on_choice: Callable | None = None,
+            progress: Callable | None = None) -> tuple[list[ResultItem], dict]:
     """Amplitudes for ``bits`` (input order), from the cache where possible. Returns (items, stats).
 
     Each finished chunk of new amplitudes is stored at once, so an interrupted job keeps it.
     ``have`` is the cache lookup when the caller has just made it (saves a second query); ``choice``
-    the engine choice the caller made for its prediction (not made again when it fits)."""
+    the engine choice the caller made for its prediction (not made again when it fits); ``on_choice``
+    sees the choice once it is made (planning is over), ``progress`` every finished task."""
     t0 = time.perf_counter()
     if have is None:
         with sessions() as s:
@@ -170,10 +172,13 @@ def compute(sessions: sessionmaker[Session], circuit: Circuit, bits: list[str], 
         def chosen(choice) -> None:
             stamp["engine"] = choice.engine
             stamp["plan_hash"] = choice.chosen.plan.plan_hash if choice.chosen.plan else None
+            if on_choice is not None:
+                on_choice(choice)
 
         run = amplitudes(circuit, todo, dtype=dtype, engine=engine, planner=planner,
                          plan_store=SqlPlanStore(sessions), memory_bytes=memory_bytes, cancelled=cancelled,
-                         rate=rate, runner=runner, on_results=on_results, on_choice=chosen, choice=choice)
+                         rate=rate, runner=runner, on_results=on_results, on_choice=chosen, choice=choice,
+                         progress=progress)
         stats.update(engine=run.engine, plan_hash=stamp["plan_hash"], plan_cached=run.plan_cached,
                      madds=run.madds, reason=run.reason, batch=run.batch, chunks=run.chunks,
                      predicted_seconds=run.predicted_seconds)

@@ -84,6 +84,11 @@ class JobRow(Base):
     finished: Mapped[float | None] = mapped_column(Float, nullable=True)
     # who created the job: a digest of the bearer token (None when the service runs without tokens)
     owner: Mapped[str | None] = mapped_column(String(64), nullable=True)
+    # while running: "planning" (engine choice and plan search), then "contracting"; the prediction
+    # made when contracting starts gives the ETA until progress is a better guide
+    phase: Mapped[str | None] = mapped_column(String(16), nullable=True)
+    predicted_seconds: Mapped[float | None] = mapped_column(Float, nullable=True)
+    contracting_since: Mapped[float | None] = mapped_column(Float, nullable=True)
 
     def bitstring_list(self) -> list[str]:
         """The job's bitstrings in input order."""
@@ -134,9 +139,12 @@ def _migrate(engine: Engine) -> None:
     from sqlalchemy import inspect, text
 
     cols = {c["name"] for c in inspect(engine).get_columns("jobs")}
-    if "owner" not in cols:
-        with engine.begin() as conn:
-            conn.execute(text("ALTER TABLE jobs ADD COLUMN owner VARCHAR(64)"))
+    added = {"owner": "VARCHAR(64)", "phase": "VARCHAR(16)", "predicted_seconds": "FLOAT",
+             "contracting_since": "FLOAT"}
+    for name, kind in added.items():
+        if name not in cols:
+            with engine.begin() as conn:
+                conn.execute(text(f"ALTER TABLE jobs ADD COLUMN {name} {kind}"))
 
 
 def make_engine(url: str) -> Engine:

@@ -51,7 +51,7 @@ def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_s
             job.status, job.finished = "cancelled", time.time()
             s.commit()
             return {}
-        job.status, job.started = "running", job.started or time.time()
+        job.status, job.started, job.phase = "running", job.started or time.time(), "planning"
         s.commit()
         bits, dtype, engine, chash = job.bitstring_list(), job.dtype, job.engine, job.circuit_id
     last_check = [0.0, False]
@@ -69,6 +69,12 @@ def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_s
             s2.execute(update(JobRow).where(JobRow.id == job_id).values(done=done))
             s2.commit()
 
+    def on_choice(choice) -> None:
+        with sessions() as s2:
+            s2.execute(update(JobRow).where(JobRow.id == job_id).values(
+                phase="contracting", predicted_seconds=choice.chosen.seconds, contracting_since=time.time()))
+            s2.commit()
+
     status, error, prov = "succeeded", None, None
     try:
         circuit = load_circuit(sessions, chash)
@@ -83,7 +89,7 @@ def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_s
             items, stats = compute(sessions, circuit, bits, dtype=dtype, engine=engine,
                                    planner=PlannerOptions(budget_seconds=budget), memory_bytes=memory_bytes,
                                    on_chunk=on_chunk, cancelled=cancelled, runner=runner,
-                                   rate=read_rate(calibration_path))
+                                   rate=read_rate(calibration_path), on_choice=on_choice)
         finally:
             if runner is not None:
                 runner.close()
@@ -100,7 +106,7 @@ def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_s
         status, error = "failed", f"internal error: {type(exc).__name__}"
     with sessions() as s:
         job = s.get(JobRow, job_id)
-        job.status, job.error, job.finished = status, error, time.time()
+        job.status, job.error, job.finished, job.phase = status, error, time.time(), None
         if status == "succeeded":
             job.done = job.total
             job.provenance = json.dumps(prov)
@@ -225,9 +231,27 @@ class JobManager:
 def job_out(job: JobRow) -> JobOut:
     """The API's view of a stored job: progress, ETA while running, provenance when done."""
     progress = job.done / job.total if job.total else 1.0
-    eta = None
-    if job.status == "running" and job.started and job.done:
-        eta = (time.time() - job.started) / job.done * (job.total - job.done)
+    eta = eta_seconds(job, time.time()) if job.status == "running" else None
     return JobOut(job_id=job.id, status=job.status, circuit_id=job.circuit_id, total=job.total,
-                  done=job.done, progress=progress, eta_seconds=eta, error=job.error,
+                  done=job.done, progress=progress, eta_seconds=eta, error=job.error, phase=job.phase,
                   provenance=json.loads(job.provenance) if job.provenance else None)
+
+
+#: progress (share of the bitstrings done) from which the measured rate predicts better than the model
+RATE_TRUSTED_FROM = 0.1
+
+
+def eta_seconds(job: JobRow, now: float) -> float | None:
+    """Seconds left for a running job. None while planning (its length is the budget at most, not
+    known in advance); while contracting, the prediction made when contracting started, minus the
+    time since — until a tenth of the bitstrings are done, from when on the rate measured so far is
+    the better guide (early rates are dominated by start-up and the first chunk's size)."""
+    if job.phase != "contracting" or job.contracting_since is None:
+        return None
+    elapsed = max(0.0, now - job.contracting_since)
+    share = job.done / job.total if job.total else 1.0
+    if share >= RATE_TRUSTED_FROM and elapsed > 0:
+        return elapsed / share * (1.0 - share)
+    if job.predicted_seconds is None:
+        return None
+    return max(0.0, job.predicted_seconds - elapsed)

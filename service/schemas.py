@@ -110,6 +110,8 @@ class JobOut(BaseModel):
     eta_seconds: float | None
     error: str | None = None
     provenance: dict[str, Any] | None = None
+    phase: Literal["planning", "contracting"] | None = Field(
+        None, description="while running: planning (engine choice, plan search; no ETA yet), then contracting")
 
 
 class ResultsPage(BaseModel):

@@ -203,3 +203,23 @@ def test_first_request_does_not_wait_for_calibration(tmp_path, monkeypatch):
         r = c.post("/v1/amplitudes", json={"circuit": {"qasm": GHZ}, "bitstrings": ["000"]})
         assert r.json()["provenance"]["rates"] == "measured"
     assert (d / "calibration.json").exists()
+
+
+def test_job_eta_comes_from_the_prediction_until_progress_is_a_better_guide():
+    """No ETA while a plan is searched; then the prediction made when contracting started, counted
+    down; from a tenth of the work on, the measured rate (common practice for progress bars)."""
+    from service.db import JobRow
+    from service.jobs import eta_seconds
+
+    now = 1000.0
+    job = JobRow(id="j", status="running", circuit_id="c", dtype="complex128", engine="auto", bitstrings="[]",
+                 total=1000, done=0, phase="planning")
+    assert eta_seconds(job, now) is None
+    job.phase, job.predicted_seconds, job.contracting_since = "contracting", 100.0, now - 10.0
+    assert eta_seconds(job, now) == pytest.approx(90.0)
+    job.done = 50                                           # 5 %: too early to trust the rate
+    assert eta_seconds(job, now) == pytest.approx(90.0)
+    job.done = 500                                          # half done in 10 s: 10 s left
+    assert eta_seconds(job, now) == pytest.approx(10.0)
+    job.predicted_seconds, job.done = 5.0, 0                # the prediction ran out: never negative
+    assert eta_seconds(job, now) == 0.0

@@ -3,8 +3,9 @@
 A 40-qubit (5x8) grid circuit (no state vector fits the cap used here); ``--count`` distinct random
 bitstrings (default 10,000) in one ``amplitudes`` call with the automatic engine under
 ``--memory-gib``. Reports the engine, chunk sizes and count, progress events (one per task, tasks
-grouped per chunk), wall time, the peak resident memory of this process and of the worker
-processes (measured by the kernel: ``ru_maxrss``), and — for a baseline in the same run — the time
+grouped per chunk), wall time, the peak resident memory of this process (``ru_maxrss``) and the
+peak of the summed resident memory of all its descendant processes (worker pools; sampled from
+/proc every 0.2 s), and — for a baseline in the same run — the time
 of the same request for ``--baseline-count`` bitstrings one by one with the stored plan.
 A sample of the results is checked against contracting the same bitstring on its own.
 
@@ -15,7 +16,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import resource
 import time
 
 import numpy as np
@@ -24,6 +24,8 @@ from contraction.circuits.random_instances import grid_architecture, random_inst
 from contraction.execution.amplitudes import amplitudes
 from contraction.planning.search import PlannerOptions
 from contraction.planning.store import MemoryPlanStore
+
+from rss import PeakRss
 
 
 def main() -> None:
@@ -43,8 +45,9 @@ def main() -> None:
     cap = args.memory_gib * 2 ** 30
     events = []
     t0 = time.perf_counter()
-    run = amplitudes(circuit, bits, planner=opts, plan_store=store, memory_bytes=cap, workers=args.workers,
-                     progress=lambda p: events.append((p.done, p.total, round(p.elapsed, 2))))
+    with PeakRss() as memory:
+        run = amplitudes(circuit, bits, planner=opts, plan_store=store, memory_bytes=cap, workers=args.workers,
+                         progress=lambda p: events.append((p.done, p.total, round(p.elapsed, 2))))
     wall = time.perf_counter() - t0
     # baseline in the same run: the same bitstrings one by one (stored single plan), on a sample
     sample = bits[:args.baseline_count]
@@ -60,8 +63,7 @@ def main() -> None:
         "last_event": events[-1] if events else None,
         "wall_seconds": round(wall, 2), "predicted_seconds": round(run.predicted_seconds, 2),
         "madds": run.madds, "achieved_madds_per_second": run.madds / wall,
-        "peak_rss_self_bytes": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024,
-        "peak_rss_workers_bytes": resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss * 1024,
+        "peak_rss_self_bytes": memory.self_bytes, "peak_rss_workers_bytes": memory.descendants_bytes,
         "baseline_single_seconds_per_bitstring": round(per_single, 4),
         "baseline_single_seconds_scaled_to_count": round(per_single * len(bits), 1),
         "ratio_run_over_baseline": round(wall / (per_single * len(bits)), 4),
