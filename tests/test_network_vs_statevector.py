@@ -103,3 +103,39 @@ def test_engines_on_circuits_with_one_qubit_gates_match_the_einsum_reference(rng
         assert np.max(np.abs(got - want)) < 1e-12
     # the QFT of |0…0> is the uniform superposition (Nielsen & Chuang §5.1): every amplitude 2^(-7/2)
     assert np.allclose(einsum_state(qft(7)), 2 ** -3.5, atol=1e-14)
+
+
+def test_diagonal_gates_are_part_of_the_structure(rng, fast_planner):
+    """Exactly diagonal multi-qubit gates become k-index tensors on the wires (hyper-indices): the
+    network key says which gates are diagonal, so a plan serves exactly the circuits with that
+    pattern; amplitudes stay exact (einsum reference) with the single-qubit gates around them."""
+    from contraction.circuits import gates as G
+    from contraction.circuits.model import Circuit, Gate
+    from contraction.circuits.random_instances import haar_unitary
+    from contraction.network.builder import diagonal_gates
+
+    def circuit(two_qubit):
+        g, r = [], np.random.default_rng(3)
+        for layer in range(6):
+            g += [Gate((q,), haar_unitary(2, r), "u") for q in range(8)]
+            g += [Gate((q, q + 1), two_qubit(r), "two") for q in range(layer % 2, 7, 2)]
+        return Circuit(8, g)
+
+    cz = circuit(lambda r: G.CZ)
+    cphase = circuit(lambda r: G.controlled(G.phase_gate(float(r.uniform(0, 6)))))
+    haar = circuit(lambda r: haar_unitary(4, r))
+    assert len(diagonal_gates(cz)) == 21 and not diagonal_gates(haar)
+    s_cz, s_cp, s_haar = build_structure(cz), build_structure(cphase), build_structure(haar)
+    assert s_cz.key == s_cp.key != s_haar.key                    # same layout, same diagonal pattern
+    assert build_structure(cz, diagonal=frozenset()).key == s_haar.key
+    # a diagonal gate adds no index (a full 4x4 tensor adds two), the single-qubit gates kept apart
+    # from it add one each
+    one_qubit_tensors = sum(1 for src in s_cz.sources if src[0] == "gate" and len(src[1]) == 1)
+    assert len(s_cz.canonical) == len(s_haar.canonical) - 2 * 21 + one_qubit_tensors
+    bits = random_bitstrings(rng, 8, 6)
+    for c in (cz, cphase):
+        reference = einsum_state(c)
+        run = amplitudes(c, bits, engine="single", planner=fast_planner)
+        assert np.max(np.abs(np.array([r.amplitude for r in run.results])
+                             - np.array([reference[int(b, 2)] for b in bits]))) < 1e-12
+        assert np.max(np.abs(state_vector(c) - reference)) < 1e-12

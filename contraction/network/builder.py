@@ -18,6 +18,13 @@ Two variants share the builder:
   contraction gives all 2^k amplitudes of a block.
 
 The output axes are ``(batch?, open qubits in the order given)``.
+
+**Diagonal gates** are the one value-dependent decision, and it is part of the structure (hence of
+the network key): a multi-qubit gate whose matrix is exactly diagonal (CZ, controlled phases, ZZ
+rotations) becomes a tensor of its k wire indices, which pass through it unchanged (hyper-indices),
+instead of a tensor of 2k indices; the single-qubit gates waiting on its wires are not fused into it
+but kept as their own small tensors. A plan made for such a network serves every circuit with the
+same layout and the same diagonal gates.
 """
 
 from __future__ import annotations
@@ -45,8 +52,9 @@ class NetworkStructure:
 
     ``sources[t]`` says where tensor t's values come from: ``("init", q)``;
     ``("gate", qubits, steps)`` with steps applied in order, each ``("pre", qubits, q, ids)``
-    (single-qubit gates ``ids`` on wire q) or ``("gate", g)`` (circuit gate g); or
-    ``("proj", q, post)`` with the single-qubit gates after the last multi-qubit gate on q.
+    (single-qubit gates ``ids`` on wire q) or ``("gate", g)`` (circuit gate g); ``("diag", qubits, g)``
+    (the diagonal of circuit gate g, on the wires' current indices); or ``("proj", q, post)`` with the
+    single-qubit gates after the last multi-qubit gate on q.
     """
 
     num_qubits: int
@@ -104,16 +112,31 @@ class NetworkStructure:
         return hashlib.sha256(b"veramp-network-v1\0" + blob).hexdigest()
 
 
-def build_structure(circuit: Circuit, batch: int = 0, open_qubits: tuple[int, ...] = ()) -> NetworkStructure:
+def diagonal_gates(circuit: Circuit) -> frozenset[int]:
+    """Indices of the multi-qubit gates whose matrices are exactly diagonal (off-diagonal entries all
+    zero, as in CZ, controlled phases and ZZ rotations)."""
+    out = []
+    for i, g in enumerate(circuit.gates):
+        if len(g.qubits) > 1:
+            m = g.matrix
+            if not np.any(m - np.diag(np.diagonal(m))):
+                out.append(i)
+    return frozenset(out)
+
+
+def build_structure(circuit: Circuit, batch: int = 0, open_qubits: tuple[int, ...] = (),
+                    diagonal: frozenset[int] | None = None) -> NetworkStructure:
     """The network of one amplitude of ``circuit`` (a scalar), of a batch of ``batch`` amplitudes
     (output: the batch axis) and/or of the block of amplitudes on ``open_qubits`` (output axes in
     that order).
 
     Layout-only fusion rules: single-qubit gates wait on their wire and are multiplied into the
     next multi-qubit gate there (or into the projector); a multi-qubit gate whose qubit set equals
-    that of the tensor last written on all its wires is multiplied into that tensor.
+    that of the tensor last written on all its wires is multiplied into that tensor. Gates in
+    ``diagonal`` (default: :func:`diagonal_gates`) become diagonal tensors on the wires' indices.
     """
     n = circuit.num_qubits
+    diagonal = diagonal_gates(circuit) if diagonal is None else diagonal
     counter = 0
     wire: list[str] = []
     last: list[int] = [-1] * n          # tensor that last wrote each wire (-1: the |0> vector)
@@ -131,11 +154,25 @@ def build_structure(circuit: Circuit, batch: int = 0, open_qubits: tuple[int, ..
         if len(qs) == 1:
             pending[qs[0]].append(gi)
             continue
+        if gi in diagonal:
+            for q in qs:
+                if pending[q]:               # the waiting single-qubit gates: a tensor of their own
+                    o = _symbol(counter)
+                    counter += 1
+                    inputs.append((o, wire[q]))
+                    sources.append(("gate", (q,), [("pre", (q,), q, tuple(pending[q]))]))
+                    wire[q], last[q], pending[q] = o, len(inputs) - 1, []
+            for q in qs:
+                last[q] = len(inputs)          # nothing merges into (or across) a diagonal tensor
+            inputs.append(tuple(wire[q] for q in qs))
+            sources.append(("diag", qs, gi))
+            continue
         steps = [("pre", qs, q, tuple(pending[q])) for q in qs if pending[q]]
         for q in qs:
             pending[q] = []
         t = last[qs[0]]
-        if t >= 0 and all(last[q] == t for q in qs) and set(tensor_qubits[t]) == set(qs):
+        if (t >= 0 and t in tensor_qubits and all(last[q] == t for q in qs)
+                and set(tensor_qubits[t]) == set(qs)):
             sources[t][2].extend(steps + [("gate", gi)])
             continue
         outs = []
@@ -225,8 +262,11 @@ def tensor_arrays(structure: NetworkStructure, circuit: Circuit, bits,
     arrays: list[np.ndarray] = []
     for k, src in enumerate(structure.sources):
         kind = src[0]
-        if kind in ("gate", "init") and reuse is not None:
+        if kind in ("gate", "init", "diag") and reuse is not None:
             arrays.append(reuse[k])
+        elif kind == "diag":
+            d = np.diagonal(circuit.gates[src[2]].matrix)
+            arrays.append(np.asarray(d, dtype=dtype).reshape((2,) * len(src[1])))
         elif kind == "gate":
             m = _gate_tensor(circuit, src[1], src[2])
             arrays.append(np.asarray(m, dtype=dtype).reshape((2,) * (2 * len(src[1]))))
@@ -258,6 +298,8 @@ def fused_gates(circuit: Circuit) -> list:
     for src in structure.sources:
         if src[0] == "gate":
             out.append(Gate(src[1], _gate_tensor(circuit, src[1], src[2])))
+        elif src[0] == "diag":
+            out.append(circuit.gates[src[2]])
         elif src[0] == "proj" and src[2]:
             out.append(Gate((src[1],), _product(circuit, src[2])))
     return out

@@ -156,8 +156,8 @@ def statevector_option(circuit: Circuit, count: int, dtype: str, rate: MachineRa
     same)."""
     n = circuit.num_qubits
     # the fused gates the state-vector engine applies, counted from the layout (no matrices built)
-    arities = [len(src[1]) if src[0] == "gate" else 1 for src in build_structure(circuit).sources
-               if src[0] == "gate" or (src[0] == "proj" and src[2])]
+    arities = [len(src[1]) if src[0] in ("gate", "diag") else 1 for src in build_structure(circuit).sources
+               if src[0] in ("gate", "diag") or (src[0] == "proj" and src[2])]
     itemsize = np.dtype(dtype).itemsize
     seconds = rate.statevector_seconds_per_update * 2 ** n * len(arities) * (itemsize / 16)
     madds = float(sum(2 ** n * 2 ** a for a in arities))
