@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+import hashlib
 import json
 import threading
 import time
+from collections import OrderedDict
 from dataclasses import dataclass, field
 
 from fastapi import Request
@@ -21,6 +23,9 @@ from .metrics import Metrics
 from .schemas import CircuitIn, CircuitRef
 from .settings import Settings
 
+#: circuits kept in memory per server process (each at most ``max_gates`` gates)
+CIRCUIT_CACHE = 256
+
 
 @dataclass
 class AppState:
@@ -33,6 +38,25 @@ class AppState:
     _rate: object = None
     _rate_lock: threading.Lock = field(default_factory=threading.Lock)
     _calibrating: threading.Thread | None = None
+    # circuits already read and stored, by the hash of the request's circuit text and by circuit id:
+    # pipelines send the same circuit with every batch, and reading it again costs more than the lookup
+    _circuits: OrderedDict = field(default_factory=OrderedDict)
+    _circuits_lock: threading.Lock = field(default_factory=threading.Lock)
+
+    def remembered(self, key: str) -> Circuit | None:
+        """A circuit read (and stored) earlier under ``key``, or None."""
+        with self._circuits_lock:
+            c = self._circuits.get(key)
+            if c is not None:
+                self._circuits.move_to_end(key)
+            return c
+
+    def remember(self, key: str, circuit: Circuit) -> None:
+        """Keep ``circuit`` under ``key`` (the least recently used of more than ``CIRCUIT_CACHE`` go)."""
+        with self._circuits_lock:
+            self._circuits[key] = circuit
+            while len(self._circuits) > CIRCUIT_CACHE:
+                self._circuits.popitem(last=False)
 
     def start_calibration(self) -> None:
         """Read the stored machine rates, or measure them in a background thread (logged); requests
@@ -122,10 +146,17 @@ def resolve_circuit(state: AppState, ref: CircuitRef) -> Circuit:
     if (ref.circuit_id is None) == (ref.circuit is None):
         raise VerampError("give exactly one of 'circuit_id' or 'circuit'")
     if ref.circuit_id is not None:
-        circuit = load_stored(state.sessions, ref.circuit_id)
+        circuit = state.remembered("id:" + ref.circuit_id) or load_stored(state.sessions, ref.circuit_id)
         if circuit is None:
             raise NotFound(f"no circuit with id {ref.circuit_id}")
+        state.remember("id:" + ref.circuit_id, circuit)
         return circuit
-    circuit = parse_circuit(state, ref.circuit)
-    store_circuit(state.sessions, circuit)
+    body = ref.circuit
+    text = body.qasm if body.qasm is not None else json.dumps(body.document, sort_keys=True)
+    key = "text:" + hashlib.sha256(f"{body.qasm is not None}\0{text}".encode()).hexdigest()
+    circuit = state.remembered(key)
+    if circuit is None:
+        circuit = parse_circuit(state, body)
+        store_circuit(state.sessions, circuit)
+        state.remember(key, circuit)
     return circuit

@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 
 from contraction.analysis.cayley import cayley, cayley_path, inverse_cayley, path_probabilities
-from contraction.analysis.rational_fit import path_probabilities_mp, recover, recover_path
+from contraction.analysis.rational_fit import path_probabilities_mp, recover, recover_path, sample_digits_needed
 from contraction.circuits.model import Circuit, Gate
 from contraction.circuits.random_instances import grid_architecture, haar_unitary, random_instance
 from contraction.errors import VerampError
@@ -213,3 +213,21 @@ def test_extrapolation_study_is_honest_in_every_cell(tiny, tmp_path):
         bounds = [c.error_bound for c in cells if c.noise == eps]          # delta = 0.3, 0.6, 1.0
         assert all(b is not None for b in bounds) and bounds[0] >= bounds[1] >= bounds[2]
     assert study_plot(exact, cells, 1.0)[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+@pytest.mark.slow
+def test_8_qubit_4_layer_path_recovers_with_extended_precision_samples():
+    """8 qubits, 4 layers: numerator degree 256, the known denominator spans ~10^100 on [0, 1], so
+    double-precision samples cannot determine p(0.25) (they are declined, never wrong). Samples
+    computed with the digits that range requires (mpmath state vector) recover p(1) and p(0.25)
+    within 1e-8 of p computed directly at that precision, inside the reported bounds."""
+    path = cayley_path(layered(8, 4, 7), seed=0)
+    assert 2 * path.degree_bound == 256
+    nodes = chebyshev_nodes(270)
+    targets = [1.0, 0.25]
+    digits = sample_digits_needed(path, list(nodes) + targets)
+    samples = path_probabilities_mp(path, "00000000", nodes, digits)
+    exact = [float(v) for v in path_probabilities_mp(path, "00000000", targets, digits)]
+    r = recover_path(path, nodes, samples, targets, sample_digits=digits)
+    for v, e, x in zip(r.recovered, r.error_bound, exact):
+        assert v is not None and abs(v - x) <= e and abs(v - x) <= 1e-8 * x

@@ -342,3 +342,21 @@ def test_a_request_chooses_its_engine_once(client, monkeypatch):
     probs = [x["probability"] for x in r.json()["results"]]
     assert probs == pytest.approx([0.5, 0.5, 0.0], abs=1e-15)      # GHZ: Nielsen & Chuang 2010
     assert calls == [False]
+
+
+def test_an_inline_circuit_is_read_once_per_server(client, monkeypatch):
+    """Pipelines send the same circuit text with every batch: it is read and stored once, then
+    recognised by its text; a different text is read. Answers are the same either way (GHZ:
+    Nielsen & Chuang 2010)."""
+    import service.deps as deps
+
+    reads = []
+    real = deps.parse_circuit
+    monkeypatch.setattr(deps, "parse_circuit", lambda state, body: reads.append(1) or real(state, body))
+    for _ in range(3):
+        r = client.post("/v1/amplitudes", json={"circuit": {"qasm": GHZ}, "bitstrings": ["111"]})
+        assert r.status_code == 200 and r.json()["results"][0]["probability"] == pytest.approx(0.5, abs=1e-15)
+    assert len(reads) == 1
+    r = client.post("/v1/amplitudes", json={"circuit": {"qasm": GHZ + "x q[0];\n"}, "bitstrings": ["111"]})
+    assert r.status_code == 200 and r.json()["results"][0]["probability"] == pytest.approx(0.0, abs=1e-15)
+    assert len(reads) == 2

@@ -107,7 +107,7 @@ def _chebyshev(theta: float, domain: tuple[float, float], degree: int) -> list:
 
 def _fit(nodes: np.ndarray, samples: np.ndarray, degree: int, lam2: np.ndarray, bits: int,
          domain: tuple[float, float]) -> Fit:
-    from flint import arb, arb_mat
+    from flint import arb_mat
 
     f = Fit(nodes, domain, degree, lam2, bits)
     b = arb_mat([[x for x in f.row(float(t)).entries()] for t in nodes])
@@ -116,7 +116,7 @@ def _fit(nodes: np.ndarray, samples: np.ndarray, degree: int, lam2: np.ndarray, 
         f.gram_inv_bt = (bt * b).solve(bt)
     except ZeroDivisionError:
         raise _Singular() from None
-    f.coef = f.gram_inv_bt * arb_mat([[arb(float(y))] for y in samples])
+    f.coef = f.gram_inv_bt * arb_mat([[_as_arb(y)] for y in samples])
     return f
 
 
@@ -146,22 +146,44 @@ class PathRecovery:
         return dict(self.__dict__)
 
 
-def _sample_bounds(samples: np.ndarray, gate_dims: int, noise: float | None) -> tuple[np.ndarray, str]:
-    if noise is None:
-        return double_sample_error(samples, gate_dims), "double-precision rounding bound"
-    if not (0 <= noise < 1):
+def _sample_bounds(samples: np.ndarray, gate_dims: int, noise: float | None,
+                   digits: int | None = None) -> tuple[np.ndarray, str]:
+    if noise is not None and not (0 <= noise < 1):
         raise VerampError("the relative sample noise must be in [0, 1)")
-    return noise * np.abs(samples) + double_sample_error(samples, gate_dims), f"relative noise {noise:g}"
+    if digits is not None:
+        # samples computed with ``digits`` decimal digits: a relative error of 10^-(digits - 3) leaves
+        # 1,000 units in the last place for the rounding of the state-vector products
+        rounding, how = 10.0 ** -(digits - 3) * np.abs(samples), f"{digits}-digit samples"
+    else:
+        rounding, how = double_sample_error(samples, gate_dims), "double-precision rounding bound"
+    if noise is None:
+        return rounding, how
+    return noise * np.abs(samples) + rounding, f"relative noise {noise:g}"
 
 
-def recover(nodes: Sequence[float], samples: Sequence[float], lam2: Sequence[float], targets: Sequence[float], *,
+def _as_arb(value):
+    """A sample as an arb ball at the current precision: floats exactly, mpmath numbers (extended
+    precision samples) through their full decimal expansion."""
+    from flint import arb
+
+    if isinstance(value, (float, int, np.floating, np.integer)):
+        return arb(float(value))
+    import mpmath as mp
+
+    return arb(mp.nstr(value, mp.mp.dps + 5, strip_zeros=False))
+
+
+def recover(nodes: Sequence[float], samples: Sequence, lam2: Sequence[float], targets: Sequence[float], *,
             degree: int, gate_dims: int, errors: int = 0, noise: float | None = None,
-            max_relative_error: float = 0.1) -> PathRecovery:
+            max_relative_error: float = 0.1, sample_digits: int | None = None) -> PathRecovery:
     """Recover p at ``targets`` from samples ``p(nodes)`` of p = N / D, N of degree ``degree`` and
     D = prod(1 + theta^2 lam2). ``errors``: samples that may be corrupted (Berlekamp–Welch);
-    ``noise``: relative noise of the samples (default: they are exact up to double rounding)."""
+    ``noise``: relative noise of the samples (default: they are exact up to double rounding);
+    ``sample_digits``: the samples are mpmath numbers computed with that many decimal digits (see
+    :func:`path_probabilities_mp`), used at their full precision and bounded accordingly."""
     x = np.asarray(nodes, dtype=float)
-    y = np.asarray(samples, dtype=float)
+    exact_samples = list(samples)
+    y = np.asarray([float(v) for v in exact_samples], dtype=float)
     lam2 = np.asarray(lam2, dtype=float)
     if x.shape != y.shape or x.ndim != 1:
         raise VerampError("nodes and samples must be two lists of the same length")
@@ -179,7 +201,7 @@ def recover(nodes: Sequence[float], samples: Sequence[float], lam2: Sequence[flo
         raise VerampError(f"recovery needs at least {d + 2 * t + 1} distinct nodes for degree {d} with "
                           f"{t} corrupted samples; got {k}")
     domain = (float(x.min()), float(x.max()))
-    delta, how = _sample_bounds(y, gate_dims, noise)
+    delta, how = _sample_bounds(y, gate_dims, noise, sample_digits)
     targets = [float(v) for v in targets]
     # start where the denominator's dynamic range says double-and-then-some is needed (log2 of its
     # span plus 100 bits of headroom); more bits follow when the balls say so
@@ -187,16 +209,17 @@ def recover(nodes: Sequence[float], samples: Sequence[float], lam2: Sequence[flo
     for bits in (b for b in PRECISIONS if b >= min(PRECISIONS[-1], 2 * span + 100) or b == PRECISIONS[-1]):
         with _precision(bits):
             try:
-                bad = _locate(x, y, d, t, lam2, bits, domain) if t else []
+                ys = [_as_arb(v) for v in exact_samples]
+                bad = _locate(x, ys, d, t, lam2, bits, domain) if t else []
                 keep = np.setdiff1d(np.arange(k), bad)
-                fit = _fit(x[keep], y[keep], d, lam2, bits, domain)
-                corrupted, unseen = _check_residuals(fit, x, y, delta, keep, t)
+                fit = _fit(x[keep], [ys[i] for i in keep], d, lam2, bits, domain)
+                corrupted, unseen = _check_residuals(fit, x, ys, delta, keep, t)
                 if corrupted != sorted(bad):
                     keep = np.setdiff1d(np.arange(k), corrupted)
                     if len(keep) < d + 1:
                         raise VerampError(f"more than {t} samples disagree with every degree-{d} numerator")
-                    fit = _fit(x[keep], y[keep], d, lam2, bits, domain)
-                    corrupted2, unseen = _check_residuals(fit, x, y, delta, keep, t)
+                    fit = _fit(x[keep], [ys[i] for i in keep], d, lam2, bits, domain)
+                    corrupted2, unseen = _check_residuals(fit, x, ys, delta, keep, t)
                     if corrupted2 != corrupted:
                         raise VerampError("the corrupted samples cannot be told apart from the good ones; add "
                                           "nodes or lower --errors")
@@ -215,9 +238,9 @@ def recover(nodes: Sequence[float], samples: Sequence[float], lam2: Sequence[flo
                         fine = False                # not yet precise enough: try more bits
                         break
                     # the weights are exact to far below their size at this precision; a 1 % margin
-                    # covers their own rounding
-                    bound = 1.01 * amp + arith
+                    # covers their own rounding; the value is returned as a double (half an ulp more)
                     val = float(v.mid())
+                    bound = 1.01 * amp + arith + EPS * abs(val)
                     if not math.isfinite(bound) or bound > max_relative_error * abs(val):
                         values.append(None)
                         bounds.append(bound if math.isfinite(bound) else None)
@@ -251,7 +274,7 @@ def _check_residuals(fit: Fit, x, y, delta, keep, t: int) -> tuple[list[int], np
         spread = sum(abs(float(w[0, j].mid())) * float(dj) for j, dj in enumerate(deltas))
         if float(v.rad()) > ARITHMETIC_SHARE * (spread + delta[i]):
             raise _Singular()                # not precise enough yet: the caller tries more bits
-        resid = abs(float(v.mid()) - y[i])
+        resid = abs(float((v - y[i]).mid()))          # in ball arithmetic: samples may carry many digits
         threshold = 4 * (spread + delta[i]) + 1e-300
         if resid > threshold:
             out.append(i)
@@ -266,7 +289,7 @@ def _check_residuals(fit: Fit, x, y, delta, keep, t: int) -> tuple[list[int], np
 
 def _locate(x, y, d: int, t: int, lam2, bits: int, domain) -> list[int]:
     """Berlekamp–Welch: the nodes nearest to the real roots of the error locator E."""
-    from flint import arb, arb_mat
+    from flint import arb_mat
 
     f = Fit(x, domain, d + t, lam2, bits)
     a, b = domain
@@ -274,8 +297,8 @@ def _locate(x, y, d: int, t: int, lam2, bits: int, domain) -> list[int]:
     for ti, yi in zip(x, y):
         r = f.row(float(ti)).entries()                        # T_j / D, j <= d + t
         ts = _chebyshev(float(ti), domain, t)                 # T_j, j <= t
-        rows.append(list(r) + [-arb(float(yi)) * ts[j] for j in range(t)])
-        rhs.append([arb(float(yi)) * ts[t]])
+        rows.append(list(r) + [-yi * ts[j] for j in range(t)])
+        rhs.append([yi * ts[t]])
     m = arb_mat(rows)
     mt = m.transpose()
     try:
@@ -289,12 +312,20 @@ def _locate(x, y, d: int, t: int, lam2, bits: int, domain) -> list[int]:
                    if abs(r.imag) < 1e-3 and -1.05 <= r.real <= 1.05})
 
 
-def recover_path(path, nodes: Sequence[float], samples: Sequence[float], targets: Sequence[float], *,
-                 errors: int = 0, noise: float | None = None, max_relative_error: float = 0.1) -> PathRecovery:
+def recover_path(path, nodes: Sequence[float], samples: Sequence, targets: Sequence[float], *,
+                 errors: int = 0, noise: float | None = None, max_relative_error: float = 0.1,
+                 sample_digits: int | None = None) -> PathRecovery:
     """Recover p at ``targets`` from p sampled at ``nodes`` along ``path`` (see :func:`recover`)."""
     lam2 = np.concatenate([g.eigvals ** 2 for g in path.gates])
     return recover(nodes, samples, lam2, targets, degree=2 * path.degree_bound, gate_dims=path.degree_bound,
-                   errors=errors, noise=noise, max_relative_error=max_relative_error)
+                   errors=errors, noise=noise, max_relative_error=max_relative_error, sample_digits=sample_digits)
+
+
+def sample_digits_needed(path, thetas: Sequence[float]) -> int:
+    """Decimal digits extended-precision samples need on ``thetas``: the denominator's dynamic range
+    there (the fit loses that many digits of the samples near its top) plus 25 for the value itself."""
+    ln_d = path.log_denominator(np.asarray(list(thetas), dtype=float))
+    return int(math.ceil((float(np.max(ln_d)) - float(np.min(ln_d))) / math.log(10))) + 25
 
 
 def path_probabilities_mp(path, bitstring: str, thetas: Sequence, dps: int = 50) -> list:

@@ -7,7 +7,8 @@ import sys
 from pathlib import Path
 
 from contraction.analysis.cayley import cayley_path, path_probabilities
-from contraction.analysis.rational_fit import extrapolation_study, path_probabilities_mp, recover_path
+from contraction.analysis.rational_fit import (
+    extrapolation_study, path_probabilities_mp, recover_path, sample_digits_needed)
 from contraction.analysis.xeb import estimate_xeb, fit_depth, mixture_ks
 from contraction.circuits.bitstrings import check_bitstrings, read_bitstrings
 from contraction.execution.amplitudes import amplitudes
@@ -96,12 +97,15 @@ def cmd_path(args) -> int:
     if args.fit_nodes:
         nodes = theta_list(args.fit_nodes)
         targets = theta_list(args.targets)
+        digits = None
         if args.precision == "mp":
-            samples = [float(v) for v in path_probabilities_mp(path, bits, nodes, args.dps)]
+            # as many digits as the denominator's range over the nodes and targets takes away, or more
+            digits = max(args.dps or 0, sample_digits_needed(path, list(nodes) + list(targets)))
+            samples = path_probabilities_mp(path, bits, nodes, digits)
         else:
             samples = path_probabilities(path, bits, nodes, **opts)[0]
         recovery = recover_path(path, nodes, samples, targets, errors=args.errors, noise=args.noise,
-                                max_relative_error=args.max_relative_error)
+                                max_relative_error=args.max_relative_error, sample_digits=digits)
         recovery.exact = path_probabilities(path, bits, targets, **opts)[0].tolist()
         recovery.actual_error = [None if a is None else abs(a - b) for a, b in zip(recovery.recovered, recovery.exact)]
         doc["recovery"] = recovery.to_dict()

@@ -94,9 +94,11 @@ def build_parser() -> argparse.ArgumentParser:
     pa.add_argument("--max-relative-error", type=float, default=0.1, metavar="R",
                     help="decline targets whose error bound exceeds this share of the value (default 0.1)")
     pa.add_argument("--precision", choices=["double", "mp"], default="double",
-                    help="mp: compute the samples with an mpmath state vector (up to 8 qubits); the fit always "
-                         "runs in ball arithmetic at the precision it needs")
-    pa.add_argument("--dps", type=int, default=50, help="decimal digits for --precision mp")
+                    help="mp: compute the samples with an mpmath state vector (up to 8 qubits) at the precision "
+                         "the recovery needs, and use them at full precision; the fit always runs in ball "
+                         "arithmetic at the precision it needs")
+    pa.add_argument("--dps", type=int, help="decimal digits for --precision mp (default: what the known "
+                                            "denominator's range over the nodes and targets requires, plus 25)")
     pa.add_argument("--plot", metavar="FILE", help="write the figure (PNG or SVG)")
     pa.add_argument("--format", choices=["table", "json"], default="table")
     _memory(pa)

@@ -69,16 +69,17 @@ def post_amplitudes(body: AmplitudesIn, response: Response, request: Request, st
             return hit
     circuit = resolve_circuit(state, body)
     bits = check_bitstrings(body.bitstrings, circuit.num_qubits)
-    choice = state.predict(circuit, len(dict.fromkeys(bits)), body.dtype, body.engine)
-    predicted = None if choice is None else choice.chosen.seconds
-    if predicted is not None and predicted > s.max_predicted_seconds:
-        raise LimitError("max_predicted_seconds", f"predicted {predicted:.4g} s exceeds the limit of "
-                                                     f"{s.max_predicted_seconds:.4g} s")
     from ..compute import cached_results
 
     with state.sessions() as sess:
         have = cached_results(sess, circuit.circuit_id, bits, body.dtype)
     all_cached = len(have) == len(set(bits))
+    # nothing to compute: no prediction needed (it reads plans and builds the network)
+    choice = None if all_cached else state.predict(circuit, len(dict.fromkeys(bits)), body.dtype, body.engine)
+    predicted = None if choice is None else choice.chosen.seconds
+    if predicted is not None and predicted > s.max_predicted_seconds:
+        raise LimitError("max_predicted_seconds", f"predicted {predicted:.4g} s exceeds the limit of "
+                                                     f"{s.max_predicted_seconds:.4g} s")
     if not all_cached and (predicted is None or predicted > s.sync_threshold_seconds):
         job = state.jobs.create(circuit.circuit_id, bits, body.dtype, body.engine, owner=owner_of(request))
         state.metrics.queue_depth.set(state.jobs.depth)
