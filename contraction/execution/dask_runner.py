@@ -16,13 +16,14 @@ from typing import Sequence
 
 from contraction.errors import MemoryLimitError
 from contraction.execution.executor import CancelCheck
-from contraction.execution.slices import SliceResults, Task, TaskDone, run_task, wait_all
+from contraction.execution.slices import SliceResults, Task, TaskDone, keep_freed_memory, run_task, wait_all
 from contraction.planning.engine_choice import Contraction
 
 
 def _task_on_worker(tree, arrays: list, slices: list[int]) -> SliceResults:
     from threadpoolctl import threadpool_limits
 
+    keep_freed_memory()
     with threadpool_limits(1):
         return run_task(tree, Task(arrays, slices))
 

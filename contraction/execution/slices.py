@@ -11,6 +11,7 @@ Worker processes limit BLAS to one thread each (threads or processes, never both
 from __future__ import annotations
 
 import concurrent.futures as cf
+import ctypes
 import multiprocessing as mp
 from dataclasses import dataclass
 from typing import Callable, Protocol, Sequence
@@ -70,10 +71,36 @@ class InlineRunner:
 _worker_state: dict = {}
 
 
+#: glibc's mallopt parameters (malloc.h)
+_M_TRIM_THRESHOLD, _M_MMAP_MAX = -1, -4
+_kept = False
+
+
+def keep_freed_memory() -> None:
+    """Let this process reuse the memory of freed intermediates instead of returning it to the kernel.
+
+    By default glibc maps every large array afresh (the kernel zeroes each page on first touch) and
+    unmaps it when freed, so a contraction that allocates and frees intermediates of 2^25 elements at
+    every step spends a third of its time in the kernel (measured: 3.1-3.9 s of 10 s at 30 qubits,
+    1.3-1.4x slower than with this setting). Called once per contraction worker process; a no-op
+    where glibc is not the C library."""
+    global _kept
+    if _kept:
+        return
+    _kept = True
+    try:
+        libc = ctypes.CDLL("libc.so.6")
+        libc.mallopt(_M_MMAP_MAX, 0)                # large arrays from the heap, not fresh mappings
+        libc.mallopt(_M_TRIM_THRESHOLD, 2 ** 31 - 1)  # and freed heap kept for the next step
+    except (OSError, AttributeError):
+        pass
+
+
 def _init_worker(tree) -> None:
     from threadpoolctl import threadpool_limits
 
     threadpool_limits(1)
+    keep_freed_memory()
     _worker_state["tree"] = tree
 
 

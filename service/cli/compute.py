@@ -11,6 +11,7 @@ from contraction.execution.amplitudes import amplitudes
 from contraction.execution.blocks import block_amplitudes, marginal_probabilities
 from contraction.execution.calibration import load_or_measure
 from contraction.execution.dask_runner import DaskRunner
+from contraction.execution.slices import keep_freed_memory
 from contraction.network.builder import build_structure
 from contraction.planning.engine_choice import network_plan
 from contraction.planning.estimate import estimate
@@ -24,6 +25,7 @@ from .common import (
 def cmd_amplitudes(args) -> int:
     """``veramp amplitudes``: exact amplitudes in input order (table, JSON or CSV), locally or on the configured Dask
     cluster."""
+    keep_freed_memory()                  # this process exits after the command: keep what it frees
     settings = current_settings()
     circuit = load_circuit_file(args.circuit)
     budget = args.budget if args.budget is not None else settings.plan_budget_seconds
@@ -89,6 +91,7 @@ def _print_block(args, qubits, values, header: list[str], engine: str, reason: s
 
 def cmd_block(args) -> int:
     """``veramp block``: the 2^k amplitudes on k qubits with the others fixed."""
+    keep_freed_memory()                  # this process exits after the command: keep what it frees
     settings = current_settings()
     circuit = load_circuit_file(args.circuit)
     qubits = qubit_list(args.qubits, circuit.num_qubits)
@@ -104,6 +107,7 @@ def cmd_block(args) -> int:
 
 def cmd_marginal(args) -> int:
     """``veramp marginal``: marginal probabilities on k qubits."""
+    keep_freed_memory()                  # this process exits after the command: keep what it frees
     settings = current_settings()
     circuit = load_circuit_file(args.circuit)
     qubits = qubit_list(args.qubits, circuit.num_qubits)

@@ -1,0 +1,94 @@
+"""Is the automatic engine choice the fastest? Every case runs with ``engine="auto"`` and with
+each engine forced (state vector where it fits the cap, one contraction per bitstring, batched),
+all in this run and with the same plan store (each network is planned once, before any timing:
+planning is not what is compared). Reports per case the time of every engine, the engine auto
+chose and ``auto / fastest`` (goal: at most 1.25 on every case).
+
+Cases: grid circuits (Haar two-qubit gates) of 20-40 qubits with 1 to 2,000 bitstrings, a 25-qubit
+swap test, a 24-qubit QFT (diagonal controlled phases) and a 30-qubit quantum-volume circuit.
+
+    python tests/benchmarks/bench_engine_choice.py [--budget 5] [--cases all|quick]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import time
+
+import numpy as np
+
+from contraction.circuits import gates as G
+from contraction.circuits.model import Circuit, Gate
+from contraction.circuits.random_instances import grid_architecture, random_instance
+from contraction.circuits.textbook import qft, quantum_volume
+from contraction.errors import MemoryLimitError
+from contraction.execution.amplitudes import amplitudes
+from contraction.execution.calibration import load_or_measure
+from contraction.planning.search import PlannerOptions
+from contraction.planning.store import MemoryPlanStore
+
+
+def swap_test(n_half: int = 12) -> Circuit:
+    rng = np.random.default_rng(1)
+    n = 2 * n_half + 1
+    gates = [Gate((q,), G.rx(float(rng.uniform(0, 3))), "rx") for q in range(1, n)] + [Gate((0,), G.H, "h")]
+    gates += [Gate((0, 1 + i, 1 + n_half + i), G.controlled(G.SWAP), "cswap") for i in range(n_half)]
+    return Circuit(n, gates + [Gate((0,), G.H, "h")], name=f"swaptest{n}")
+
+
+def cases(which: str):
+    grid = lambda r, c, m, s=1: random_instance(grid_architecture(r, c, m), seed=s)  # noqa: E731
+    out = [("grid20x10", grid(4, 5, 10), 1), ("grid20x10", grid(4, 5, 10), 1000),
+           ("grid24x12", grid(4, 6, 12), 64), ("swap25", swap_test(12), 1), ("qft24", qft(24), 16),
+           ("qv30x8", quantum_volume(30, 8, seed=2), 1), ("grid30x12", grid(5, 6, 12), 256),
+           ("grid36x8", grid(6, 6, 8), 64), ("grid40x8", grid(5, 8, 8), 2000)]
+    return out[:4] if which == "quick" else out
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--budget", type=float, default=5.0)
+    ap.add_argument("--cases", default="all")
+    ap.add_argument("--memory-gib", type=float, default=8.0)
+    ap.add_argument("--workers", type=int, default=2)
+    args = ap.parse_args()
+    rate = load_or_measure(None)
+    cap = args.memory_gib * 2 ** 30
+    rows = []
+    for name, circ, count in cases(args.cases):
+        rng = np.random.default_rng(7)
+        bits = list(dict.fromkeys("".join(map(str, rng.integers(0, 2, circ.num_qubits))) for _ in range(count)))
+        store = MemoryPlanStore()
+        opts = PlannerOptions(budget_seconds=args.budget)
+        common = dict(planner=opts, plan_store=store, memory_bytes=cap, rate=rate, workers=args.workers)
+        times, values, row = {}, {}, {"case": name, "qubits": circ.num_qubits, "bitstrings": len(bits)}
+        for engine in ("single", "batch", "statevector"):
+            try:
+                if engine != "statevector":                                   # nothing to plan for it
+                    amplitudes(circ, bits[:2], engine=engine, **common)      # plans (and warms) this engine
+                t = time.perf_counter()
+                run = amplitudes(circ, bits, engine=engine, **common)
+                times[engine] = time.perf_counter() - t
+                values[engine] = np.array([r.amplitude for r in run.results])
+            except MemoryLimitError as exc:
+                row[f"{engine}_refused"] = str(exc)[:120]
+        t = time.perf_counter()
+        auto = amplitudes(circ, bits, engine="auto", **common)
+        auto_s = time.perf_counter() - t
+        fastest = min(times, key=times.get)
+        ref = values[fastest]
+        row.update({f"{e}_s": round(s, 3) for e, s in times.items()})
+        row.update(auto_engine=auto.engine, auto_batch=auto.batch, auto_s=round(auto_s, 3), fastest=fastest,
+                   ratio_auto_over_fastest=round(auto_s / times[fastest], 3), reason=auto.reason,
+                   engines_agree=bool(all(np.max(np.abs(v - ref)) <= 1e-10 * np.max(np.abs(ref))
+                                          for v in values.values())))
+        rows.append(row)
+        print(json.dumps(row), flush=True)
+    ratios = [r["ratio_auto_over_fastest"] for r in rows]
+    print(json.dumps({"summary": True, "cases": len(rows), "max_ratio": max(ratios),
+                      "within_1_25": sum(r <= 1.25 for r in ratios), "goal": 1.25}))
+
+
+if __name__ == "__main__":
+    main()
