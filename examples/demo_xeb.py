@@ -11,9 +11,9 @@ import json
 
 import numpy as np
 
-from contraction.random_circuits import grid_architecture, random_instance
-from contraction.statevector import state_vector
-from contraction.xeb import estimate_xeb, fit_depth, sample_mixture
+from contraction.circuits.random_instances import grid_architecture, random_instance
+from contraction.execution.statevector import state_vector
+from contraction.analysis.xeb import estimate_xeb, fit_depth, sample_mixture
 
 
 def main():

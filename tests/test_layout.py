@@ -122,3 +122,17 @@ def test_every_package_lists_its_public_names():
                  if isinstance(t, ast.Name)]
         assert "__all__" in names, f"{init} has no __all__"
         assert ast.get_docstring(tree), f"{init} has no docstring"
+
+
+def test_example_scripts_import_what_exists():
+    """The examples are read by newcomers first: every name they import from the project exists."""
+    import importlib
+    import importlib.util
+
+    for script in sorted((ROOT.parent / "examples").glob("*.py")):
+        for node in ast.walk(ast.parse(script.read_text())):
+            if isinstance(node, ast.ImportFrom) and (node.module or "").split(".")[0] in ("contraction", "service"):
+                module = importlib.import_module(node.module)
+                for alias in node.names:
+                    assert hasattr(module, alias.name) or importlib.util.find_spec(f"{node.module}.{alias.name}"), \
+                        f"{script.name}:{node.lineno} imports {alias.name} from {node.module}, which has no such name"

@@ -12,7 +12,7 @@ layout never changes, so one contraction plan serves the whole path.
 With h_k = V diag(lambda) V^dagger, f(theta h_k) = V diag((1 + i theta lambda)/(1 - i theta lambda)) V^dagger,
 so every entry of the circuit is rational in theta with the denominator prod_{k,j}(1 - i theta lambda_kj);
 p(theta) = |<x|C(theta)|0>|^2 times prod_{k,j}(1 + theta^2 lambda_kj^2) is a real polynomial of degree at
-most 2 sum_k d_k (see :mod:`contraction.rational_fit`).
+most 2 sum_k d_k (see :mod:`contraction.analysis.rational_fit`).
 """
 
 from __future__ import annotations

@@ -1,6 +1,6 @@
 """Exact amplitudes <x|C|0...0> of a circuit for a list of bitstrings.
 
-The request is answered by the engine :mod:`contraction.engine_choice` picks (state vector,
+The request is answered by the engine :mod:`contraction.planning.engine_choice` picks (state vector,
 batched network contractions or one contraction per bitstring) or the one the caller forces.
 Repeated bitstrings are computed once; results come back in input order; ``on_results`` receives
 each chunk's amplitudes as soon as the chunk is finished (the service stores them right away) and

@@ -57,7 +57,7 @@ def _check_qubits(circuit: Circuit, qubits) -> tuple[int, ...]:
 
 def block_amplitudes(circuit: Circuit, qubits, fixed: str, **opts) -> BlockResult:
     """All 2^k amplitudes on ``qubits`` with the other bits as in ``fixed`` (an n-bit string whose
-    characters on ``qubits`` are ignored). ``opts`` as for :func:`contraction.amplitudes.amplitudes`."""
+    characters on ``qubits`` are ignored). ``opts`` as for :func:`contraction.execution.amplitudes.amplitudes`."""
     qs = _check_qubits(circuit, qubits)
     if len(fixed) != circuit.num_qubits:
         raise VerampError(f"the fixed bitstring has {len(fixed)} characters; the circuit has "

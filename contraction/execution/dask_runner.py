@@ -1,6 +1,6 @@
 """Contraction tasks on a Dask cluster the lab already runs.
 
-:class:`DaskRunner` has the same contract as the local runners (:mod:`contraction.parallel`): the
+:class:`DaskRunner` has the same contract as the local runners (:mod:`contraction.execution.slices`): the
 plan travels as JSON, each Dask worker rebuilds the tree once per plan and keeps it, tasks are
 slices of a contraction or whole batch chunks, every finished task is reported (progress) and the
 cancel check is polled between completions (pending tasks are then cancelled on the cluster).

@@ -1,7 +1,7 @@
 """Where contraction tasks run: in this process, in local worker processes, or on a cluster.
 
 A task is one contraction's arrays and a range of its slices; its result is one
-(mantissa, base-10 exponent) pair per slice (see :mod:`contraction.executor`). Every runner
+(mantissa, base-10 exponent) pair per slice (see :mod:`contraction.execution.executor`). Every runner
 receives the plan as JSON and rebuilds the tree once per worker, runs tasks as workers free up,
 reports each finished task, and stops handing out tasks when the cancel check says so.
 

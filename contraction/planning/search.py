@@ -2,7 +2,7 @@
 
 A :class:`Plan` is a JSON-serialisable record of a contraction order for one network structure:
 the SSA path, the sliced indices (in canonical numbering), cost figures and the options used.
-Finding a plan (:func:`find_plan`) is separate from running it (:mod:`contraction.executor`), and
+Finding a plan (:func:`find_plan`) is separate from running it (:mod:`contraction.execution.executor`), and
 cost queries on a plan are cheap: they read stored numbers.
 """
 
@@ -332,7 +332,7 @@ def _run_search(opt, inputs, output, sizes, deadline: float, pool, grace: float)
 def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOptions()) -> Plan:
     """Search a contraction tree for ``structure`` within ``options``' budget (all stages together).
 
-    Stages: structure-only simplification (:mod:`contraction.simplify`, its steps become the first
+    Stages: structure-only simplification (:mod:`contraction.network.simplify`, its steps become the first
     steps of the path); a randomised-greedy baseline; a hyper-optimized search over trees (greedy and,
     when installed, kahypar partitions) for 90 % of the budget, in which — when the baseline is within
     2^12 of the memory target — every trial is scored after slicing to the target, so the tree is
