@@ -74,6 +74,7 @@ class Fit:
     degree: int
     lam2: np.ndarray
     bits: int
+    lam: np.ndarray | None = None       # the eigenvalues themselves: squares taken exactly in arb
     coef: object = None                 # arb_mat (degree+1) x 1
     gram_inv_bt: object = None          # arb_mat (degree+1) x K: maps samples to coefficients
 
@@ -83,8 +84,12 @@ class Fit:
 
         den = arb(1)
         t2 = arb(theta) * arb(theta)
-        for l2 in self.lam2:
-            den *= 1 + t2 * arb(float(l2))
+        # lambda^2 from the eigenvalues is exact in arb; the double lam2 is rounded, which is harmless
+        # for double samples but not for samples carrying a hundred digits
+        squares = ([arb(float(v)) * arb(float(v)) for v in self.lam] if self.lam is not None
+                   else [arb(float(l2)) for l2 in self.lam2])
+        for l2 in squares:
+            den *= 1 + t2 * l2
         return arb_mat([[t / den for t in _chebyshev(theta, self.domain, self.degree)]])
 
     def weights_and_value(self, theta: float):
@@ -106,10 +111,10 @@ def _chebyshev(theta: float, domain: tuple[float, float], degree: int) -> list:
 
 
 def _fit(nodes: np.ndarray, samples: np.ndarray, degree: int, lam2: np.ndarray, bits: int,
-         domain: tuple[float, float]) -> Fit:
+         domain: tuple[float, float], lam: np.ndarray | None = None) -> Fit:
     from flint import arb_mat
 
-    f = Fit(nodes, domain, degree, lam2, bits)
+    f = Fit(nodes, domain, degree, lam2, bits, lam)
     b = arb_mat([[x for x in f.row(float(t)).entries()] for t in nodes])
     bt = b.transpose()
     try:
@@ -170,21 +175,26 @@ def _as_arb(value):
         return arb(float(value))
     import mpmath as mp
 
-    return arb(mp.nstr(value, mp.mp.dps + 5, strip_zeros=False))
+    # every digit the number carries (its mantissa's bits), not the global mpmath precision
+    digits = int(value._mpf_[3] * 0.30103) + 5      # value._mpf_: (sign, mantissa, exponent, bits)
+    return arb(mp.nstr(value, digits, strip_zeros=False))
 
 
 def recover(nodes: Sequence[float], samples: Sequence, lam2: Sequence[float], targets: Sequence[float], *,
             degree: int, gate_dims: int, errors: int = 0, noise: float | None = None,
-            max_relative_error: float = 0.1, sample_digits: int | None = None) -> PathRecovery:
+            max_relative_error: float = 0.1, sample_digits: int | None = None,
+            lam: Sequence[float] | None = None) -> PathRecovery:
     """Recover p at ``targets`` from samples ``p(nodes)`` of p = N / D, N of degree ``degree`` and
     D = prod(1 + theta^2 lam2). ``errors``: samples that may be corrupted (Berlekamp–Welch);
     ``noise``: relative noise of the samples (default: they are exact up to double rounding);
     ``sample_digits``: the samples are mpmath numbers computed with that many decimal digits (see
-    :func:`path_probabilities_mp`), used at their full precision and bounded accordingly."""
+    :func:`path_probabilities_mp`), used at their full precision and bounded accordingly; ``lam``:
+    the eigenvalues whose squares ``lam2`` are (squared exactly in the fit when given)."""
     x = np.asarray(nodes, dtype=float)
     exact_samples = list(samples)
     y = np.asarray([float(v) for v in exact_samples], dtype=float)
     lam2 = np.asarray(lam2, dtype=float)
+    lam = None if lam is None else np.asarray(lam, dtype=float)
     if x.shape != y.shape or x.ndim != 1:
         raise VerampError("nodes and samples must be two lists of the same length")
     if not (np.all(np.isfinite(x)) and np.all(np.isfinite(y)) and np.all(np.isfinite(lam2))):
@@ -210,15 +220,15 @@ def recover(nodes: Sequence[float], samples: Sequence, lam2: Sequence[float], ta
         with _precision(bits):
             try:
                 ys = [_as_arb(v) for v in exact_samples]
-                bad = _locate(x, ys, d, t, lam2, bits, domain) if t else []
+                bad = _locate(x, ys, d, t, lam2, bits, domain, lam) if t else []
                 keep = np.setdiff1d(np.arange(k), bad)
-                fit = _fit(x[keep], [ys[i] for i in keep], d, lam2, bits, domain)
+                fit = _fit(x[keep], [ys[i] for i in keep], d, lam2, bits, domain, lam)
                 corrupted, unseen = _check_residuals(fit, x, ys, delta, keep, t)
                 if corrupted != sorted(bad):
                     keep = np.setdiff1d(np.arange(k), corrupted)
                     if len(keep) < d + 1:
                         raise VerampError(f"more than {t} samples disagree with every degree-{d} numerator")
-                    fit = _fit(x[keep], [ys[i] for i in keep], d, lam2, bits, domain)
+                    fit = _fit(x[keep], [ys[i] for i in keep], d, lam2, bits, domain, lam)
                     corrupted2, unseen = _check_residuals(fit, x, ys, delta, keep, t)
                     if corrupted2 != corrupted:
                         raise VerampError("the corrupted samples cannot be told apart from the good ones; add "
@@ -287,11 +297,11 @@ def _check_residuals(fit: Fit, x, y, delta, keep, t: int) -> tuple[list[int], np
     return sorted(out), unseen
 
 
-def _locate(x, y, d: int, t: int, lam2, bits: int, domain) -> list[int]:
+def _locate(x, y, d: int, t: int, lam2, bits: int, domain, lam=None) -> list[int]:
     """Berlekamp–Welch: the nodes nearest to the real roots of the error locator E."""
     from flint import arb_mat
 
-    f = Fit(x, domain, d + t, lam2, bits)
+    f = Fit(x, domain, d + t, lam2, bits, lam)
     a, b = domain
     rows, rhs = [], []
     for ti, yi in zip(x, y):
@@ -316,9 +326,10 @@ def recover_path(path, nodes: Sequence[float], samples: Sequence, targets: Seque
                  errors: int = 0, noise: float | None = None, max_relative_error: float = 0.1,
                  sample_digits: int | None = None) -> PathRecovery:
     """Recover p at ``targets`` from p sampled at ``nodes`` along ``path`` (see :func:`recover`)."""
-    lam2 = np.concatenate([g.eigvals ** 2 for g in path.gates])
-    return recover(nodes, samples, lam2, targets, degree=2 * path.degree_bound, gate_dims=path.degree_bound,
-                   errors=errors, noise=noise, max_relative_error=max_relative_error, sample_digits=sample_digits)
+    lam = np.concatenate([g.eigvals for g in path.gates])
+    return recover(nodes, samples, lam ** 2, targets, degree=2 * path.degree_bound, gate_dims=path.degree_bound,
+                   errors=errors, noise=noise, max_relative_error=max_relative_error, sample_digits=sample_digits,
+                   lam=lam)
 
 
 def sample_digits_needed(path, thetas: Sequence[float]) -> int:
