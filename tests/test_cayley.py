@@ -220,7 +220,8 @@ def test_8_qubit_4_layer_path_recovers_with_extended_precision_samples():
     """8 qubits, 4 layers: numerator degree 256, the known denominator spans ~10^100 on [0, 1], so
     double-precision samples cannot determine p(0.25) (they are declined, never wrong). Samples
     computed with the digits that range requires (mpmath state vector) recover p(1) and p(0.25)
-    within 1e-8 of p computed directly at that precision, inside the reported bounds."""
+    within 1e-8 of p computed directly at that precision, inside the reported bounds, also with
+    three corrupted samples among them."""
     path = cayley_path(layered(8, 4, 7), seed=0)
     assert 2 * path.degree_bound == 256
     nodes = chebyshev_nodes(270)
@@ -229,5 +230,12 @@ def test_8_qubit_4_layer_path_recovers_with_extended_precision_samples():
     samples = path_probabilities_mp(path, "00000000", nodes, digits)
     exact = [float(v) for v in path_probabilities_mp(path, "00000000", targets, digits)]
     r = recover_path(path, nodes, samples, targets, sample_digits=digits)
+    for v, e, x in zip(r.recovered, r.error_bound, exact):
+        assert v is not None and abs(v - x) <= e and abs(v - x) <= 1e-8 * x
+    # Berlekamp–Welch at degree 256: three samples off by half their value are found and dropped
+    bad = [5, 130, 251]
+    corrupted = [v * 1.5 if i in bad else v for i, v in enumerate(samples)]
+    r = recover_path(path, nodes, corrupted, targets, sample_digits=digits, errors=3)
+    assert r.corrupted == bad
     for v, e, x in zip(r.recovered, r.error_bound, exact):
         assert v is not None and abs(v - x) <= e and abs(v - x) <= 1e-8 * x
