@@ -171,7 +171,7 @@ def test_estimate_fields_are_consistent(circuit, dtype, itemsize):
     assert est.peak_bytes == int(plan.peak_elements * itemsize)
     assert est.slices == plan.nslices and est.engine == "single"
     assert est.predicted_seconds > 0
-    sv = estimate(circuit, 10, dtype=dtype, engine="auto", rate=RATE)
+    sv = estimate(circuit, 10, dtype=dtype, engine="statevector", rate=RATE)
     assert sv.engine == "statevector" and sv.flops == 8 * sv.madds
     assert sv.peak_bytes == 3 * 2 ** 16 * itemsize
 
