@@ -60,8 +60,7 @@ def main() -> None:
                 t = time.perf_counter()
                 values[label] = contract_scalar(tree, tensor_arrays(s, circ, bits))
                 row[label]["contract_seconds"] = round(time.perf_counter() - t, 2)
-        row["ratio_madds_diagonal_over_full"] = round(10 ** (row["diagonal"]["log10_madds"]
-                                                             - row["full_tensors"]["log10_madds"]), 4)
+        row["ratio_madds_diagonal_over_full"] = float(f"{10 ** (row['diagonal']['log10_madds'] - row['full_tensors']['log10_madds']):.3g}")
         if len(values) == 2:
             a, b = values["diagonal"], values["full_tensors"]
             row["relative_difference"] = abs(a - b) / max(abs(b), 1e-300)
