@@ -147,11 +147,10 @@ def _label(o: Option) -> str:
     return f"batch{o.batch}" if o.engine == "batch" else o.engine
 
 
-def _planning_seconds(circuit: Circuit, store: PlanStore | None, planner: PlannerOptions, memory_bytes: float,
-                      dtype: str, open_qubits: tuple[int, ...]) -> float:
-    """Predicted seconds to plan the one-bitstring network: none with a stored plan, else from a quick
-    greedy pass (:func:`planning_seconds`), never simply the budget."""
-    s = build_structure(circuit, open_qubits=open_qubits)
+def _planning_seconds(s: NetworkStructure, store: PlanStore | None, planner: PlannerOptions, memory_bytes: float,
+                      dtype: str) -> float:
+    """Predicted seconds to plan the one-bitstring network ``s``: none with a stored plan within
+    ``memory_bytes``, else from a quick greedy pass (:func:`planning_seconds`), never simply the budget."""
     if store is not None and store.get(s.key, memory_bytes / np.dtype(dtype).itemsize) is not None:
         return 0.0
     return planning_seconds(s, planner)
@@ -200,10 +199,11 @@ def batch_candidates(count: int) -> list[int]:
 
 
 def network_option(circuit: Circuit, batch: int, dtype: str, rate: MachineRate, store: PlanStore | None,
-                   planner: PlannerOptions, memory_bytes: float, open_qubits: tuple[int, ...] = ()) -> Option:
+                   planner: PlannerOptions, memory_bytes: float, open_qubits: tuple[int, ...] = (),
+                   structure: NetworkStructure | None = None) -> Option:
     """One contraction of ``batch`` bitstrings (or groups, with ``open_qubits``), planned or read
-    from the store."""
-    s = build_structure(circuit, batch=batch if batch > 1 else 0, open_qubits=open_qubits)
+    from the store; ``structure``: that network when the caller has built it already."""
+    s = structure or build_structure(circuit, batch=batch if batch > 1 else 0, open_qubits=open_qubits)
     c = network_plan(s, store, planner, memory_bytes, dtype)
     return Option("batch" if batch > 1 else "single", network_seconds(c.plan, s, rate, dtype), c.plan.peak_bytes(dtype),
                   batch, c, c.from_store, c.plan.madds)
@@ -247,10 +247,13 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
     if engine == "auto" and sv_fits and n <= defaults.STATEVECTOR_AUTO_QUBITS and sv.seconds <= SV_OUTRIGHT_SECONDS:
         return Choice("statevector", f"{n} qubits <= {defaults.STATEVECTOR_AUTO_QUBITS} and ~{sv.seconds:.2g} s: one "
                                      "state vector answers every bitstring", sv, [sv], count=count)
+    # local processes contracting side by side each get their share of the cap
+    per_worker = memory_bytes / max(1, workers)
+    single = None                         # the one-bitstring network, built once for both uses below
     if engine == "auto" and sv_fits:
         options.append(sv)
-        planning = 0.0 if planner is None else _planning_seconds(circuit, store, planner, memory_bytes, dtype,
-                                                                  open_qubits)
+        single = build_structure(circuit, open_qubits=open_qubits)
+        planning = 0.0 if planner is None else _planning_seconds(single, store, planner, per_worker, dtype)
         if sv.seconds <= planning:
             return Choice("statevector", f"state vector predicted {sv.seconds:.3g} s, less than planning the "
                                          f"network engines would take (~{planning:.3g} s)", sv, [sv], count=count)
@@ -264,8 +267,8 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
         try:
             # ``workers`` local processes contract slices side by side, each with its own intermediates:
             # each gets its share of the cap, so the run as a whole stays within ``memory_bytes``
-            planned[b] = network_option(circuit, b, dtype, rate, store, per_size, memory_bytes / max(1, workers),
-                                        open_qubits)
+            planned[b] = network_option(circuit, b, dtype, rate, store, per_size, per_worker, open_qubits,
+                                        single if b == 1 else None)
         except MemoryLimitError as exc:
             errors.append(f"{b} per contraction: {exc}")
         except NoStoredPlan:
