@@ -89,6 +89,8 @@ class JobRow(Base):
     phase: Mapped[str | None] = mapped_column(String(16), nullable=True)
     predicted_seconds: Mapped[float | None] = mapped_column(Float, nullable=True)
     contracting_since: Mapped[float | None] = mapped_column(Float, nullable=True)
+    # while a plan is searched: the search's progress as JSON (trials, best multiply-adds, seconds, budget)
+    planning: Mapped[str | None] = mapped_column(Text, nullable=True)
 
     def bitstring_list(self) -> list[str]:
         """The job's bitstrings in input order."""
@@ -140,7 +142,7 @@ def _migrate(engine: Engine) -> None:
 
     cols = {c["name"] for c in inspect(engine).get_columns("jobs")}
     added = {"owner": "VARCHAR(64)", "phase": "VARCHAR(16)", "predicted_seconds": "FLOAT",
-             "contracting_since": "FLOAT"}
+             "contracting_since": "FLOAT", "planning": "TEXT"}
     for name, kind in added.items():
         if name not in cols:
             with engine.begin() as conn:

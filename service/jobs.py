@@ -19,7 +19,7 @@ from sqlalchemy import select, update
 
 from contraction.errors import Busy, Cancelled, VerampError
 from contraction.planning.rates import read_rate
-from contraction.planning.search import PlannerOptions
+from contraction.planning.search import PlannerOptions, SearchProgress, observe_searches
 
 from .db import JobRow, make_engine, session_factory
 from .schemas import JobOut
@@ -27,6 +27,10 @@ from .schemas import JobOut
 log = logging.getLogger("veramp.jobs")
 
 TERMINAL = ("succeeded", "failed", "cancelled")
+
+
+#: seconds between two writes of a running plan search's progress to the job's row
+SEARCH_REPORT_SECONDS = 2.0
 
 
 def _init_worker() -> None:
@@ -69,6 +73,20 @@ def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_s
             s2.execute(update(JobRow).where(JobRow.id == job_id).values(done=done))
             s2.commit()
 
+    last_search = [0.0]
+
+    def on_search(p: SearchProgress) -> None:
+        # every report of a search's start and end, at most one every SEARCH_REPORT_SECONDS in between
+        now = time.monotonic()
+        if p.trials and 0 < p.seconds < p.budget_seconds and now - last_search[0] < SEARCH_REPORT_SECONDS:
+            return
+        last_search[0] = now
+        doc = {"trials": p.trials, "best_madds": p.best_madds, "seconds": round(p.seconds, 2),
+               "budget_seconds": p.budget_seconds}
+        with sessions() as s2:
+            s2.execute(update(JobRow).where(JobRow.id == job_id).values(planning=json.dumps(doc)))
+            s2.commit()
+
     def on_choice(choice) -> None:
         with sessions() as s2:
             s2.execute(update(JobRow).where(JobRow.id == job_id).values(
@@ -86,10 +104,11 @@ def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_s
 
             runner = DaskRunner(dask_scheduler)
         try:
-            items, stats = compute(sessions, circuit, bits, dtype=dtype, engine=engine,
-                                   planner=PlannerOptions(budget_seconds=budget), memory_bytes=memory_bytes,
-                                   on_chunk=on_chunk, cancelled=cancelled, runner=runner,
-                                   rate=read_rate(calibration_path), on_choice=on_choice)
+            with observe_searches(on_search):
+                items, stats = compute(sessions, circuit, bits, dtype=dtype, engine=engine,
+                                       planner=PlannerOptions(budget_seconds=budget), memory_bytes=memory_bytes,
+                                       on_chunk=on_chunk, cancelled=cancelled, runner=runner,
+                                       rate=read_rate(calibration_path), on_choice=on_choice)
         finally:
             if runner is not None:
                 runner.close()
@@ -234,7 +253,8 @@ def job_out(job: JobRow) -> JobOut:
     eta = eta_seconds(job, time.time()) if job.status == "running" else None
     return JobOut(job_id=job.id, status=job.status, circuit_id=job.circuit_id, total=job.total,
                   done=job.done, progress=progress, eta_seconds=eta, error=job.error, phase=job.phase,
-                  provenance=json.loads(job.provenance) if job.provenance else None)
+                  provenance=json.loads(job.provenance) if job.provenance else None,
+                  planning=json.loads(job.planning) if job.planning else None)
 
 
 #: progress (share of the bitstrings done) from which the measured rate predicts better than the model

@@ -98,6 +98,15 @@ class AmplitudesOut(BaseModel):
 JobStatus = Literal["queued", "running", "succeeded", "failed", "cancelled"]
 
 
+class PlanningOut(BaseModel):
+    """Where a job's plan search stands."""
+
+    trials: int = Field(description="search trials finished")
+    best_madds: float | None = Field(None, description="complex multiply-adds of the best tree so far")
+    seconds: float = Field(description="seconds since this search started")
+    budget_seconds: float = Field(description="the search's budget (a share of the request's planning budget)")
+
+
 class JobOut(BaseModel):
     """A job's status, progress, ETA, error and provenance."""
 
@@ -112,6 +121,8 @@ class JobOut(BaseModel):
     provenance: dict[str, Any] | None = None
     phase: Literal["planning", "contracting"] | None = Field(
         None, description="while running: planning (engine choice, plan search; no ETA yet), then contracting")
+    planning: PlanningOut | None = Field(
+        None, description="the plan search's progress (the last search of the job; kept once it ended)")
 
 
 class ResultsPage(BaseModel):

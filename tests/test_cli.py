@@ -176,3 +176,17 @@ def test_plan_then_estimate_reads_the_stored_plan(tmp_path, capsys, monkeypatch)
     assert est["count"] == 4 and est["engine"] == "single" and est["plan_cached"] is True
     assert est["madds"] == pytest.approx(4 * planned["best_madds"], rel=1e-12)
     assert est["reason"] == "requested"
+
+
+def test_progress_line_shows_the_plan_search_then_the_tasks():
+    from service.cli.common import ProgressBar
+
+    class Job:
+        done, total, eta_seconds = 0, 8, None
+        phase = "planning"
+        planning = {"trials": 12, "best_madds": 3.2e12, "seconds": 41.0, "budget_seconds": 300.0}
+
+    line = ProgressBar.line(Job())
+    assert "12 trials" in line and "3.2e+12" in line and "41/300 s" in line
+    Job.phase, Job.done, Job.eta_seconds = "contracting", 2, 30.0
+    assert ProgressBar.line(Job()) == "[" + "#" * 7 + "." * 23 + "] 2/8 tasks, ETA 30s"

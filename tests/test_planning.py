@@ -203,3 +203,37 @@ def test_a_request_builds_the_contraction_tree_once(monkeypatch, fast_planner):
     assert run.plan_cached and len(built) == 1
     ref = state_vector(circuit)
     assert abs(run.results[0].amplitude - ref[int("101010101", 2)]) < 1e-12
+
+
+@pytest.mark.parametrize("parallel", [False, 2])
+def test_search_progress_is_reported_while_a_plan_is_searched(parallel):
+    # Reports come at the start, about once a second, and at the end; the last one carries the
+    # returned plan's cost; trial counts never go down (what a progress display needs: common practice).
+    from contraction.planning.search import observe_searches
+
+    s = build_structure(random_instance(grid_architecture(5, 6, 14), 1, gates="discrete"))
+    seen = []
+    with observe_searches(seen.append):
+        plan = find_plan(s, PlannerOptions(budget_seconds=3.0, parallel=parallel, max_elements=2 ** 22))
+    assert seen[0].trials == 0 and seen[0].best_madds is None and seen[0].seconds == 0.0
+    assert len(seen) >= 3                                   # start, at least one while searching, end
+    assert [p.trials for p in seen] == sorted(p.trials for p in seen)
+    assert seen[-1].trials == plan.options["trials"] >= 1
+    assert seen[-1].best_madds == plan.madds
+    assert all(p.budget_seconds == 3.0 for p in seen)
+    # outside the context nothing is reported
+    count = len(seen)
+    find_plan(s, PlannerOptions(budget_seconds=0.5, max_elements=2 ** 22))
+    assert len(seen) == count
+
+
+def test_a_failing_observer_does_not_stop_the_search():
+    from contraction.planning.search import observe_searches
+
+    def broken(_):
+        raise RuntimeError("display gone")
+
+    s = build_structure(random_instance(grid_architecture(4, 4, 8), 1, gates="discrete"))
+    with observe_searches(broken):
+        plan = find_plan(s, PlannerOptions(budget_seconds=0.5))
+    assert plan.madds > 0

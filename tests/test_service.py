@@ -88,6 +88,9 @@ def test_large_work_becomes_a_job(tmp_path):
         assert job["status"] == "succeeded", job
         assert job["progress"] == 1.0 and job["provenance"]["engine"] == "batch"
         assert job["provenance"]["reason"] == "requested" and job["provenance"]["batch"] == 4
+        # the plan search's last report stays with the job: its cost and its share of the 0.3 s budget
+        search = job["planning"]
+        assert search["trials"] >= 0 and search["best_madds"] > 0 and 0 < search["budget_seconds"] <= 0.3
         page = client.get(f"/v1/jobs/{job['job_id']}/results?offset=1&limit=2").json()
         assert [x["bitstring"] for x in page["results"]] == psi_bits[1:3]
         nd = [json.loads(line) for line in client.get(f"/v1/jobs/{job['job_id']}/results.ndjson").text.splitlines()]

@@ -94,3 +94,32 @@ def test_tiny_amplitudes_do_not_underflow(fast_planner):
         got = run.results[0].amplitude
         assert got != 0
         assert abs(got.real - expect) / expect < tol
+
+
+def test_complex64_plain_or_stripped_per_slice(fast_planner):
+    # A slice whose plain complex64 value is of ordinary size is kept as it is (exponent 0); one whose
+    # value lies below the plain floor is contracted again with exponent stripping. Reference:
+    # cos(θ/2)^n for the product state above (Nielsen & Chuang, eq. 4.5 for ry) and the closed form
+    # of the GHZ amplitude 1/√2 (sec. 1.3.6).
+    from contraction.execution.executor import COMPLEX64_PLAIN_FLOOR, contract_slice_scaled
+    from contraction.network.builder import build_structure, tensor_arrays
+    from contraction.planning.search import find_plan
+
+    for n, theta in ((12, 3.0), (40, 3.0)):
+        text = f'OPENQASM 2.0; include "qelib1.inc"; qreg q[{n}]; ry({theta}) q;' + \
+            "".join(f"cx q[{i}],q[{i + 1}]; cx q[{i}],q[{i + 1}];" for i in range(n - 1))
+        c = read_qasm(text)
+        s = build_structure(c)
+        tree = find_plan(s, fast_planner).tree(s)
+        m, e = contract_slice_scaled(tree, tensor_arrays(s, c, "0" * n, dtype="complex64"), 0)
+        expect = math.cos(theta / 2) ** n
+        assert abs(complex(m) * 10 ** e - expect) / expect < 1e-4
+        if expect > COMPLEX64_PLAIN_FLOOR:
+            assert e == 0.0                      # n = 12: 1.6e-14, kept from the plain contraction
+        else:
+            assert e < -20                       # n = 40: 9.7e-47, rescaled contraction
+    c = read_qasm(ghz_qasm(30))
+    s = build_structure(c)
+    tree = find_plan(s, fast_planner).tree(s)
+    m, e = contract_slice_scaled(tree, tensor_arrays(s, c, "1" * 30, dtype="complex64"), 0)
+    assert e == 0.0 and abs(complex(m) - 1 / math.sqrt(2)) < 1e-6

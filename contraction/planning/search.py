@@ -9,13 +9,17 @@ cost queries on a plan are cheap: they read stored numbers.
 from __future__ import annotations
 
 import concurrent.futures as cf
+import contextlib
+import contextvars
 import hashlib
 import json
+import logging
 import math
 import random
 import threading
 import time
 from dataclasses import asdict, dataclass, field
+from typing import Callable, Iterator
 
 import numpy as np
 
@@ -23,6 +27,8 @@ from contraction import defaults
 from contraction.errors import MemoryLimitError, PlanError
 from contraction.network.builder import NetworkStructure
 from contraction.network.simplify import simplify_structure
+
+log = logging.getLogger(__name__)
 
 PLAN_FORMAT = "veramp-plan-v1"
 
@@ -219,6 +225,53 @@ class PlannerOptions:
         return asdict(self)
 
 
+@dataclass(frozen=True)
+class SearchProgress:
+    """Where a running search stands: trials finished, the best tree's multiply-adds so far (scored
+    as the search scores them: after slicing to the target when it slices in its trials; None before
+    the first), seconds since the plan was asked for and the budget."""
+
+    trials: int
+    best_madds: float | None
+    seconds: float
+    budget_seconds: float
+
+
+SearchObserver = Callable[[SearchProgress], None]
+_observer: contextvars.ContextVar[SearchObserver | None] = contextvars.ContextVar("veramp_search_observer",
+                                                                                  default=None)
+#: seconds between two reports to a search observer
+OBSERVE_EVERY_SECONDS = 1.0
+
+
+@contextlib.contextmanager
+def observe_searches(observer: SearchObserver) -> Iterator[None]:
+    """Report the progress of every :func:`find_plan` run in this context (thread or task) to
+    ``observer``: once when a search starts, about every second while it runs, once when it ends."""
+    token = _observer.set(observer)
+    try:
+        yield
+    finally:
+        _observer.reset(token)
+
+
+def _notify(progress: SearchProgress) -> None:
+    observer = _observer.get()
+    if observer is None:
+        return
+    try:
+        observer(progress)
+    except Exception:                        # an observer's failure must not end the search
+        log.warning("search observer failed", exc_info=True)
+
+
+def _report(opt, t0: float, budget: float) -> None:
+    best = getattr(opt, "best", None) or {}
+    flops = best.get("flops") if isinstance(best, dict) else None
+    madds = float(flops) if isinstance(flops, (int, float)) and math.isfinite(flops) else None
+    _notify(SearchProgress(len(getattr(opt, "scores", ())), madds, time.perf_counter() - t0, budget))
+
+
 #: a greedy tree cheaper than this (complex multiply-adds; ~0.05 s on the machines this is built on) is
 #: not searched further: a search cannot save more time than the contraction takes (common practice)
 SEARCH_WORTHWHILE_MADDS = 1e8
@@ -265,7 +318,7 @@ FAR_ABOVE_TARGET = 6
 
 
 def _search(inputs, output, sizes, options: PlannerOptions, methods, deadline: float, target, width_log2: float,
-            grace: float = 1.0):
+            grace: float = 1.0, t0: float = 0.0):
     """The hyper-optimized search on (inputs, output, sizes) until ``deadline`` (see
     :func:`_run_search`). When the greedy baseline's width is within 2^12 of ``target``, every trial
     is scored after slicing to it, so the tree is chosen for the cap, not sliced after the fact."""
@@ -289,19 +342,22 @@ def _search(inputs, output, sizes, options: PlannerOptions, methods, deadline: f
             parallel=pool if pool is not None else options.parallel, reconf_opts=None, slicing_opts=None,
             slicing_reconf_opts=slicing_reconf, progbar=False, on_trial_error="ignore",
         )
-        return _run_search(opt, inputs, output, sizes, deadline, pool, grace)
+        return _run_search(opt, inputs, output, sizes, deadline, pool, grace, t0, options.budget_seconds)
     finally:
         if pool is not None:
             pool.shutdown(wait=False, cancel_futures=True)
 
 
-def _run_search(opt, inputs, output, sizes, deadline: float, pool, grace: float):
+def _run_search(opt, inputs, output, sizes, deadline: float, pool, grace: float, t0: float = 0.0,
+                budget: float = 0.0):
     """Run ``opt`` until ``deadline``; with a ``pool`` of worker processes, at most ``grace`` seconds
-    past it. Returns (best tree or None, trials done)."""
+    past it. Reports progress about every second to the observer of :func:`observe_searches`
+    (``t0``: when the plan was asked for, ``budget``: its seconds). Returns (best tree or None, trials
+    done)."""
     # one call for the whole budget: splitting it into rounds lost most trials in flight when a round
     # ended (12 trials in 90 s against 34 in 60 s on the 53-qubit network)
     opt.max_time = max(0.05, deadline - time.perf_counter())
-    if pool is None:
+    if pool is None and _observer.get() is None:
         try:
             best = opt.search(inputs, output, sizes)
         except (ValueError, KeyError, RuntimeError):      # no trial finished in time
@@ -319,8 +375,13 @@ def _run_search(opt, inputs, output, sizes, deadline: float, pool, grace: float)
 
     worker = threading.Thread(target=run, name="veramp-plan-search", daemon=True)
     worker.start()
-    worker.join(max(0.0, deadline - time.perf_counter()) + grace)
-    if worker.is_alive():
+    end = deadline + grace
+    while worker.is_alive() and (pool is None or time.perf_counter() < end):
+        left = end - time.perf_counter()
+        # past the end a serial search is waited for (it stops after its current trial)
+        worker.join(OBSERVE_EVERY_SECONDS if left <= 0 else min(OBSERVE_EVERY_SECONDS, left))
+        _report(opt, t0, budget)
+    if worker.is_alive() and pool is not None:
         for proc in list((getattr(pool, "_processes", None) or {}).values()):
             proc.terminate()
         worker.join(5.0)
@@ -352,6 +413,7 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
     state = random.getstate()
     random.seed(options.seed)
     trials = 0
+    _notify(SearchProgress(0, None, 0.0, options.budget_seconds))
     try:
         if structure.num_tensors <= 2:
             path = [(0, 1)] if structure.num_tensors == 2 else []
@@ -385,7 +447,7 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
                         and not _not_worth_searching(best, target)):
                     found, trials = _search(inputs, output, sizes, options, methods, search_deadline, target,
                                             math.log2(max(best.max_size(), 1)),
-                                            grace=0.5 * (deadline - search_deadline))
+                                            grace=0.5 * (deadline - search_deadline), t0=t0)
                     if found is not None and cost(found) < cost(best):
                         best = found
             if red is not None:
@@ -414,9 +476,15 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
             f"{options.max_elements:.3g} elements in {time.perf_counter() - t0:.3g} s (best cost found "
             f"10^{math.log10(max(tree.contraction_cost(), 1)):.2f} multiply-adds); raise the memory cap or the "
             f"planning budget")
+    plan = plan_from_tree(tree, structure, _record(options, methods, trials, reduced_tensors, t0))
+    _notify(SearchProgress(trials, plan.madds, time.perf_counter() - t0, options.budget_seconds))
+    return plan
+
+
+def _record(options: PlannerOptions, methods, trials: int, reduced_tensors: int, t0: float) -> dict:
     record = options.to_dict()
     record["methods"] = methods
     record["trials"] = trials
     record["tensors_after_simplify"] = reduced_tensors
     record["search_seconds"] = round(time.perf_counter() - t0, 3)
-    return plan_from_tree(tree, structure, record)
+    return record

@@ -89,13 +89,23 @@ class ProgressBar:
     def __call__(self, p) -> None:
         if not self.enabled:
             return
-        width = 30
-        filled = int(width * p.done / max(1, p.total))
-        eta = "?" if p.eta_seconds is None else f"{p.eta_seconds:.0f}s"
-        sys.stderr.write(f"\r[{'#' * filled}{'.' * (width - filled)}] {p.done}/{p.total} tasks, ETA {eta} ")
+        sys.stderr.write("\r" + self.line(p) + " ")
         if p.done >= p.total:
             sys.stderr.write("\n")
         sys.stderr.flush()
+
+    @staticmethod
+    def line(p) -> str:
+        """The bar's text: the plan search's trials and best cost while planning, else tasks done and ETA."""
+        search = getattr(p, "planning", None)
+        if getattr(p, "phase", None) == "planning" and search:
+            best = "-" if search.get("best_madds") is None else f"{search['best_madds']:.3g}"
+            return (f"planning: {search['trials']} trials, best {best} multiply-adds, "
+                    f"{search['seconds']:.0f}/{search['budget_seconds']:.0f} s")
+        width = 30
+        filled = int(width * p.done / max(1, p.total))
+        eta = "?" if p.eta_seconds is None else f"{p.eta_seconds:.0f}s"
+        return f"[{'#' * filled}{'.' * (width - filled)}] {p.done}/{p.total} tasks, ETA {eta}"
 
 
 def stored_rate(settings):

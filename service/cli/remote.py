@@ -43,6 +43,7 @@ def cmd_submit(args) -> int:
                 class _P:  # adapt job rows to the progress bar's fields
                     def __init__(self, j):
                         self.done, self.total, self.eta_seconds = j["done"], j["total"], j["eta_seconds"]
+                        self.phase, self.planning = j.get("phase"), j.get("planning")
 
                 job = cl.wait(reply["job_id"], on_progress=lambda j: bar(_P(j)))
                 if job["status"] != "succeeded":

@@ -1,0 +1,89 @@
+"""Contraction efficiency: complex multiply-adds per second of one slice against the dense
+matrix-multiply rate measured in the same run, on three networks of widths 2^20 to 2^27, in
+complex128 and complex64; the complex64 value's error against complex128; and what cotengra's
+exponent stripping (every intermediate rescaled) costs against the plain-first contraction.
+
+All on one BLAS thread (a contraction worker's setting), one slice per case, median of
+``--repeats`` runs (one run for slices over 10 s). Plans are searched in this run with the
+service's default objective ("combo": multiply-adds and memory writes).
+
+    python tests/benchmarks/bench_gemm_rate.py [--budget 30] [--repeats 3] [--cases 20,24,27]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import time
+
+import numpy as np
+from threadpoolctl import threadpool_limits
+
+from contraction.circuits.random_instances import grid_architecture, random_instance
+from contraction.execution.calibration import matmul_rate
+from contraction.execution.executor import contract_slice_scaled
+from contraction.execution.slices import keep_freed_memory
+from contraction.network.builder import build_structure, tensor_arrays
+from contraction.planning.search import PlannerOptions, find_plan
+
+#: width (log2 elements of the largest intermediate) -> (rows, cols, cycles, removed qubits)
+CASES = {20: (5, 6, 14, frozenset()), 24: (5, 6, 14, frozenset()), 27: (6, 9, 12, frozenset({53}))}
+
+
+def timed(fn, repeats: int):
+    times, value = [], None
+    for k in range(repeats):
+        t = time.perf_counter()
+        value = fn()
+        times.append(time.perf_counter() - t)
+        if times[-1] > 10:
+            break
+    return float(np.median(times)), value
+
+
+def case(width: int, budget: float, repeats: int) -> dict:
+    rows, cols, cycles, removed = CASES[width]
+    circ = random_instance(grid_architecture(rows, cols, cycles, removed=removed), 1, gates="discrete")
+    s = build_structure(circ)
+    plan = find_plan(s, PlannerOptions(budget_seconds=budget, max_elements=2 ** width, parallel=2))
+    tree = plan.tree(s)
+    per_slice = plan.madds / plan.nslices
+    bits = "0" * circ.num_qubits
+    row = {"qubits": circ.num_qubits, "cycles": cycles, "width_log2": plan.width, "slices": plan.nslices,
+           "madds_per_slice": per_slice, "writes_per_slice": plan.writes / plan.nslices}
+    values = {}
+    with threadpool_limits(1):
+        for dtype in ("complex128", "complex64"):
+            before = matmul_rate(dtype=np.dtype(dtype))
+            arrays = tensor_arrays(s, circ, bits, dtype=dtype)
+            seconds, (m, e) = timed(lambda: contract_slice_scaled(tree, arrays, 0), repeats)
+            values[dtype] = complex(m) * 10.0 ** e
+            # the ceiling: the better of two measurements around the slice (the first may overlap the
+            # planning processes' exit)
+            rate = max(before, matmul_rate(dtype=np.dtype(dtype)))
+            row[dtype] = {"seconds": round(seconds, 3), "matmul_madds_per_s": rate,
+                          "madds_per_s": per_slice / seconds, "fraction_of_matmul": round(per_slice / seconds / rate, 3)}
+            if dtype == "complex64":
+                stripped, _ = timed(lambda: tree.contract_slice(arrays, 0, strip_exponent=True), repeats)
+                row["complex64"]["seconds_all_intermediates_rescaled"] = round(stripped, 3)
+                row["complex64"]["rescaled_over_plain"] = round(stripped / seconds, 3)
+            del arrays
+    ref = values["complex128"]
+    row["complex64_relative_error"] = abs(values["complex64"] - ref) / abs(ref)
+    return row
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--budget", type=float, default=30.0, help="planning seconds per network")
+    ap.add_argument("--repeats", type=int, default=3)
+    ap.add_argument("--cases", default="20,24,27", help="widths (log2) to run, from 20, 24, 27")
+    args = ap.parse_args()
+    keep_freed_memory()
+    rows = [case(int(w), args.budget, args.repeats) for w in args.cases.split(",")]
+    print(json.dumps({"bench": "gemm_rate", "goal_fraction_of_matmul": 0.6, "cases": rows}), flush=True)
+
+
+if __name__ == "__main__":
+    main()
