@@ -126,6 +126,7 @@ def create_app(settings: Settings | None = None, database_checked: bool = False)
         app.state.veramp = AppState(settings, sessions, manager, metrics)
         app.state.veramp.start_calibration()
         resumed = manager.resume()
+        manager.start_sweeping()
         log.info(json.dumps({"event": "start", "version": __version__, "resumed_jobs": resumed,
                              "database": settings.sqlalchemy_url.split("://")[0]}))
         yield
@@ -165,3 +166,11 @@ def create_app(settings: Settings | None = None, database_checked: bool = False)
         return error_response(500, "internal_error", "internal error; the request was not completed")
 
     return app
+
+
+def app_from_environment() -> FastAPI:
+    """The application with settings from ``VERAMP_`` environment variables: what each of several
+    uvicorn worker processes builds (``veramp serve --server-workers N`` has checked the database)."""
+    if not logging.getLogger().handlers:        # a fresh worker process: log like `veramp serve` does
+        logging.basicConfig(level=logging.INFO, format="%(message)s")
+    return create_app(Settings(), database_checked=True)

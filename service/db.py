@@ -91,6 +91,9 @@ class JobRow(Base):
     contracting_since: Mapped[float | None] = mapped_column(Float, nullable=True)
     # while a plan is searched: the search's progress as JSON (trials, best multiply-adds, seconds, budget)
     planning: Mapped[str | None] = mapped_column(Text, nullable=True)
+    # while running: refreshed every few seconds by the process running it; a running job whose
+    # heartbeat has stopped was left by a process that ended (resumed by the next server start)
+    heartbeat: Mapped[float | None] = mapped_column(Float, nullable=True)
 
     def bitstring_list(self) -> list[str]:
         """The job's bitstrings in input order."""
@@ -142,7 +145,8 @@ def _migrate(engine: Engine) -> None:
 
     cols = {c["name"] for c in inspect(engine).get_columns("jobs")}
     added = {"owner": "VARCHAR(64)", "phase": "VARCHAR(16)", "predicted_seconds": "FLOAT",
-             "contracting_since": "FLOAT", "planning": "TEXT"}
+             "contracting_since": "FLOAT", "planning": "TEXT",
+             "heartbeat": "FLOAT"}
     for name, kind in added.items():
         if name not in cols:
             with engine.begin() as conn:

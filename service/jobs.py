@@ -15,7 +15,7 @@ import threading
 import time
 import uuid
 
-from sqlalchemy import select, update
+from sqlalchemy import func, or_, select, update
 
 from contraction.errors import Busy, Cancelled, VerampError
 from contraction.planning.rates import read_rate
@@ -29,6 +29,10 @@ log = logging.getLogger("veramp.jobs")
 TERMINAL = ("succeeded", "failed", "cancelled")
 
 
+#: seconds between two heartbeats of a running job; a running job silent for STALE_SECONDS was left by
+#: a process that ended and is queued again by the next server start (common practice for leases)
+HEARTBEAT_SECONDS = 5.0
+STALE_SECONDS = 30.0
 #: seconds between two writes of a running plan search's progress to the job's row
 SEARCH_REPORT_SECONDS = 2.0
 
@@ -47,17 +51,33 @@ def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_s
     from .compute import compute, load_circuit, versions
 
     sessions = session_factory(make_engine(db_url))
+    now = time.time()
     with sessions() as s:
-        job = s.get(JobRow, job_id)
-        if job is None or job.status in TERMINAL:
-            return {}
-        if job.cancel_requested:
-            job.status, job.finished = "cancelled", time.time()
-            s.commit()
-            return {}
-        job.status, job.started, job.phase = "running", job.started or time.time(), "planning"
+        s.execute(update(JobRow).where(JobRow.id == job_id, JobRow.status == "queued", JobRow.cancel_requested != 0)
+                  .values(status="cancelled", finished=now))
+        # the claim: one atomic update from queued to running; a job another process (another server
+        # worker) claimed first, or one that is no longer queued, is left alone
+        claimed = s.execute(update(JobRow).where(JobRow.id == job_id, JobRow.status == "queued")
+                            .values(status="running", started=func.coalesce(JobRow.started, now),
+                                    phase="planning", heartbeat=now)).rowcount
         s.commit()
+        if claimed != 1:
+            return {}
+        job = s.get(JobRow, job_id)
         bits, dtype, engine, chash = job.bitstring_list(), job.dtype, job.engine, job.circuit_id
+    beating = threading.Event()
+
+    def beat() -> None:
+        while not beating.wait(HEARTBEAT_SECONDS):
+            try:
+                with sessions() as s2:
+                    s2.execute(update(JobRow).where(JobRow.id == job_id, JobRow.status == "running")
+                               .values(heartbeat=time.time()))
+                    s2.commit()
+            except Exception:                     # a busy database: the next beat tries again
+                log.warning("heartbeat of job %s not written", job_id, exc_info=True)
+
+    threading.Thread(target=beat, name="veramp-job-heartbeat", daemon=True).start()
     last_check = [0.0, False]
 
     def cancelled() -> bool:
@@ -123,6 +143,7 @@ def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_s
     except Exception as exc:  # a bug: keep the service alive and say what happened
         log.exception("job %s crashed", job_id)
         status, error = "failed", f"internal error: {type(exc).__name__}"
+    beating.set()
     with sessions() as s:
         job = s.get(JobRow, job_id)
         job.status, job.error, job.finished, job.phase = status, error, time.time(), None
@@ -143,6 +164,7 @@ class JobManager:
         self._lock = threading.Lock()
         self._active: dict[str, cf.Future] = {}
         self._closing = False                   # set by shutdown(): dying workers are not failures then
+        self._stop = threading.Event()          # ends the sweeper
         self.pool = cf.ProcessPoolExecutor(max_workers=max(1, settings.workers),
                                            mp_context=mp.get_context("forkserver"), initializer=_init_worker)
 
@@ -199,15 +221,42 @@ class JobManager:
                 log.exception("job %s did not finish cleanly", job_id)
 
     def resume(self) -> int:
-        """Queue again every job left queued or running by a previous process."""
+        """Queue again every job left queued, or running without a recent heartbeat, by a process that
+        ended. Jobs other live server workers are running keep beating and are left to them; a queued
+        job several workers pick up runs once (the first claims it)."""
+        self._requeue_stale()
         with self.sessions() as s:
-            ids = list(s.scalars(select(JobRow.id).where(JobRow.status.in_(("queued", "running")))
-                                 .order_by(JobRow.created)))
-            s.execute(update(JobRow).where(JobRow.id.in_(ids)).values(status="queued"))
-            s.commit()
+            ids = list(s.scalars(select(JobRow.id).where(JobRow.status == "queued").order_by(JobRow.created)))
         for job_id in ids:
             self._submit(job_id)
         return len(ids)
+
+    def _requeue_stale(self) -> list[str]:
+        """Put running jobs whose heartbeat stopped back in the queue; the ids this process requeued
+        (each stale job is requeued by one process: the update checks it is still stale)."""
+        stale = time.time() - STALE_SECONDS
+        mine = []
+        with self.sessions() as s:
+            cond = (JobRow.status == "running", or_(JobRow.heartbeat.is_(None), JobRow.heartbeat < stale))
+            for job_id in list(s.scalars(select(JobRow.id).where(*cond))):
+                if s.execute(update(JobRow).where(JobRow.id == job_id, *cond).values(status="queued")).rowcount == 1:
+                    mine.append(job_id)
+            s.commit()
+        return mine
+
+    def start_sweeping(self, every: float = 5.0) -> None:
+        """Every ``every`` seconds, take over running jobs whose process ended (no heartbeat for
+        STALE_SECONDS): another server worker that died, or this server's previous life."""
+        def sweep() -> None:
+            while not self._stop.wait(every):
+                try:
+                    for job_id in self._requeue_stale():
+                        log.warning("job %s lost its process; queued again", job_id)
+                        self._submit(job_id)
+                except Exception:                    # a busy or vanished database: try again later
+                    log.warning("sweep for stale jobs failed", exc_info=True)
+
+        threading.Thread(target=sweep, name="veramp-job-sweeper", daemon=True).start()
 
     def cancel(self, job_id: str) -> None:
         """Mark the job for cancellation; a queued job never starts, a running one stops at its next task."""
@@ -225,14 +274,18 @@ class JobManager:
     def shutdown(self, grace: float = 3.0) -> None:
         """Stop taking work, put running jobs back in the queue (they resume at the next start, their
         finished chunks kept in the cache) and end every worker process within ``grace`` seconds."""
+        self._stop.set()
         with self._lock:
             self._closing = True
             pool = self.pool
             procs = list((getattr(pool, "_processes", None) or {}).values())
+            mine = list(self._active)
         pool.shutdown(wait=False, cancel_futures=True)
         try:
+            # only this process's jobs: other server workers' running jobs are theirs
             with self.sessions() as s:
-                s.execute(update(JobRow).where(JobRow.status == "running").values(status="queued"))
+                s.execute(update(JobRow).where(JobRow.id.in_(mine), JobRow.status == "running")
+                          .values(status="queued", heartbeat=None))
                 s.commit()
         except Exception:                       # the database may be gone already: resume() handles it
             log.exception("could not mark running jobs for resumption")

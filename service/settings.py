@@ -28,7 +28,10 @@ class Settings(BaseSettings):
     port: int = Field(8350, description="port of `veramp serve`")
     memory_bytes: int = Field(defaults.MEMORY_BYTES, description="peak memory cap of one run (local worker processes that "
                                                        "contract slices side by side share it)")
-    workers: int = Field(max(1, (os.cpu_count() or 1)), description="worker processes for contractions")
+    workers: int = Field(max(1, (os.cpu_count() or 1)), description="worker processes for contractions (per "
+                                                                      "server worker)")
+    server_workers: int = Field(1, ge=1, le=64, description="uvicorn processes answering requests in `veramp serve`; "
+                                                            "they share the database and claim jobs atomically")
     plan_budget_seconds: float = Field(defaults.PLAN_BUDGET_SECONDS, description="default planning budget")
     plan_processes: int = Field(max(1, (os.cpu_count() or 1)), description="processes for the plan search of the "
                                                                            "CLI (1: in the calling process)")

@@ -223,3 +223,98 @@ def test_job_eta_comes_from_the_prediction_until_progress_is_a_better_guide():
     assert eta_seconds(job, now) == pytest.approx(10.0)
     job.predicted_seconds, job.done = 5.0, 0                # the prediction ran out: never negative
     assert eta_seconds(job, now) == 0.0
+
+
+def _job_row(tmp_path, **values):
+    from service.db import JobRow, make_engine, session_factory
+
+    url = f"sqlite:///{tmp_path / 'jobs.sqlite'}"
+    sessions = session_factory(make_engine(url))
+    row = dict(id="j1", status="queued", circuit_id="missing", dtype="complex128", engine="auto",
+               bitstrings='["000"]', total=1, done=0, cancel_requested=0, created=time.time())
+    row.update(values)
+    with sessions() as s:
+        s.add(JobRow(**row))
+        s.commit()
+    return url, sessions
+
+
+def test_a_job_another_process_claimed_is_left_alone(tmp_path):
+    # Several server workers share one database: a job is claimed by one atomic update from queued
+    # to running, and a process that finds it claimed does nothing (common practice for job queues).
+    from service.db import JobRow
+    from service.jobs import run_job
+
+    url, sessions = _job_row(tmp_path, status="running", heartbeat=time.time(), started=1.0)
+    assert run_job("j1", url, 1e9, 0.1) == {}
+    with sessions() as s:
+        row = s.get(JobRow, "j1")
+        assert (row.status, row.error, row.started) == ("running", None, 1.0)
+    # a queued one is claimed and run (here it fails cleanly: its circuit is not stored)
+    with sessions() as s:
+        s.get(JobRow, "j1").status = "queued"
+        s.commit()
+    run_job("j1", url, 1e9, 0.1)
+    with sessions() as s:
+        row = s.get(JobRow, "j1")
+        assert row.status == "failed" and "no longer stored" in row.error
+
+
+def test_only_jobs_whose_heartbeat_stopped_are_taken_over(tmp_path):
+    from service.db import JobRow
+    from service.jobs import STALE_SECONDS, JobManager
+
+    url, sessions = _job_row(tmp_path, status="running", heartbeat=time.time())
+    with sessions() as s:
+        s.add(JobRow(id="j2", status="running", circuit_id="missing", dtype="complex128", engine="auto",
+                     bitstrings='["000"]', total=1, done=0, cancel_requested=0, created=time.time(),
+                     heartbeat=time.time() - 2 * STALE_SECONDS))
+        s.commit()
+    manager = JobManager.__new__(JobManager)            # only the database side is exercised here
+    manager.sessions = sessions
+    assert manager._requeue_stale() == ["j2"]
+    assert manager._requeue_stale() == []                # taken over once
+    with sessions() as s:
+        assert s.get(JobRow, "j1").status == "running"   # its process is alive: left to it
+        assert s.get(JobRow, "j2").status == "queued"
+
+
+@pytest.mark.slow
+def test_two_server_workers_share_the_queue(tmp_path):
+    # `veramp serve --server-workers 2`: requests land on either process; every job runs to the right
+    # values (numpy state vector) and each bitstring is computed once (one cached row each).
+    from contraction.circuits.qasm_writer import write_qasm3
+    from contraction.circuits.random_instances import grid_architecture, random_instance
+    from contraction.execution.statevector import state_vector
+
+    data = tmp_path / "data"
+    data.mkdir()
+    (data / "calibration.json").write_text(json.dumps(RATE.to_dict()))
+    port = free_port()
+    proc = start(data, port, "--server-workers", "2")
+    try:
+        circuits = [random_instance(grid_architecture(3, 4, 6), seed) for seed in range(4)]
+        bits = ["000000000000", "101010101010", "111111111111"]
+        base = f"http://127.0.0.1:{port}"
+        jobs = []
+        for c in circuits:
+            r = httpx.post(f"{base}/v1/amplitudes", timeout=60,
+                           json={"circuit": {"qasm": write_qasm3(c)}, "bitstrings": bits, "engine": "batch"})
+            assert r.status_code == 202, r.text
+            jobs.append(r.json()["job_id"])
+        for c, job in zip(circuits, jobs):
+            for _ in range(1200):
+                j = httpx.get(f"{base}/v1/jobs/{job}", timeout=30).json()
+                if j["status"] in ("succeeded", "failed", "cancelled"):
+                    break
+                time.sleep(0.1)
+            assert j["status"] == "succeeded", j
+            psi = state_vector(c)
+            rows = httpx.get(f"{base}/v1/jobs/{job}/results", timeout=30).json()["results"]
+            for row in rows:
+                assert abs(complex(*row["amplitude"]) - psi[int(row["bitstring"], 2)]) < 1e-10
+    finally:
+        os.killpg(proc.pid, signal.SIGTERM)
+        proc.wait(timeout=30)
+    with sqlite3.connect(data / "veramp.sqlite") as conn:
+        assert conn.execute("select count(*) from results").fetchone()[0] == len(circuits) * len(bits)

@@ -26,11 +26,11 @@ def free_port() -> int:
         return s.getsockname()[1]
 
 
-def start(data_dir, port):
+def start(data_dir, port, *extra: str):
     env = {**os.environ, "VERAMP_WORKERS": "1", "VERAMP_PLAN_BUDGET_SECONDS": "0.5",
            "VERAMP_SYNC_THRESHOLD_SECONDS": "0"}
     proc = subprocess.Popen([sys.executable, "-m", "service.cli", "serve", "--port", str(port),
-                             "--data-dir", str(data_dir)], env=env, start_new_session=True,
+                             "--data-dir", str(data_dir), *extra], env=env, start_new_session=True,
                             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     for _ in range(200):
         try:

@@ -123,11 +123,28 @@ def load_or_measure(path: str | os.PathLike | None, remeasure: bool = False) -> 
     stored = None if remeasure else read_rate(path)
     if stored is not None:
         return stored
-    rate = measure()
-    if path is not None:
-        p = Path(path)
-        p.parent.mkdir(parents=True, exist_ok=True)
-        tmp = p.with_suffix(".tmp")
+    if path is None:
+        return measure()
+    p = Path(path)
+    p.parent.mkdir(parents=True, exist_ok=True)
+    # several processes (server workers) starting together measure once: the first takes the lock,
+    # the others wait for it and read what it stored (two measurements at once would also skew both)
+    with open(p.with_suffix(".lock"), "a+") as lock:
+        _lock_exclusive(lock)
+        stored = None if remeasure else read_rate(path)
+        if stored is not None:
+            return stored
+        rate = measure()
+        tmp = p.with_suffix(f".{os.getpid()}.tmp")
         tmp.write_text(json.dumps(rate.to_dict()))
         os.replace(tmp, p)
     return rate
+
+
+def _lock_exclusive(f) -> None:
+    """An exclusive advisory lock on an open file, released when it is closed (no-op without fcntl)."""
+    try:
+        import fcntl
+    except ImportError:          # not a POSIX system: concurrent starts may measure twice
+        return
+    fcntl.flock(f.fileno(), fcntl.LOCK_EX)

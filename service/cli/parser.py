@@ -11,6 +11,17 @@ from contraction import defaults
 BITSTRING_HELP = "bitstrings are written qubit 0 first: '0110' means q0=0, q1=1, q2=1, q3=0"
 
 
+
+def _server_workers(text: str) -> int:
+    """1 to 64 (argparse type)."""
+    try:
+        n = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"not a whole number: {text!r}") from None
+    if not 1 <= n <= 64:
+        raise argparse.ArgumentTypeError("between 1 and 64")
+    return n
+
 def _circuit(p: argparse.ArgumentParser) -> None:
     p.add_argument("circuit", help="OpenQASM 2/3 or veramp JSON file ('-' for stdin)")
 
@@ -166,6 +177,9 @@ def build_parser() -> argparse.ArgumentParser:
     sv.add_argument("--data-dir", metavar="DIR", help="database, plans and calibration (VERAMP_DATA_DIR)")
     sv.add_argument("--require-tokens", action="store_true",
                     help="refuse to serve on a non-loopback address without bearer tokens")
+    sv.add_argument("--server-workers", type=_server_workers, default=None,
+                    help="processes answering requests (default VERAMP_SERVER_WORKERS or 1); each has its own "
+                         "pool of VERAMP_WORKERS contraction processes")
     sv.set_defaults(func="server:cmd_serve")
 
     hc = sub.add_parser("health", help="exit 0 when the local service answers its health route (container checks)")

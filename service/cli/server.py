@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import logging
+import os
 from pathlib import Path
 
 import uvicorn
@@ -37,6 +38,16 @@ def cmd_serve(args) -> int:
         logging.getLogger("veramp.api").warning(
             "WARNING: serving on %s without bearer tokens: anyone who can reach this address can submit work "
             "and read every job; set VERAMP_TOKENS (or use --require-tokens to refuse this)", host)
-    uvicorn.run(create_app(settings, database_checked=True), host=host, port=args.port or settings.port, log_level="warning",
+    port = args.port or settings.port
+    server_workers = args.server_workers or settings.server_workers
+    if server_workers > 1:
+        # each uvicorn worker process builds its app from the environment: pass the command line's
+        # overrides there; jobs are claimed atomically in the shared database
+        for name, value in overrides.items():
+            os.environ[f"VERAMP_{name.upper()}"] = str(value)
+        uvicorn.run("service.app:app_from_environment", factory=True, workers=server_workers, host=host, port=port,
+                    log_level="warning", timeout_graceful_shutdown=5)
+        return 0
+    uvicorn.run(create_app(settings, database_checked=True), host=host, port=port, log_level="warning",
                 timeout_graceful_shutdown=5)
     return 0
