@@ -211,10 +211,10 @@ def test_search_progress_is_reported_while_a_plan_is_searched(parallel):
     # returned plan's cost; trial counts never go down (what a progress display needs: common practice).
     from contraction.planning.search import observe_searches
 
-    s = build_structure(random_instance(grid_architecture(5, 6, 14), 1, gates="discrete"))
+    s = build_structure(random_instance(grid_architecture(4, 5, 12), 1, gates="discrete"))
     seen = []
     with observe_searches(seen.append):
-        plan = find_plan(s, PlannerOptions(budget_seconds=3.0, parallel=parallel, max_elements=2 ** 22))
+        plan = find_plan(s, PlannerOptions(budget_seconds=3.0, parallel=parallel))
     assert seen[0].trials == 0 and seen[0].best_madds is None and seen[0].seconds == 0.0
     assert len(seen) >= 3                                   # start, at least one while searching, end
     assert [p.trials for p in seen] == sorted(p.trials for p in seen)

@@ -110,7 +110,7 @@ def amplitudes(circuit: Circuit, bitstrings: Iterable[str], *, dtype: str = "com
             progress(Progress(1, 1, time.perf_counter() - t0))
     else:
         _run_network(circuit, choice.chosen, groups, open_qubits, dt, runner or make_runner(workers),
-                     emit, progress, cancelled)
+                     emit, progress, cancelled, memory_bytes / max(1, local))
     o = choice.chosen
     return AmplitudeRun([Amplitude(b, found[b]) for b in bits], choice.engine, choice.reason, dtype,
                         time.perf_counter() - t0, o.plan, o.plan_cached, o.batch, max(1, o.chunks), o.madds,
@@ -130,10 +130,16 @@ def _groups(unique: list[str], open_qubits: tuple[int, ...]) -> dict[str, list[s
     return out
 
 
+#: the memory left above a plan's peak is divided by this before intermediates are kept in it
+REUSE_SHARE_OF_HEADROOM = 2.0
+
+
 def _run_network(circuit: Circuit, option: Option, groups: dict[str, list[str]], open_qubits: tuple[int, ...],
                  dt, runner: Runner, emit, progress: ProgressCallback | None,
-                 cancelled: CancelCheck | None) -> None:
-    """Run the chunks of ``option.schedule`` (grouped by batch size, one plan each)."""
+                 cancelled: CancelCheck | None, worker_bytes: float = 0.0) -> None:
+    """Run the chunks of ``option.schedule`` (grouped by batch size, one plan each). ``worker_bytes``:
+    each worker's share of the memory cap; half of what it leaves above a plan's peak keeps
+    intermediates between slices (:mod:`contraction.execution.reuse`)."""
     phase = np.exp(1j * circuit.global_phase)
     keys = list(groups)
     chunks: dict[int, list[tuple[int, list[str]]]] = {}     # batch size -> [(chunk number, group keys)]
@@ -147,6 +153,8 @@ def _run_network(circuit: Circuit, option: Option, groups: dict[str, list[str]],
     for b, items in chunks.items():
         sub = option.parts[b]
         pieces = split_slices(sub.plan.nslices, 4 * runner.workers if sub.plan.nslices > 1 else 1)
+        # half the headroom: the peak is the plan's estimate, the copies a step makes come on top
+        reuse = max(0.0, worker_bytes / np.dtype(dt).itemsize - sub.plan.peak_elements) / REUSE_SHARE_OF_HEADROOM
         tasks, owner = [], []
         first = None                      # gate tensors are computed once per contraction size, then shared
         for number, part in items:
@@ -155,7 +163,7 @@ def _run_network(circuit: Circuit, option: Option, groups: dict[str, list[str]],
             arrays = tensor_arrays(s, circuit, padded if s.batch else padded[0], dt, reuse=first)
             first = first or arrays
             for piece in pieces:
-                tasks.append(Task(arrays, piece))
+                tasks.append(Task(arrays, piece, reuse))
                 owner.append(number)
         plans.append((sub, items, tasks, owner, len(pieces)))
         total_tasks += len(tasks)

@@ -20,12 +20,12 @@ from contraction.execution.slices import SliceResults, Task, TaskDone, keep_free
 from contraction.planning.engine_choice import Contraction
 
 
-def _task_on_worker(tree, arrays: list, slices: list[int]) -> SliceResults:
+def _task_on_worker(tree, arrays: list, slices: list[int], reuse_elements: float = 0.0) -> SliceResults:
     from threadpoolctl import threadpool_limits
 
     keep_freed_memory()
     with threadpool_limits(1):
-        return run_task(tree, Task(arrays, slices))
+        return run_task(tree, Task(arrays, slices, reuse_elements))
 
 
 class DaskRunner:
@@ -67,7 +67,10 @@ class DaskRunner:
             key = id(task.arrays)
             if key not in shared:
                 [shared[key]] = self.client.scatter([task.arrays], broadcast=True, hash=False)
-            return self.client.submit(_task_on_worker, blob, shared[key], task.slices, pure=False)
+            reuse = task.reuse_elements
+            if self.memory_limit is not None:       # within what the smallest worker allows above the peak
+                reuse = min(reuse, max(0.0, self.memory_limit / task.arrays[0].dtype.itemsize - plan.peak_elements) / 2)
+            return self.client.submit(_task_on_worker, blob, shared[key], task.slices, reuse, pure=False)
 
         def wait(fs, timeout, return_when):
             try:

@@ -21,6 +21,7 @@ from typing import Callable, Sequence
 import numpy as np
 
 from contraction.errors import Cancelled
+from contraction.execution.reuse import SliceContractor
 
 
 @dataclass(frozen=True)
@@ -64,15 +65,17 @@ def combine_scaled(parts: Sequence[tuple]) -> np.ndarray:
 COMPLEX64_PLAIN_FLOOR = 1e-20
 
 
-def contract_slice_scaled(tree, arrays, i: int) -> tuple[np.ndarray, float]:
+def contract_slice_scaled(tree, arrays, i: int, contractor: SliceContractor | None = None) -> tuple[np.ndarray, float]:
     """One slice of a contraction as (mantissa, base-10 exponent); the mantissa has the shape of
-    the output (0-d for an amplitude)."""
-    value = np.asarray(tree.contract_slice(arrays, i))
+    the output (0-d for an amplitude). ``contractor``: one made for these arrays (it keeps
+    intermediates between the slices of a run); slice numbers are then its own."""
+    contractor = contractor or SliceContractor(tree, arrays)
+    value = contractor.contract(i)
     floor = COMPLEX64_PLAIN_FLOOR if value.dtype == np.complex64 else 0.0
     magnitude = np.abs(value)
     if np.all(np.isfinite(magnitude)) and np.all(magnitude > floor):
         return value, 0.0
-    m, e = tree.contract_slice(arrays, i, strip_exponent=True, check_zero=True)
+    m, e = tree.contract_slice(arrays, contractor.tree_slice(i), strip_exponent=True, check_zero=True)
     e = float(np.asarray(e).reshape(()))
     m = np.asarray(m)
     if not math.isfinite(e):
@@ -94,10 +97,11 @@ def contract_array(tree, arrays: Sequence[np.ndarray], slices: Sequence[int] | N
     todo = list(range(tree.nslices)) if slices is None else list(slices)
     parts = []
     t0 = time.perf_counter()
+    contractor = SliceContractor(tree, arrays)
     for n, i in enumerate(todo, 1):
         if cancelled is not None and cancelled():
             raise Cancelled(f"cancelled after {n - 1} of {len(todo)} slices")
-        parts.append(contract_slice_scaled(tree, arrays, i))
+        parts.append(contract_slice_scaled(tree, arrays, i, contractor))
         if progress is not None:
             progress(Progress(n, len(todo), time.perf_counter() - t0))
     return combine_scaled(parts)

@@ -20,6 +20,7 @@ import numpy as np
 
 from contraction.errors import Cancelled
 from contraction.execution.executor import CancelCheck, contract_slice_scaled, sum_scaled
+from contraction.execution.reuse import SliceContractor, reuse_plan_for
 from contraction.planning.engine_choice import Contraction
 
 SliceResults = list[tuple[np.ndarray, float]]
@@ -31,6 +32,7 @@ class Task:
 
     arrays: list[np.ndarray]
     slices: list[int]
+    reuse_elements: float = 0.0     # memory (elements) for intermediates kept between its slices
 
 
 TaskDone = Callable[[int, SliceResults], None]
@@ -50,7 +52,8 @@ class Runner(Protocol):
 def run_task(tree, task: Task) -> SliceResults:
     """Contract the task's slices with ``tree`` and sum them where they were computed: one
     (mantissa, log10 scale) pair per task, so only one output travels back per task."""
-    return [sum_scaled([contract_slice_scaled(tree, task.arrays, i) for i in task.slices])]
+    contractor = SliceContractor(tree, task.arrays, reuse_plan_for(tree, task.reuse_elements))
+    return [sum_scaled([contract_slice_scaled(tree, task.arrays, i, contractor) for i in task.slices])]
 
 
 class InlineRunner:
