@@ -1,7 +1,8 @@
 """Contraction efficiency: complex multiply-adds per second of one slice against the dense
 matrix-multiply rate measured in the same run, on three networks of widths 2^20 to 2^27, in
-complex128 and complex64; the complex64 value's error against complex128; and what cotengra's
-exponent stripping (every intermediate rescaled) costs against the plain-first contraction.
+complex128 and complex64; the complex64 value's error against complex128; what cotengra's
+exponent stripping (every intermediate rescaled) costs against the plain-first contraction; and a
+run of consecutive slices keeping intermediates between them (complex64).
 
 All on one BLAS thread (a contraction worker's setting), one slice per case, median of
 ``--repeats`` runs (one run for slices over 10 s). Plans are searched in this run with the
@@ -14,7 +15,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
 import time
 
 import numpy as np
@@ -23,6 +23,7 @@ from threadpoolctl import threadpool_limits
 from contraction.circuits.random_instances import grid_architecture, random_instance
 from contraction.execution.calibration import matmul_rate
 from contraction.execution.executor import contract_slice_scaled
+from contraction.execution.reuse import SliceContractor, reuse_plan
 from contraction.execution.slices import keep_freed_memory
 from contraction.network.builder import build_structure, tensor_arrays
 from contraction.planning.search import PlannerOptions, find_plan
@@ -42,7 +43,7 @@ def timed(fn, repeats: int):
     return float(np.median(times)), value
 
 
-def case(width: int, budget: float, repeats: int) -> dict:
+def case(width: int, budget: float, repeats: int, run_slices: int) -> dict:
     rows, cols, cycles, removed = CASES[width]
     circ = random_instance(grid_architecture(rows, cols, cycles, removed=removed), 1, gates="discrete")
     s = build_structure(circ)
@@ -68,7 +69,21 @@ def case(width: int, budget: float, repeats: int) -> dict:
                 stripped, _ = timed(lambda: tree.contract_slice(arrays, 0, strip_exponent=True), repeats)
                 row["complex64"]["seconds_all_intermediates_rescaled"] = round(stripped, 3)
                 row["complex64"]["rescaled_over_plain"] = round(stripped / seconds, 3)
-            del arrays
+                # a run of consecutive slices keeping intermediates in 2^width extra elements (what a
+                # worker whose share of the cap is four times the target leaves: see amplitudes)
+                k = min(plan.nslices, run_slices)
+                reuse = reuse_plan(tree, 2.0 ** width)
+                sc = SliceContractor(tree, arrays, reuse)
+                t = time.perf_counter()
+                for i in range(k):
+                    contract_slice_scaled(tree, arrays, i, sc)
+                run_s = time.perf_counter() - t
+                row["complex64"]["run_with_reuse"] = {
+                    "slices": k, "seconds_per_slice": round(run_s / k, 3),
+                    "speedup_over_one_slice": round(seconds / (run_s / k), 3),
+                    "predicted_work_share_all_slices": round(reuse.work_share, 3),
+                    "madds_run_share": round(sc.madds_done / (k * per_slice), 3),
+                    "plan_madds_per_s": k * per_slice / run_s}
     ref = values["complex128"]
     row["complex64_relative_error"] = abs(values["complex64"] - ref) / abs(ref)
     return row
@@ -78,10 +93,11 @@ def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--budget", type=float, default=30.0, help="planning seconds per network")
     ap.add_argument("--repeats", type=int, default=3)
+    ap.add_argument("--run-slices", type=int, default=8, help="consecutive slices run with reuse (complex64)")
     ap.add_argument("--cases", default="20,24,27", help="widths (log2) to run, from 20, 24, 27")
     args = ap.parse_args()
     keep_freed_memory()
-    rows = [case(int(w), args.budget, args.repeats) for w in args.cases.split(",")]
+    rows = [case(int(w), args.budget, args.repeats, args.run_slices) for w in args.cases.split(",")]
     print(json.dumps({"bench": "gemm_rate", "goal_fraction_of_matmul": 0.6, "cases": rows}), flush=True)
 
 
