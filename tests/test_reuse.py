@@ -12,10 +12,11 @@ import pytest
 from contraction.circuits.random_instances import grid_architecture, random_instance
 from contraction.circuits.textbook import qft
 from contraction.execution.executor import contract_array
-from contraction.execution.reuse import SliceContractor, reuse_plan
+from contraction.execution.reuse import SliceContractor
 from contraction.execution.statevector import state_vector
 from contraction.network.builder import build_structure, tensor_arrays
 from contraction.planning.search import PlannerOptions, find_plan
+from contraction.planning.slice_reuse import reuse_plan
 
 from .conftest import einsum_state, random_bitstrings
 

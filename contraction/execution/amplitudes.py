@@ -29,6 +29,7 @@ from contraction.network.builder import resolve_dtype, tensor_arrays
 from contraction.planning.engine_choice import Choice, Option, choose
 from contraction.planning.rates import MachineRate
 from contraction.planning.search import Plan, PlannerOptions
+from contraction.planning.slice_reuse import reuse_budget
 from contraction.planning.store import PlanStore
 
 log = logging.getLogger(__name__)
@@ -130,16 +131,12 @@ def _groups(unique: list[str], open_qubits: tuple[int, ...]) -> dict[str, list[s
     return out
 
 
-#: the memory left above a plan's peak is divided by this before intermediates are kept in it
-REUSE_SHARE_OF_HEADROOM = 2.0
-
-
 def _run_network(circuit: Circuit, option: Option, groups: dict[str, list[str]], open_qubits: tuple[int, ...],
                  dt, runner: Runner, emit, progress: ProgressCallback | None,
                  cancelled: CancelCheck | None, worker_bytes: float = 0.0) -> None:
     """Run the chunks of ``option.schedule`` (grouped by batch size, one plan each). ``worker_bytes``:
-    each worker's share of the memory cap; half of what it leaves above a plan's peak keeps
-    intermediates between slices (:mod:`contraction.execution.reuse`)."""
+    each worker's share of the memory cap; a share of what it leaves above a plan's peak keeps
+    intermediates between slices (:mod:`contraction.planning.slice_reuse`)."""
     phase = np.exp(1j * circuit.global_phase)
     keys = list(groups)
     chunks: dict[int, list[tuple[int, list[str]]]] = {}     # batch size -> [(chunk number, group keys)]
@@ -153,8 +150,7 @@ def _run_network(circuit: Circuit, option: Option, groups: dict[str, list[str]],
     for b, items in chunks.items():
         sub = option.parts[b]
         pieces = split_slices(sub.plan.nslices, 4 * runner.workers if sub.plan.nslices > 1 else 1)
-        # half the headroom: the peak is the plan's estimate, the copies a step makes come on top
-        reuse = max(0.0, worker_bytes / np.dtype(dt).itemsize - sub.plan.peak_elements) / REUSE_SHARE_OF_HEADROOM
+        reuse = reuse_budget(worker_bytes / np.dtype(dt).itemsize, sub.plan.peak_elements)
         tasks, owner = [], []
         first = None                      # gate tensors are computed once per contraction size, then shared
         for number, part in items:

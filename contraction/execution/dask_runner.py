@@ -18,6 +18,7 @@ from contraction.errors import MemoryLimitError
 from contraction.execution.executor import CancelCheck
 from contraction.execution.slices import SliceResults, Task, TaskDone, keep_freed_memory, run_task, wait_all
 from contraction.planning.engine_choice import Contraction
+from contraction.planning.slice_reuse import reuse_budget
 
 
 def _task_on_worker(tree, arrays: list, slices: list[int], reuse_elements: float = 0.0) -> SliceResults:
@@ -69,7 +70,7 @@ class DaskRunner:
                 [shared[key]] = self.client.scatter([task.arrays], broadcast=True, hash=False)
             reuse = task.reuse_elements
             if self.memory_limit is not None:       # within what the smallest worker allows above the peak
-                reuse = min(reuse, max(0.0, self.memory_limit / task.arrays[0].dtype.itemsize - plan.peak_elements) / 2)
+                reuse = min(reuse, reuse_budget(self.memory_limit / task.arrays[0].dtype.itemsize, plan.peak_elements))
             return self.client.submit(_task_on_worker, blob, shared[key], task.slices, reuse, pure=False)
 
         def wait(fs, timeout, return_when):

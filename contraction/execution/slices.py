@@ -20,8 +20,9 @@ import numpy as np
 
 from contraction.errors import Cancelled
 from contraction.execution.executor import CancelCheck, contract_slice_scaled, sum_scaled
-from contraction.execution.reuse import SliceContractor, reuse_plan_for
+from contraction.execution.reuse import SliceContractor
 from contraction.planning.engine_choice import Contraction
+from contraction.planning.slice_reuse import reuse_plan_for
 
 SliceResults = list[tuple[np.ndarray, float]]
 

@@ -27,6 +27,7 @@ from contraction.errors import MemoryLimitError, NoStoredPlan, PlanError, Veramp
 from contraction.network.builder import NetworkStructure, build_structure
 from contraction.planning.rates import NOMINAL_RATE, MachineRate
 from contraction.planning.search import Plan, PlannerOptions, find_plan, planning_seconds
+from contraction.planning.slice_reuse import reuse_budget, reuse_plan_for
 from contraction.planning.store import PlanStore
 
 log = logging.getLogger(__name__)
@@ -205,8 +206,10 @@ def network_option(circuit: Circuit, batch: int, dtype: str, rate: MachineRate, 
     from the store; ``structure``: that network when the caller has built it already."""
     s = structure or build_structure(circuit, batch=batch if batch > 1 else 0, open_qubits=open_qubits)
     c = network_plan(s, store, planner, memory_bytes, dtype)
-    return Option("batch" if batch > 1 else "single", network_seconds(c.plan, s, rate, dtype), c.plan.peak_bytes(dtype),
-                  batch, c, c.from_store, c.plan.madds)
+    # slices keep intermediates between them within the worker's cap: only that share of the work runs
+    share = reuse_plan_for(c.tree, reuse_budget(memory_bytes / np.dtype(dtype).itemsize, c.plan.peak_elements)).work_share
+    return Option("batch" if batch > 1 else "single", share * network_seconds(c.plan, s, rate, dtype),
+                  c.plan.peak_bytes(dtype), batch, c, c.from_store, c.plan.madds)
 
 
 def scheduled(engine: str, count: int, parts: dict[int, Option]) -> Option:

@@ -23,10 +23,11 @@ from threadpoolctl import threadpool_limits
 from contraction.circuits.random_instances import grid_architecture, random_instance
 from contraction.execution.calibration import matmul_rate
 from contraction.execution.executor import contract_slice_scaled
-from contraction.execution.reuse import SliceContractor, reuse_plan
+from contraction.execution.reuse import SliceContractor
 from contraction.execution.slices import keep_freed_memory
 from contraction.network.builder import build_structure, tensor_arrays
 from contraction.planning.search import PlannerOptions, find_plan
+from contraction.planning.slice_reuse import reuse_plan
 
 #: width (log2 elements of the largest intermediate) -> (rows, cols, cycles, removed qubits)
 CASES = {20: (5, 6, 14, frozenset()), 24: (5, 6, 14, frozenset()), 27: (6, 9, 12, frozenset({53}))}
