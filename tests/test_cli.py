@@ -176,6 +176,26 @@ def test_plan_then_estimate_reads_the_stored_plan(tmp_path, capsys, monkeypatch)
     assert est["count"] == 4 and est["engine"] == "single" and est["plan_cached"] is True
     assert est["madds"] == pytest.approx(4 * planned["best_madds"], rel=1e-12)
     assert est["reason"] == "requested"
+    assert "measuring" not in capsys.readouterr().err      # the stored calibration was used
+
+
+def test_estimate_says_when_it_measures_the_machine_first(tmp_path, capsys, monkeypatch):
+    from contraction.planning.rates import MachineRate
+
+    import service.cli.compute as compute_cli
+
+    data = tmp_path / "data"
+    data.mkdir()
+    monkeypatch.setenv("VERAMP_DATA_DIR", str(data))
+    calls = []
+    monkeypatch.setattr(compute_cli, "load_or_measure",
+                        lambda path: calls.append(path) or MachineRate(1e10, 0.5, 1e-8, 2e-5, 2e-8, 1, 0.0))
+    circ = str(tmp_path / "g.qasm")
+    assert main(["generate", "--grid", "3x3", "--cycles", "4", "--seed", "2", "--output", circ]) == 0
+    capsys.readouterr()
+    assert main(["estimate", circ, "--format", "json"]) == 0
+    err = capsys.readouterr().err
+    assert calls and "measuring this machine" in err and str(data) in err
 
 
 def test_progress_line_shows_the_plan_search_then_the_tasks():

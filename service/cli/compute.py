@@ -123,6 +123,9 @@ def cmd_estimate(args) -> int:
     """``veramp estimate``: the predicted cost of ``--count`` amplitudes (measures the machine first if it never was)."""
     settings = current_settings()
     circuit = load_circuit_file(args.circuit)
+    if stored_rate(settings) is None:
+        print(f"veramp: measuring this machine's rates once (about half a minute); stored in "
+              f"{settings.calibration_path}", file=sys.stderr)
     rate = load_or_measure(settings.calibration_path)
     budget = args.budget if args.budget is not None else settings.plan_budget_seconds
     est = estimate(circuit, args.count, dtype=args.dtype, engine=args.engine, rate=rate,
