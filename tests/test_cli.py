@@ -180,9 +180,8 @@ def test_plan_then_estimate_reads_the_stored_plan(tmp_path, capsys, monkeypatch)
 
 
 def test_estimate_says_when_it_measures_the_machine_first(tmp_path, capsys, monkeypatch):
-    from contraction.planning.rates import MachineRate
-
     import service.cli.compute as compute_cli
+    from contraction.planning.rates import MachineRate
 
     data = tmp_path / "data"
     data.mkdir()
