@@ -10,7 +10,7 @@ rearranged; the result keeps the larger operand's axis order and puts the smalle
 after (or before) it, ordered so that the axes its own parent contracts come last (or first).
 
 The program of steps is worked out once per tree (:func:`compile_program`, plain data: axis
-permutations and shapes) and run for every slice (:func:`run_program`).
+permutations and shapes) and run for every slice by :class:`contraction.execution.reuse.SliceContractor`.
 """
 
 from __future__ import annotations
@@ -164,28 +164,14 @@ def compile_program(tree) -> Program:
     return Program(n, tuple(pre), tuple(steps), final_slot, final_perm, copied)
 
 
-def _arrange(x: np.ndarray, perm: tuple[int, ...] | None, shape: tuple[int, int, int]) -> np.ndarray:
+def arrange_operand(x: np.ndarray, perm: tuple[int, ...] | None, shape: tuple[int, int, int]) -> np.ndarray:
+    """An operand in a step's matrix layout: permuted (a copy) when ``perm`` says so, then viewed as
+    (rows, inner) or (batch, rows, inner) — or (inner, columns) and (batch, inner, columns)."""
     if perm is not None:
         x = x.transpose(perm)
     if shape[0] == 1:
         return x.reshape(shape[1], shape[2])
     return x.reshape(shape)
-
-
-def run_program(program: Program, arrays: Sequence[np.ndarray]) -> np.ndarray:
-    """Contract already-sliced ``arrays`` (in the tree's input order) with ``program``."""
-    slots: dict = dict(enumerate(arrays))
-    for i, eq in program.preprocess:
-        slots[i] = np.einsum(eq, slots[i])
-    for st in program.steps:
-        x = _arrange(slots.pop(st.left), st.left_perm, st.left_shape)
-        y = _arrange(slots.pop(st.right), st.right_perm, st.right_shape)
-        slots[st.out] = np.matmul(x, y).reshape(st.out_shape)
-        del x, y
-    out = slots[program.final_slot]
-    if program.final_perm is not None:
-        out = out.transpose(program.final_perm)
-    return np.asarray(out)
 
 
 _programs: dict = {}
@@ -202,8 +188,3 @@ def program_for(tree) -> Program:
         _programs.clear()
     _programs[key] = (tree, prog)
     return prog
-
-
-def contract_slice_pairwise(tree, arrays: Sequence[np.ndarray], i: int) -> np.ndarray:
-    """Slice ``i`` of the network contracted with the tree's step program."""
-    return run_program(program_for(tree), tree.slice_arrays(arrays, i))

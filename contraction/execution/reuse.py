@@ -12,7 +12,7 @@ from typing import Sequence
 
 import numpy as np
 
-from contraction.execution.pairwise import _arrange, program_for
+from contraction.execution.pairwise import arrange_operand, program_for
 from contraction.planning.slice_reuse import ReusePlan
 
 
@@ -76,8 +76,8 @@ class SliceContractor:
                 slots[st.out] = self.cache[k][1]
                 continue
             self.madds_done += st.madds
-            x = _arrange(slots.pop(st.left), st.left_perm, st.left_shape)
-            y = _arrange(slots.pop(st.right), st.right_perm, st.right_shape)
+            x = arrange_operand(slots.pop(st.left), st.left_perm, st.left_shape)
+            y = arrange_operand(slots.pop(st.right), st.right_perm, st.right_shape)
             out = np.matmul(x, y).reshape(st.out_shape)
             del x, y
             if k in self.plan.kept:
