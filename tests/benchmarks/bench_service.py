@@ -62,6 +62,31 @@ def load(url, n, clients, body):
             "rps": round(len(lat) / wall, 1)}
 
 
+def load_async(url, n, clients, body):
+    """The same load from one event loop (``clients`` concurrent requests in flight): a lighter client
+    than 32 threads, so less of the 2 cores goes to the load generator itself."""
+    import asyncio
+
+    async def run():
+        lat: list[float] = []
+        per = n // clients
+        async with httpx.AsyncClient(base_url=url, timeout=30,
+                                     limits=httpx.Limits(max_connections=clients)) as c:
+            async def one():
+                for _ in range(per):
+                    t = time.perf_counter()
+                    r = await (c.post("/v1/amplitudes", json=body) if body else c.get("/v1/health"))
+                    lat.append(time.perf_counter() - t)
+                    assert r.status_code == 200, r.text
+            t0 = time.perf_counter()
+            await asyncio.gather(*(one() for _ in range(clients)))
+            return lat, time.perf_counter() - t0
+
+    lat, wall = asyncio.run(run())
+    return {"requests": len(lat), "p50_ms": round(pct(lat, 0.5) * 1e3, 2), "p99_ms": round(pct(lat, 0.99) * 1e3, 2),
+            "rps": round(len(lat) / wall, 1)}
+
+
 def serve(workers: int):
     """A server with ``workers`` uvicorn processes on a free loopback port and a fresh data directory."""
     data = Path(tempfile.mkdtemp())
@@ -82,7 +107,7 @@ def serve(workers: int):
     return proc, url
 
 
-def run(workers: int, requests: int, clients: int) -> dict:
+def run(workers: int, requests: int, clients: int, client: str = "threads") -> dict:
     proc, url = serve(workers)
     try:
         body = {"circuit": {"qasm": GHZ}, "bitstrings": ["00000000", "11111111"]}
@@ -98,10 +123,11 @@ def run(workers: int, requests: int, clients: int) -> dict:
                 r = c.post("/v1/amplitudes", json={"circuit": {"qasm": qasm}, "bitstrings": [b]})
                 uncached.append(time.perf_counter() - t)
                 assert r.status_code == 200
-        by_id = load(url, requests, clients, {"circuit_id": cid, "bitstrings": ["00000000", "11111111"]})
-        inline = load(url, requests, clients, body)
-        base = load(url, requests, clients, None)
-        return {"server_workers": workers, "cached_by_id": by_id, "cached_inline": inline, "baseline_health": base,
+        gen = load_async if client == "async" else load
+        by_id = gen(url, requests, clients, {"circuit_id": cid, "bitstrings": ["00000000", "11111111"]})
+        inline = gen(url, requests, clients, body)
+        base = gen(url, requests, clients, None)
+        return {"server_workers": workers, "client": client, "cached_by_id": by_id, "cached_inline": inline, "baseline_health": base,
                 "uncached_small_circuit_ms_median": round(statistics.median(uncached) * 1e3, 2),
                 "ratio_by_id_rps_over_health_rps": round(by_id["rps"] / base["rps"], 2),
                 "ratio_inline_rps_over_health_rps": round(inline["rps"] / base["rps"], 2)}
@@ -115,8 +141,10 @@ def main():
     ap.add_argument("--requests", type=int, default=2000)
     ap.add_argument("--clients", type=int, default=32)
     ap.add_argument("--server-workers", default="1,2", help="comma-separated uvicorn process counts to run")
+    ap.add_argument("--client", choices=["threads", "async"], default="threads",
+                    help="load generator: one thread per client, or one event loop")
     args = ap.parse_args()
-    rows = [run(int(w), args.requests, args.clients) for w in args.server_workers.split(",")]
+    rows = [run(int(w), args.requests, args.clients, args.client) for w in args.server_workers.split(",")]
     print(json.dumps({"benchmark": "service", "clients": args.clients, "runs": rows,
                       "goal": {"rps_ratio_to_health": 0.5, "p99_ms": 50}}))
 
