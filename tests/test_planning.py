@@ -237,3 +237,14 @@ def test_a_failing_observer_does_not_stop_the_search():
     with observe_searches(broken):
         plan = find_plan(s, PlannerOptions(budget_seconds=0.5))
     assert plan.madds > 0
+
+
+def test_a_plan_needing_astronomically_many_slices_is_refused_as_not_feasible():
+    # A 40-qubit QFT with every controlled phase as a full 4-index tensor (Nielsen & Chuang §5.1):
+    # its trees reach 2^40 elements; fitting 2^28 needs more than 2^48 slices. The answer is an
+    # honest refusal with the numbers, not a plan of 2^55 slices.
+    from contraction.circuits.textbook import qft
+
+    s = build_structure(qft(40), diagonal=frozenset())
+    with pytest.raises(MemoryLimitError, match="not feasible"):
+        find_plan(s, PlannerOptions(budget_seconds=2.0, max_elements=2 ** 28, parallel=2))

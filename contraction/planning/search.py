@@ -468,6 +468,18 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
                     f"10^{math.log10(max(tree.contraction_cost(), 1)):.1f} multiply-adds each")
             if target is not None and tree.max_size() > target:
                 tree = _slice_inner(tree, target, options.minimize, deadline, hard_deadline)
+            if target is not None and tree.max_size() > target:
+                # the interleaved slicing ran out of time or candidates: one plain greedy slicing pass
+                # (cotengra's, seconds at most) rather than refusing a network that does fit
+                try:
+                    tree = tree.slice(target_size=target, allow_outer=False)
+                except (KeyError, ValueError, RuntimeError):
+                    pass
+            if target is not None and tree.nslices > 2 ** MAX_SLICED_LOG2:
+                raise MemoryLimitError(
+                    f"not feasible: fitting the cap of {options.max_elements:.3g} elements takes 2^"
+                    f"{math.log2(tree.nslices):.0f} slices (10^{math.log10(max(tree.contraction_cost(), 1)):.1f} "
+                    f"multiply-adds in all) with the best tree found in {time.perf_counter() - t0:.3g} s")
     finally:
         random.setstate(state)
     if target is not None and tree.max_size() > options.max_elements:
