@@ -42,7 +42,12 @@ def test_36_qubit_patch_circuit_equals_product_of_halves(rng):
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("dtype, tol", [("complex128", 1e-10), ("complex64", 1e-5)])
+# complex64: float32 (unit roundoff u = 6e-8) through ~300 pairwise steps whose sums cancel (a random
+# circuit's amplitude is far smaller than the sum of its terms' magnitudes): the forward error of a
+# sum of n terms is bounded by n·u·Σ|terms| (Higham, Accuracy and Stability of Numerical Algorithms,
+# 2nd ed., §3.1), so no fixed relative tolerance is guaranteed; two plans differed by 1.2e-5 relative
+# in one run and by less in many others. 5e-5 still catches a wrong slice (errors of order 1).
+@pytest.mark.parametrize("dtype, tol", [("complex128", 1e-10), ("complex64", 5e-5)])
 def test_two_plans_with_different_slicings_agree_at_30_qubits(dtype, tol):
     circ = random_instance(grid_architecture(5, 6, 10), seed=5, gates="discrete")
     s = build_structure(circ)
