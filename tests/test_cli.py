@@ -180,6 +180,7 @@ def test_plan_then_estimate_reads_the_stored_plan(tmp_path, capsys, monkeypatch)
 
 
 def test_estimate_says_when_it_measures_the_machine_first(tmp_path, capsys, monkeypatch):
+    # a command that will be busy for half a minute says so first (common practice for CLIs)
     import service.cli.compute as compute_cli
     from contraction.planning.rates import MachineRate
 
@@ -198,6 +199,7 @@ def test_estimate_says_when_it_measures_the_machine_first(tmp_path, capsys, monk
 
 
 def test_progress_line_shows_the_plan_search_then_the_tasks():
+    # the line's wording is this project's own format (no outside source); the figures are the job's
     from service.cli.common import ProgressBar
 
     class Job:

@@ -228,6 +228,7 @@ def test_search_progress_is_reported_while_a_plan_is_searched(parallel):
 
 
 def test_a_failing_observer_does_not_stop_the_search():
+    # a display that breaks must not cost the plan (common practice for callbacks; no outside source)
     from contraction.planning.search import observe_searches
 
     def broken(_):

@@ -261,6 +261,8 @@ def test_a_job_another_process_claimed_is_left_alone(tmp_path):
 
 
 def test_only_jobs_whose_heartbeat_stopped_are_taken_over(tmp_path):
+    # heartbeat leases: work whose owner stopped renewing is taken over, once (common practice for
+    # job queues; no outside source)
     from service.db import JobRow
     from service.jobs import STALE_SECONDS, JobManager
 

@@ -16,6 +16,7 @@ permutations and shapes) and run for every slice by :class:`contraction.executio
 from __future__ import annotations
 
 import math
+import weakref
 from dataclasses import dataclass
 from typing import Sequence
 
@@ -37,7 +38,6 @@ class Step:
     right_shape: tuple[int, int, int]
     out_shape: tuple[int, ...]
     madds: float = 0.0                          # complex multiply-adds of this contraction
-    sliced: frozenset = frozenset()             # sliced indices its value depends on (its subtree's)
 
 
 @dataclass(frozen=True)
@@ -50,7 +50,6 @@ class Program:
     steps: tuple[Step, ...]
     final_slot: int
     final_perm: tuple[int, ...] | None
-    copied_elements: float          # elements rearranged per slice (small operands included)
 
 
 def _perm(current: Sequence, wanted: Sequence) -> tuple[int, ...] | None:
@@ -81,8 +80,6 @@ def compile_program(tree) -> Program:
     leaves = [tree.input_to_node(i) for i in range(n)]
     labels: dict = {}                 # slot -> current axis labels
     slot_of: dict = {}
-    sliced_set = set(tree.sliced_inds)
-    deps: dict = {i: frozenset(set(tree.inputs[i]) & sliced_set) for i in range(n)}
     pre = []
     for i, leaf in enumerate(leaves):
         legs = tuple(tree.get_legs(leaf))
@@ -100,7 +97,6 @@ def compile_program(tree) -> Program:
         parent_contracts[r] = (ll & lr) - lp
 
     steps = []
-    copied = 0.0
     nxt = n
     for p, l, r in tree.traverse():
         a, b = slot_of.pop(l), slot_of.pop(r)
@@ -122,7 +118,6 @@ def compile_program(tree) -> Program:
             kept_big = [ix for ix in kept_big if ix not in later] + [ix for ix in kept_big if ix in later]
             order = [ix for ix in lbig if ix in batch] + kept_big + [ix for ix in lbig if ix in contr]
             big_perm = _perm(lbig, order)
-            copied += max(sa, sb)
             lbig = tuple(order)
         nb = len(batch)
         batch_order = list(lbig[:nb])
@@ -138,8 +133,6 @@ def compile_program(tree) -> Program:
             kept_small = [ix for ix in kept_small if ix in later] + [ix for ix in kept_small if ix not in later]
             small_order = batch_order + kept_small + contr_order
         small_perm = _perm(lsmall, small_order)
-        if small_perm is not None:
-            copied += min(sa, sb)
         B = math.prod(size[ix] for ix in batch_order)
         K = math.prod(size[ix] for ix in contr_order)
         Mb = math.prod(size[ix] for ix in kept_big)
@@ -150,9 +143,8 @@ def compile_program(tree) -> Program:
         else:
             left, right = (small, small_perm, (B, Ms, K)), (big, big_perm, (B, K, Mb))
             out_labels = batch_order + kept_small + kept_big
-        deps[nxt] = deps[a] | deps[b]
         steps.append(Step(left[0], right[0], nxt, left[1], right[1], left[2], right[2],
-                          tuple(size[ix] for ix in out_labels), float(tree.get_flops(p)), deps[nxt]))
+                          tuple(size[ix] for ix in out_labels), float(tree.get_flops(p))))
         labels[nxt] = tuple(out_labels)
         slot_of[p] = nxt
         nxt += 1
@@ -161,7 +153,7 @@ def compile_program(tree) -> Program:
     final_labels = labels.get(final_slot, ())
     output = tuple(tree.output)
     final_perm = _perm(final_labels, output) if set(final_labels) == set(output) else None
-    return Program(n, tuple(pre), tuple(steps), final_slot, final_perm, copied)
+    return Program(n, tuple(pre), tuple(steps), final_slot, final_perm)
 
 
 def arrange_operand(x: np.ndarray, perm: tuple[int, ...] | None, shape: tuple[int, int, int]) -> np.ndarray:
@@ -174,17 +166,12 @@ def arrange_operand(x: np.ndarray, perm: tuple[int, ...] | None, shape: tuple[in
     return x.reshape(shape)
 
 
-_programs: dict = {}
+_programs: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
 
 
 def program_for(tree) -> Program:
-    """The program of ``tree``, compiled once per tree object in this process."""
-    key = id(tree)
-    hit = _programs.get(key)
-    if hit is not None and hit[0] is tree:
-        return hit[1]
-    prog = compile_program(tree)
-    if len(_programs) > 64:
-        _programs.clear()
-    _programs[key] = (tree, prog)
+    """The program of ``tree``, compiled once per tree object (forgotten with the tree)."""
+    prog = _programs.get(tree)
+    if prog is None:
+        prog = _programs[tree] = compile_program(tree)
     return prog

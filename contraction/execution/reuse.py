@@ -23,7 +23,7 @@ class SliceContractor:
     order, so a run over 0..nslices-1 (or any split of it) covers every slice exactly once."""
 
     def __init__(self, tree, arrays: Sequence[np.ndarray], plan: ReusePlan | None = None):
-        plan = plan or ReusePlan(tuple(tree.sliced_inds), frozenset(), 1.0, 0.0)
+        plan = plan or ReusePlan(tuple(tree.sliced_inds), {}, 1.0)
         self.tree, self.arrays, self.plan = tree, list(arrays), plan
         self.program = program_for(tree)
         self.sizes = [int(tree.size_dict[ix]) for ix in plan.order]
@@ -32,7 +32,6 @@ class SliceContractor:
         self._sliced_inputs = [(c, tuple(tree.inputs[c])) for c in sorted(tree.sliced_inputs)]
         m = self.program.num_inputs
         self._operands = [tuple(src - m for src in (st.left, st.right) if src >= m) for st in self.program.steps]
-        self._key_order = [tuple(sorted(st.sliced)) for st in self.program.steps]
 
     def key(self, i: int) -> dict:
         """Values of the sliced indices for slice ``i`` (first index of the order slowest)."""
@@ -56,7 +55,8 @@ class SliceContractor:
         if not prog.steps:                               # one tensor: nothing pairwise to do
             return np.asarray(self.tree.contract_slice(self.arrays, self.tree_slice(i)))
         values = self.key(i)
-        keys = [tuple(values[ix] for ix in ko) for ko in self._key_order]
+        # the kept steps' index values for this slice (only kept steps are ever taken from the cache)
+        keys = {k: tuple(values[ix] for ix in inds) for k, inds in self.plan.kept.items()}
         valid = {k for k, (kk, _) in self.cache.items() if kk == keys[k]}
         needed = [False] * len(prog.steps)
         needed[-1] = True

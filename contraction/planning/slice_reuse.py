@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import math
 import random
+import weakref
 from dataclasses import dataclass
 
 #: the memory left above a plan's peak is divided by this before intermediates are kept in it (the
@@ -65,9 +66,8 @@ class ReusePlan:
     slices, and the predicted multiply-adds per slice with reuse over those without (≤ 1)."""
 
     order: tuple
-    kept: frozenset
+    kept: dict                 # kept step -> the sliced indices (sorted) its value depends on
     work_share: float
-    kept_elements: float
 
 
 def _changes(step_sliced: frozenset, pos: dict, sizes: list[int]) -> int:
@@ -125,11 +125,11 @@ def reuse_plan(tree, budget_elements: float, seed: int = 0) -> ReusePlan:
     order0 = tuple(tree.sliced_inds)
     full = int(tree.nslices)
     if full <= 1 or budget_elements <= 0 or tree.N < 2:
-        return ReusePlan(order0, frozenset(), 1.0, 0.0)
+        return ReusePlan(order0, {}, 1.0)
     steps = _steps(tree)
     base = sum(steps.madds) * full
     if base <= 0:
-        return ReusePlan(order0, frozenset(), 1.0, 0.0)
+        return ReusePlan(order0, {}, 1.0)
     parents = steps.parents
     sizes_of = {ix: int(tree.size_dict[ix]) for ix in order0}
     subtree = [0.0] * len(steps.madds)              # multiply-adds of each step's subtree, itself included
@@ -150,21 +150,17 @@ def reuse_plan(tree, budget_elements: float, seed: int = 0) -> ReusePlan:
         kept, cost, used = _select(steps, subtree, order, sizes_of, budget_elements, full)
         if best is None or cost < best[2]:
             best = (order, kept, cost, used)
-    order, kept, cost, used = best
-    return ReusePlan(order, kept, cost / base, used)
+    order, kept, cost, _ = best
+    return ReusePlan(order, {k: tuple(sorted(steps.sliced[k])) for k in sorted(kept)}, cost / base)
 
 
-_plans: dict = {}
+_plans: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
 
 
 def reuse_plan_for(tree, budget_elements: float) -> ReusePlan:
-    """:func:`reuse_plan` of ``tree`` and budget, worked out once per tree object in this process."""
-    key = (id(tree), float(budget_elements))
-    hit = _plans.get(key)
-    if hit is not None and hit[0] is tree:
-        return hit[1]
-    plan = reuse_plan(tree, budget_elements)
-    if len(_plans) > 64:
-        _plans.clear()
-    _plans[key] = (tree, plan)
+    """:func:`reuse_plan` of ``tree`` and budget, worked out once per tree object and budget."""
+    per_tree = _plans.setdefault(tree, {})
+    plan = per_tree.get(float(budget_elements))
+    if plan is None:
+        plan = per_tree[float(budget_elements)] = reuse_plan(tree, budget_elements)
     return plan
