@@ -30,7 +30,7 @@ TERMINAL = ("succeeded", "failed", "cancelled")
 
 
 #: seconds between two heartbeats of a running job; a running job silent for STALE_SECONDS was left by
-#: a process that ended and is queued again by the next server start (common practice for leases)
+#: a process that ended and is queued again by a server process's sweep (common practice for leases)
 HEARTBEAT_SECONDS = 5.0
 STALE_SECONDS = 30.0
 #: seconds between two writes of a running plan search's progress to the job's row
@@ -65,15 +65,18 @@ def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_s
             return {}
         job = s.get(JobRow, job_id)
         bits, dtype, engine, chash = job.bitstring_list(), job.dtype, job.engine, job.circuit_id
+    def set_row(*where, **values) -> None:
+        """Write ``values`` to this job's row (where ``where`` also holds)."""
+        with sessions() as s2:
+            s2.execute(update(JobRow).where(JobRow.id == job_id, *where).values(**values))
+            s2.commit()
+
     beating = threading.Event()
 
     def beat() -> None:
         while not beating.wait(HEARTBEAT_SECONDS):
             try:
-                with sessions() as s2:
-                    s2.execute(update(JobRow).where(JobRow.id == job_id, JobRow.status == "running")
-                               .values(heartbeat=time.time()))
-                    s2.commit()
+                set_row(JobRow.status == "running", heartbeat=time.time())
             except Exception:                     # a busy database: the next beat tries again
                 log.warning("heartbeat of job %s not written", job_id, exc_info=True)
 
@@ -89,9 +92,7 @@ def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_s
         return last_check[1]
 
     def on_chunk(done: int) -> None:
-        with sessions() as s2:
-            s2.execute(update(JobRow).where(JobRow.id == job_id).values(done=done))
-            s2.commit()
+        set_row(done=done)
 
     last_search = [0.0]
 
@@ -103,15 +104,10 @@ def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_s
         last_search[0] = now
         doc = {"trials": p.trials, "best_madds": p.best_madds, "seconds": round(p.seconds, 2),
                "budget_seconds": p.budget_seconds}
-        with sessions() as s2:
-            s2.execute(update(JobRow).where(JobRow.id == job_id).values(planning=json.dumps(doc)))
-            s2.commit()
+        set_row(planning=json.dumps(doc))
 
     def on_choice(choice) -> None:
-        with sessions() as s2:
-            s2.execute(update(JobRow).where(JobRow.id == job_id).values(
-                phase="contracting", predicted_seconds=choice.chosen.seconds, contracting_since=time.time()))
-            s2.commit()
+        set_row(phase="contracting", predicted_seconds=choice.chosen.seconds, contracting_since=time.time())
 
     status, error, prov = "succeeded", None, None
     try:
