@@ -7,7 +7,8 @@ slice went into such copies of 2^25-2^27-element intermediates absorbing a gate.
 keeps the larger operand as it lies whenever its axes already form one of the two layouts — it then
 becomes the left or the right factor of the product accordingly — and only the smaller operand is
 rearranged; the result keeps the larger operand's axis order and puts the smaller one's new axes
-after (or before) it, ordered so that the axes its own parent contracts come last (or first).
+after (or before) it, ordered so that the axes its own parent contracts form one block with the larger
+operand's axes that the parent contracts too.
 
 The program of steps is worked out once per tree (:func:`compile_program`, plain data: axis
 permutations and shapes) and run for every slice by :class:`contraction.execution.reuse.SliceContractor`.
@@ -73,6 +74,13 @@ def _layout(labels: Sequence, batch: set, kept: set, contr: set) -> str | None:
     return None
 
 
+def _next_to(axes: list, later: set, first: bool) -> list:
+    """``axes`` with those in ``later`` (contracted by the next step) first or last, the others in order."""
+    inner = [ix for ix in axes if ix in later]
+    outer = [ix for ix in axes if ix not in later]
+    return inner + outer if first else outer + inner
+
+
 def compile_program(tree) -> Program:
     """The step program of a cotengra tree (sliced or not) for arrays already sliced."""
     size = tree.size_dict
@@ -124,13 +132,14 @@ def compile_program(tree) -> Program:
         if form == "KC":
             contr_order = list(lbig[nb + len(kept_big):])
             kept_big = list(lbig[nb:nb + len(kept_big)])
-            # the small operand's new axes go after the big one's: those contracted next come last
-            kept_small = [ix for ix in kept_small if ix not in later] + [ix for ix in kept_small if ix in later]
+            # the small operand's new axes go after the big one's: those contracted next come last, or
+            # first when the big one's last axis is contracted next too (one block for the next step)
+            kept_small = _next_to(kept_small, later, first=bool(kept_big) and kept_big[-1] in later)
             small_order = batch_order + contr_order + kept_small
         else:
             contr_order = list(lbig[nb:nb + len(contr)])
             kept_big = list(lbig[nb + len(contr):])
-            kept_small = [ix for ix in kept_small if ix in later] + [ix for ix in kept_small if ix not in later]
+            kept_small = _next_to(kept_small, later, first=not (kept_big and kept_big[0] in later))
             small_order = batch_order + kept_small + contr_order
         small_perm = _perm(lsmall, small_order)
         B = math.prod(size[ix] for ix in batch_order)

@@ -86,8 +86,11 @@ def keep_freed_memory() -> None:
     By default glibc maps every large array afresh (the kernel zeroes each page on first touch) and
     unmaps it when freed, so a contraction that allocates and frees intermediates of 2^25 elements at
     every step spends a third of its time in the kernel (measured: 3.1-3.9 s of 10 s at 30 qubits,
-    1.3-1.4x slower than with this setting). Called once per contraction worker process; a no-op
-    where glibc is not the C library."""
+    1.3-1.4x slower than with this setting). The heap is never trimmed: with glibc's default trim
+    threshold capped at 2 GiB, each slice of the 53-qubit network (2^27-element intermediates) gave
+    its memory back and faulted it in again, 16 s a slice against 11.4 s untrimmed. A worker thus keeps
+    its peak (which the memory cap bounds) until it exits. Called once per contraction worker process;
+    a no-op where glibc is not the C library."""
     global _kept
     if _kept:
         return
@@ -95,7 +98,7 @@ def keep_freed_memory() -> None:
     try:
         libc = ctypes.CDLL("libc.so.6")
         libc.mallopt(_M_MMAP_MAX, 0)                # large arrays from the heap, not fresh mappings
-        libc.mallopt(_M_TRIM_THRESHOLD, 2 ** 31 - 1)  # and freed heap kept for the next step
+        libc.mallopt(_M_TRIM_THRESHOLD, -1)          # and freed heap kept for the next step (never trimmed)
     except (OSError, AttributeError):
         pass
 

@@ -1,0 +1,63 @@
+"""The step program of pairwise contractions: each layout it chooses gives the contraction numpy's
+einsum gives (numpy is the general-purpose reference; einsum's definition is the sum over repeated
+indices, Einstein's summation convention), on random networks with random trees and on a circuit
+against its state vector.
+"""
+
+import cotengra as ctg
+import numpy as np
+import pytest
+
+from contraction.circuits.random_instances import grid_architecture, random_instance
+from contraction.execution.pairwise import compile_program
+from contraction.execution.reuse import SliceContractor
+from contraction.execution.statevector import state_vector
+from contraction.network.builder import build_structure, tensor_arrays
+from contraction.planning.search import PlannerOptions, find_plan
+
+
+def _random_network(rng, n: int):
+    """``n`` tensors on random indices (each shared by two tensors or left open), sizes 2-4."""
+    letters = iter("abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ")
+    inputs = [[] for _ in range(n)]
+    output = []
+    for _ in range(2 * n):
+        ix = next(letters)
+        a, b = rng.choice(n, size=2, replace=False)
+        inputs[a].append(ix)
+        if rng.random() < 0.85:
+            inputs[b].append(ix)
+        else:
+            output.append(ix)
+    sizes = {ix: int(rng.integers(2, 5)) for t in inputs for ix in t}
+    arrays = [rng.standard_normal([sizes[ix] for ix in t]) + 1j * rng.standard_normal([sizes[ix] for ix in t])
+              for t in inputs]
+    return [tuple(t) for t in inputs], tuple(output), sizes, arrays
+
+
+@pytest.mark.parametrize("seed", range(12))
+def test_any_tree_contracts_like_einsum(seed):
+    rng = np.random.default_rng(seed)
+    inputs, output, sizes, arrays = _random_network(rng, 7)
+    tree = ctg.array_contract_tree(inputs, output, sizes,
+                                   optimize=ctg.RandomGreedyOptimizer(max_repeats=1, seed=seed, temperature=1.0))
+    got = SliceContractor(tree, arrays).contract(0)
+    eq = ",".join("".join(t) for t in inputs) + "->" + "".join(output)
+    want = np.einsum(eq, *arrays)
+    np.testing.assert_allclose(got, want, rtol=1e-10, atol=1e-10)
+
+
+def test_grid_program_matches_the_state_vector(rng):
+    c = random_instance(grid_architecture(4, 5, 12), 3, gates="haar")
+    s = build_structure(c)
+    plan = find_plan(s, PlannerOptions(budget_seconds=1.0, max_elements=2 ** 12))
+    tree = plan.tree(s)
+    prog = compile_program(tree)
+    # most steps use the bigger operand as it lies (the point of the step program)
+    assert sum(st.left_perm is None or st.right_perm is None for st in prog.steps) > len(prog.steps) // 2
+    psi = state_vector(c)
+    for k in rng.choice(2 ** 20, size=4, replace=False):
+        bits = format(int(k), "020b")
+        sc = SliceContractor(tree, tensor_arrays(s, c, bits))
+        total = sum(complex(sc.contract(i)) for i in range(tree.nslices))
+        assert abs(total - psi[int(k)]) < 1e-12
