@@ -4,8 +4,9 @@ complex128 and complex64; the complex64 value's error against complex128; what c
 exponent stripping (every intermediate rescaled) costs against the plain-first contraction; and a
 run of consecutive slices keeping intermediates between them (complex64).
 
-All on one BLAS thread (a contraction worker's setting), one slice per case, median of
-``--repeats`` runs (one run for slices over 10 s). Plans are searched in this run with the
+All on one BLAS thread (a contraction worker's setting), one slice per case: the first run apart
+(fresh memory) and the median of the runs after it (at least one; ``--repeats`` in all, two for
+slices over 10 s). Plans are searched in this run with the
 service's default objective ("combo": multiply-adds and memory writes).
 
     python tests/benchmarks/bench_gemm_rate.py [--budget 30] [--repeats 3] [--cases 20,24,27]
@@ -34,14 +35,17 @@ CASES = {20: (5, 6, 14, frozenset()), 24: (5, 6, 14, frozenset()), 27: (6, 9, 12
 
 
 def timed(fn, repeats: int):
+    """(median seconds of the runs after the first, first run's seconds, value): a worker contracts many
+    slices, so the first one's page faults (fresh memory) are reported apart. At least two runs; runs
+    over 10 s stop after the second."""
     times, value = [], None
-    for k in range(repeats):
+    for k in range(max(2, repeats)):
         t = time.perf_counter()
         value = fn()
         times.append(time.perf_counter() - t)
-        if times[-1] > 10:
+        if k >= 1 and times[-1] > 10:
             break
-    return float(np.median(times)), value
+    return float(np.median(times[1:])), times[0], value
 
 
 def case(width: int, budget: float, repeats: int, run_slices: int) -> dict:
@@ -59,15 +63,17 @@ def case(width: int, budget: float, repeats: int, run_slices: int) -> dict:
         for dtype in ("complex128", "complex64"):
             before = matmul_rate(dtype=np.dtype(dtype))
             arrays = tensor_arrays(s, circ, bits, dtype=dtype)
-            seconds, (m, e) = timed(lambda: contract_slice_scaled(tree, arrays, 0), repeats)
+            seconds, first, (m, e) = timed(lambda: contract_slice_scaled(tree, arrays, 0), repeats)
             values[dtype] = complex(m) * 10.0 ** e
             # the ceiling: the better of two measurements around the slice (the first may overlap the
             # planning processes' exit)
             rate = max(before, matmul_rate(dtype=np.dtype(dtype)))
-            row[dtype] = {"seconds": round(seconds, 3), "matmul_madds_per_s": rate,
+            row[dtype] = {"seconds": round(seconds, 3), "first_slice_seconds": round(first, 3),
+                          "first_slice_fraction_of_matmul": round(per_slice / first / rate, 3),
+                          "matmul_madds_per_s": rate,
                           "madds_per_s": per_slice / seconds, "fraction_of_matmul": round(per_slice / seconds / rate, 3)}
             if dtype == "complex64":
-                stripped, _ = timed(lambda: tree.contract_slice(arrays, 0, strip_exponent=True), repeats)
+                stripped, _, _ = timed(lambda: tree.contract_slice(arrays, 0, strip_exponent=True), repeats)
                 row["complex64"]["seconds_all_intermediates_rescaled"] = round(stripped, 3)
                 row["complex64"]["rescaled_over_plain"] = round(stripped / seconds, 3)
                 # a run of consecutive slices keeping intermediates in 2^width extra elements (what a

@@ -11,9 +11,11 @@ budget, two processes) and the baseline — quimb's ``full_simplify`` on the sam
 then cotengra's ``HyperOptimizer`` with slicing to the same target inside each trial, same budget,
 same two processes — side by side. Both slice the largest intermediate to a quarter of the cap (the
 peak of a pairwise contraction holds two inputs and the output).
-Part a: one amplitude in complex64 with the stored plan on two worker processes (each within the
-cap), wall time and peak RSS of this process and of its workers together (measured, not
-estimated), against the time at the matrix-multiply rate measured in the same run.
+Part a: one amplitude in complex64 with the stored plan, the whole run within the cap: one process
+on the machine's BLAS threads (default) or ``--amp-workers`` processes on one thread each sharing
+it (the plan's target is then a quarter of a share); wall time and peak RSS of this process and of
+its workers (measured, not estimated), against the time at the matrix-multiply rate measured in the
+same run.
 Part e: ``estimate`` with a 60 s budget on a 32-qubit quantum-volume circuit of depth 32, a
 63-qubit QFT and a 45-qubit ripple-carry adder (generated from their published definitions).
 """
@@ -38,7 +40,8 @@ def w53(cycles: int):
     return random_instance(grid_architecture(6, 9, cycles, removed=frozenset({53})), 1, gates="discrete")
 
 
-def part_plan(cycles: int, budget: float, cap_log2: int, baseline: bool = True) -> tuple[dict, object]:
+def part_plan(cycles: int, budget: float, cap_log2: int, baseline: bool = True,
+              target_log2: float | None = None) -> tuple[dict, object]:
     import cotengra as ctg
     import quimb.tensor as qtn
 
@@ -47,7 +50,7 @@ def part_plan(cycles: int, budget: float, cap_log2: int, baseline: bool = True) 
 
     circ = w53(cycles)
     s = build_structure(circ)
-    target = 2 ** cap_log2 / 4
+    target = 2 ** (cap_log2 - 2 if target_log2 is None else target_log2)
     t = time.perf_counter()
     plan = find_plan(s, PlannerOptions(budget_seconds=budget, max_elements=target, parallel=2, minimize="flops"))
     ours_s = time.perf_counter() - t
@@ -58,7 +61,8 @@ def part_plan(cycles: int, budget: float, cap_log2: int, baseline: bool = True) 
             "tensors_after_simplify": plan.options.get("tensors_after_simplify")}
     if not baseline:
         return {"part": "p_plan", "qubits": circ.num_qubits, "cycles": cycles, "budget_s": budget,
-                "cap_elements_log2": cap_log2, "veramp": ours, "baseline_quimb_cotengra": "skipped"}, plan
+                "cap_elements_log2": cap_log2, "target_intermediate_log2": math.log2(target), "veramp": ours,
+                "baseline_quimb_cotengra": "skipped"}, plan
     # baseline: quimb simplification + cotengra's hyper search, called directly
     t = time.perf_counter()
     arrays = tensor_arrays(s, circ, "0" * circ.num_qubits, dtype="complex64")
@@ -85,7 +89,7 @@ def part_plan(cycles: int, budget: float, cap_log2: int, baseline: bool = True) 
     return doc, plan
 
 
-def part_amplitude(cycles: int, plan, cap_log2: int) -> dict:
+def part_amplitude(cycles: int, plan, cap_log2: int, workers: int = 1) -> dict:
     from contraction.execution.amplitudes import amplitudes
     from contraction.execution.calibration import matmul_rate
     from contraction.planning.store import MemoryPlanStore
@@ -104,12 +108,14 @@ def part_amplitude(cycles: int, plan, cap_log2: int) -> dict:
 
     t = time.perf_counter()
     with PeakRss() as memory:
-        # two worker processes contract slices side by side, each within the cap the plan was made for
+        # the whole run within the cap: one process on the machine's BLAS threads, or ``workers``
+        # processes on one thread each sharing the cap (the plan must fit a share)
         run = amplitudes(circ, ["0" * circ.num_qubits], engine="single", dtype="complex64", plan_store=store,
-                         planner=None, memory_bytes=2 * 2 ** cap_log2 * 8, workers=2)
+                         planner=None, memory_bytes=2 ** cap_log2 * 8, workers=workers)
     dt = time.perf_counter() - t
-    out.update(seconds=round(dt, 1), peak_rss_self_bytes=memory.self_bytes,
-               peak_rss_workers_bytes=memory.descendants_bytes, cap_bytes_per_worker=2 ** cap_log2 * 8,
+    out.update(seconds=round(dt, 1), workers=workers, peak_rss_self_bytes=memory.self_bytes,
+               peak_rss_workers_bytes=memory.descendants_bytes, cap_bytes=2 ** cap_log2 * 8,
+               slices=plan.nslices, plan_peak_bytes=plan.peak_bytes("complex64"),
                amplitude=[run.results[0].amplitude.real, run.results[0].amplitude.imag],
                madds_per_s=plan.madds / dt, fraction_of_matmul=round(plan.madds / dt / rate, 3),
                goal={"seconds": 600, "peak_rss_bytes": 8 * 2 ** 30})
@@ -148,13 +154,19 @@ def main() -> None:
     ap.add_argument("--cap-log2", type=int, default=30)
     ap.add_argument("--estimate-budget", type=float, default=60.0)
     ap.add_argument("--no-baseline", action="store_true", help="part p without the quimb + cotengra baseline")
+    ap.add_argument("--amp-workers", type=int, default=1,
+                    help="part a: contraction processes sharing the cap (1: one process, BLAS threads)")
+    ap.add_argument("--target-log2", type=float, default=None,
+                    help="largest intermediate of the plan (default: a quarter of the cap per process of part a)")
     args = ap.parse_args()
     plan = None
     if "p" in args.parts or "a" in args.parts:
-        doc, plan = part_plan(args.cycles, args.budget, args.cap_log2, baseline=not args.no_baseline)
+        target_log2 = args.target_log2 or args.cap_log2 - 2 - math.log2(args.amp_workers)
+        doc, plan = part_plan(args.cycles, args.budget, args.cap_log2, baseline=not args.no_baseline,
+                              target_log2=target_log2)
         emit(doc)
     if "a" in args.parts:
-        emit(part_amplitude(args.cycles, plan, args.cap_log2))
+        emit(part_amplitude(args.cycles, plan, args.cap_log2, args.amp_workers))
     if "e" in args.parts:
         emit(part_estimate(args.estimate_budget))
 
