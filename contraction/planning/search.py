@@ -27,6 +27,7 @@ from contraction import defaults
 from contraction.errors import MemoryLimitError, PlanError
 from contraction.network.builder import NetworkStructure
 from contraction.network.simplify import simplify_structure
+from contraction.planning.fusion import fuse_absorptions
 
 log = logging.getLogger(__name__)
 
@@ -219,6 +220,7 @@ class PlannerOptions:
     seed: int = 0
     parallel: bool | int = False          # explicit: never 'auto'; an int > 1 is a number of processes
     simplify: bool = True                 # structure-only simplification before the search
+    fuse: bool = True                     # group small tensors absorbed into large intermediates (fusion)
 
     def to_dict(self) -> dict:
         """The options as a JSON-ready dict (kept with each plan)."""
@@ -398,7 +400,9 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
     when installed, kahypar partitions) for 90 % of the budget, in which — when the baseline is within
     2^12 of the memory target — every trial is scored after slicing to the target, so the tree is
     chosen for the cap; then a subtree reconfiguration and slicing of the best tree, stopped by the
-    deadline (slicing may take 5 % + 1 s more). With ``parallel`` > 1 the deadline is hard: trials still
+    deadline (slicing may take 5 % + 1 s more); last, small tensors absorbed one by one into large
+    intermediates are grouped (:mod:`contraction.planning.fusion`; the searched tree's multiply-adds
+    are kept in the plan's options as ``madds_before_fusion``). With ``parallel`` > 1 the deadline is hard: trials still
     running are ended. Raises :class:`MemoryLimitError` when no tree within ``max_elements`` is found,
     with the best figures found ("not feasible" when it would take more than 2^48 slices).
     """
@@ -488,7 +492,11 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
             f"{options.max_elements:.3g} elements in {time.perf_counter() - t0:.3g} s (best cost found "
             f"10^{math.log10(max(tree.contraction_cost(), 1)):.2f} multiply-adds); raise the memory cap or the "
             f"planning budget")
-    plan = plan_from_tree(tree, structure, _record(options, methods, trials, reduced_tensors, t0))
+    record = _record(options, methods, trials, reduced_tensors, t0)
+    if options.fuse and structure.num_tensors > 2:
+        record["madds_before_fusion"] = float(tree.contraction_cost())
+        tree = fuse_absorptions(tree)
+    plan = plan_from_tree(tree, structure, record)
     _notify(SearchProgress(trials, plan.madds, time.perf_counter() - t0, options.budget_seconds))
     return plan
 

@@ -154,17 +154,26 @@ def main() -> None:
     ap.add_argument("--cap-log2", type=int, default=30)
     ap.add_argument("--estimate-budget", type=float, default=60.0)
     ap.add_argument("--no-baseline", action="store_true", help="part p without the quimb + cotengra baseline")
+    ap.add_argument("--save-plan", default=None, help="write part p's plan (JSON) to this file")
+    ap.add_argument("--load-plan", default=None, help="part a with this stored plan instead of part p's")
     ap.add_argument("--amp-workers", type=int, default=1,
                     help="part a: contraction processes sharing the cap (1: one process, BLAS threads)")
     ap.add_argument("--target-log2", type=float, default=None,
                     help="largest intermediate of the plan (default: a quarter of the cap per process of part a)")
     args = ap.parse_args()
     plan = None
-    if "p" in args.parts or "a" in args.parts:
+    if args.load_plan:
+        from contraction.planning.search import Plan
+
+        plan = Plan.from_json(open(args.load_plan).read())
+    if "p" in args.parts or ("a" in args.parts and plan is None):
         target_log2 = args.target_log2 or args.cap_log2 - 2 - math.log2(args.amp_workers)
         doc, plan = part_plan(args.cycles, args.budget, args.cap_log2, baseline=not args.no_baseline,
                               target_log2=target_log2)
         emit(doc)
+        if args.save_plan:
+            with open(args.save_plan, "w") as f:
+                f.write(plan.to_json())
     if "a" in args.parts:
         emit(part_amplitude(args.cycles, plan, args.cap_log2, args.amp_workers))
     if "e" in args.parts:
