@@ -40,9 +40,10 @@ SEARCH_REPORT_SECONDS = 2.0
 def _init_worker() -> None:
     from threadpoolctl import threadpool_limits
 
+    from contraction.execution.slices import keep_freed_memory
+
     threadpool_limits(1)
-
-
+    keep_freed_memory()          # a job process contracts: it reuses freed intermediates' memory
 
 
 def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_scheduler: str | None = None,

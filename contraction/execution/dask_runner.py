@@ -70,7 +70,8 @@ class DaskRunner:
                 [shared[key]] = self.client.scatter([task.arrays], broadcast=True, hash=False)
             reuse = task.reuse_elements
             if self.memory_limit is not None:       # within what the smallest worker allows above the peak
-                reuse = min(reuse, reuse_budget(self.memory_limit / task.arrays[0].dtype.itemsize, plan.peak_elements))
+                reuse = min(reuse, reuse_budget(self.memory_limit / task.arrays[0].dtype.itemsize, plan.peak_elements,
+                                                 plan.width))
             return self.client.submit(_task_on_worker, blob, shared[key], task.slices, reuse, pure=False)
 
         def wait(fs, timeout, return_when):

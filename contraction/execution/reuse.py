@@ -58,6 +58,8 @@ class SliceContractor:
         # the kept steps' index values for this slice (only kept steps are ever taken from the cache)
         keys = {k: tuple(values[ix] for ix in inds) for k, inds in self.plan.kept.items()}
         valid = {k for k, (kk, _) in self.cache.items() if kk == keys[k]}
+        for k in [k for k in self.cache if k not in valid]:
+            del self.cache[k]                            # stale: freed before its replacement is computed
         needed = [False] * len(prog.steps)
         needed[-1] = True
         for k in range(len(prog.steps) - 1, -1, -1):

@@ -25,6 +25,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import sys
 import time
 
 import numpy as np
@@ -56,6 +57,7 @@ def part_plan(cycles: int, budget: float, cap_log2: int, baseline: bool = True,
     ours_s = time.perf_counter() - t
     ours = {"seconds": round(ours_s, 1), "log10_madds": round(math.log10(plan.madds), 3),
             "log10_madds_unsliced": round(math.log10(plan.madds_unsliced), 3),
+            "log10_madds_searched": round(math.log10(plan.options.get("madds_before_fusion", plan.madds)), 3),
             "slicing_overhead": round(plan.slicing_overhead, 3), "slices": plan.nslices,
             "width_log2": plan.width, "trials": plan.options.get("trials"),
             "tensors_after_simplify": plan.options.get("tensors_after_simplify")}
@@ -94,6 +96,9 @@ def part_amplitude(cycles: int, plan, cap_log2: int, workers: int = 1) -> dict:
     from contraction.execution.calibration import matmul_rate
     from contraction.planning.store import MemoryPlanStore
 
+    from contraction.execution.slices import keep_freed_memory
+
+    keep_freed_memory()            # as the command line does: this process contracts in place
     circ = w53(cycles)
     rate = matmul_rate(dtype=np.complex64)
     predicted = plan.madds / rate
@@ -111,7 +116,8 @@ def part_amplitude(cycles: int, plan, cap_log2: int, workers: int = 1) -> dict:
         # the whole run within the cap: one process on the machine's BLAS threads, or ``workers``
         # processes on one thread each sharing the cap (the plan must fit a share)
         run = amplitudes(circ, ["0" * circ.num_qubits], engine="single", dtype="complex64", plan_store=store,
-                         planner=None, memory_bytes=2 ** cap_log2 * 8, workers=workers)
+                         planner=None, memory_bytes=2 ** cap_log2 * 8, workers=workers,
+                         progress=lambda p: print(f"{p}", file=sys.stderr, flush=True))
     dt = time.perf_counter() - t
     out.update(seconds=round(dt, 1), workers=workers, peak_rss_self_bytes=memory.self_bytes,
                peak_rss_workers_bytes=memory.descendants_bytes, cap_bytes=2 ** cap_log2 * 8,
