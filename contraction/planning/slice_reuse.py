@@ -27,8 +27,8 @@ REUSE_SHARE_OF_HEADROOM = 2.0
 
 def reuse_budget(worker_elements: float, peak_elements: float, width_log2: float = 0.0) -> float:
     """Elements one worker may keep between slices: a share of its cap above the plan's peak and one
-    more copy of its largest intermediate (``2^width_log2`` elements: a step that rearranges its big
-    operand holds the operand, its rearranged copy and the output at once; the plan's peak counts two)."""
+    more copy of its largest intermediate (``2^width_log2`` elements: a step whose big operand is kept
+    between slices holds it, its rearranged copy and the output at once; the plan's peak counts two)."""
     headroom = worker_elements - peak_elements - (2.0 ** width_log2 if width_log2 > 0 else 0.0)
     return max(0.0, headroom) / REUSE_SHARE_OF_HEADROOM
 
