@@ -38,12 +38,9 @@ SEARCH_REPORT_SECONDS = 2.0
 
 
 def _init_worker() -> None:
-    from threadpoolctl import threadpool_limits
+    from contraction.execution.slices import prepare_contraction_process
 
-    from contraction.execution.slices import keep_freed_memory
-
-    threadpool_limits(1)
-    keep_freed_memory()          # a job process contracts: it reuses freed intermediates' memory
+    prepare_contraction_process()        # a job process contracts: one BLAS thread, freed memory kept
 
 
 def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_scheduler: str | None = None,

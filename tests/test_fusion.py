@@ -50,6 +50,8 @@ def test_fusion_lowers_the_modelled_cost_and_keeps_the_plan_valid():
     kw = dict(big_min=2 ** 6, small_max=2 ** 4, group_max=2 ** 6, move_cost=8.0)
     fused = fuse_absorptions(tree, **kw)
 
+    # the project's own cost model (no outside source: it is what the rewrite promises to lower; the
+    # measured slice times behind it are in planning/fusion.py); writes are cotengra's count
     def modelled(t):   # multiply-adds + 8 x elements written (the module's cost model, outputs only)
         return t.contraction_cost() + 8.0 * t.total_write()
 

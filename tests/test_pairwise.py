@@ -53,7 +53,8 @@ def test_grid_program_matches_the_state_vector(rng):
     plan = find_plan(s, PlannerOptions(budget_seconds=1.0, max_elements=2 ** 12))
     tree = plan.tree(s)
     prog = compile_program(tree)
-    # most steps use the bigger operand as it lies (the point of the step program)
+    # most steps use the bigger operand as it lies (the step program's design promise, no outside
+    # source; the values below are checked against the state vector)
     assert sum(st.left_perm is None or st.right_perm is None for st in prog.steps) > len(prog.steps) // 2
     psi = state_vector(c)
     for k in rng.choice(2 ** 20, size=4, replace=False):

@@ -103,11 +103,17 @@ def keep_freed_memory() -> None:
         pass
 
 
-def _init_worker(tree) -> None:
+def prepare_contraction_process() -> None:
+    """Set up a process whose work is contracting: one BLAS thread (processes, not threads, run side by
+    side) and freed memory kept for the next step (:func:`keep_freed_memory`)."""
     from threadpoolctl import threadpool_limits
 
     threadpool_limits(1)
     keep_freed_memory()
+
+
+def _init_worker(tree) -> None:
+    prepare_contraction_process()
     _worker_state["tree"] = tree
 
 

@@ -207,7 +207,8 @@ def network_option(circuit: Circuit, batch: int, dtype: str, rate: MachineRate, 
     s = structure or build_structure(circuit, batch=batch if batch > 1 else 0, open_qubits=open_qubits)
     c = network_plan(s, store, planner, memory_bytes, dtype)
     # slices keep intermediates between them within the worker's cap: only that share of the work runs
-    share = reuse_plan_for(c.tree, reuse_budget(memory_bytes / np.dtype(dtype).itemsize, c.plan.peak_elements, c.plan.width)).work_share
+    budget = reuse_budget(memory_bytes / np.dtype(dtype).itemsize, c.plan.peak_elements, c.plan.width)
+    share = reuse_plan_for(c.tree, budget).work_share
     return Option("batch" if batch > 1 else "single", share * network_seconds(c.plan, s, rate, dtype),
                   c.plan.peak_bytes(dtype), batch, c, c.from_store, c.plan.madds)
 

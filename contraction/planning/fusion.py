@@ -119,26 +119,21 @@ def fuse_absorptions(tree, big_min: float = BIG_MIN, small_max: float = SMALL_MA
             i = j
         return out
 
-    try:
-        nested = build(tree.root)
-    except RecursionError:         # a tree deeper than Python's recursion limit is left as it is
-        return tree
-    if not fused:
-        return tree
     path: list[tuple[int, int]] = []
-    counter = [tree.N]
 
     def emit(x) -> int:
+        """SSA path of nested pairs: the k-th contraction makes tensor N + k."""
         if isinstance(x, int):
             return x
-        a, b = emit(x[0]), emit(x[1])
-        path.append((a, b))
-        counter[0] += 1
-        return counter[0] - 1
+        path.append((emit(x[0]), emit(x[1])))
+        return tree.N + len(path) - 1
 
     try:
+        nested = build(tree.root)
+        if not fused:
+            return tree
         emit(nested)
-    except RecursionError:
+    except RecursionError:         # a tree deeper than Python's recursion limit is left as it is
         return tree
     new = ctg.ContractionTree.from_path(tree.inputs, tree.output, tree.size_dict, ssa_path=path)
     for ix in tree.sliced_inds:

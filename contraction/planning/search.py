@@ -402,9 +402,10 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
     chosen for the cap; then a subtree reconfiguration and slicing of the best tree, stopped by the
     deadline (slicing may take 5 % + 1 s more); last, small tensors absorbed one by one into large
     intermediates are grouped (:mod:`contraction.planning.fusion`; the searched tree's multiply-adds
-    are kept in the plan's options as ``madds_before_fusion``). With ``parallel`` > 1 the deadline is hard: trials still
-    running are ended. Raises :class:`MemoryLimitError` when no tree within ``max_elements`` is found,
-    with the best figures found ("not feasible" when it would take more than 2^48 slices).
+    are kept in the plan's options as ``madds_before_fusion``). With ``parallel`` > 1 the deadline is
+    hard: trials still running are ended. Raises :class:`MemoryLimitError` when no tree within
+    ``max_elements`` is found, with the best figures found ("not feasible" when it would take more than
+    2^48 slices).
     """
     import cotengra as ctg
 
