@@ -3,7 +3,9 @@
 :class:`SliceContractor` runs the slices of one task (one set of arrays) with the step program of
 :mod:`contraction.execution.pairwise`, in the slice order and with the kept intermediates of a
 :class:`~contraction.planning.slice_reuse.ReusePlan`: a kept step whose sliced indices have not
-changed since it was computed is taken from the cache, and its whole subtree skipped.
+changed since it was computed is taken from the cache, and its whole subtree skipped. Large arrays
+(step outputs and rearranged operands) have fixed places in one
+:class:`~contraction.execution.arena.Arena`, laid out for the program and its kept intermediates.
 """
 
 from __future__ import annotations
@@ -12,6 +14,7 @@ from typing import Sequence
 
 import numpy as np
 
+from contraction.execution.arena import ARENA_MIN_BYTES, LEFT, OUT, RIGHT, Arena, plan_arena
 from contraction.execution.pairwise import arrange_operand, program_for
 from contraction.planning.slice_reuse import ReusePlan
 
@@ -22,7 +25,8 @@ class SliceContractor:
     Slice numbers run over the same range as the tree's, mapped to index values in the reuse plan's
     order, so a run over 0..nslices-1 (or any split of it) covers every slice exactly once."""
 
-    def __init__(self, tree, arrays: Sequence[np.ndarray], plan: ReusePlan | None = None):
+    def __init__(self, tree, arrays: Sequence[np.ndarray], plan: ReusePlan | None = None,
+                 arena_min_bytes: int = ARENA_MIN_BYTES):
         plan = plan or ReusePlan(tuple(tree.sliced_inds), {}, 1.0)
         self.tree, self.arrays, self.plan = tree, list(arrays), plan
         self.program = program_for(tree)
@@ -32,6 +36,17 @@ class SliceContractor:
         self._sliced_inputs = [(c, tuple(tree.inputs[c])) for c in sorted(tree.sliced_inputs)]
         m = self.program.num_inputs
         self._operands = [tuple(src - m for src in (st.left, st.right) if src >= m) for st in self.program.steps]
+        self.dtype = np.result_type(*self.arrays) if self.arrays else np.dtype(np.complex128)
+        self.arena = Arena(plan_arena(self.program, set(plan.kept), self.dtype.itemsize, arena_min_bytes))
+
+    def _arranged(self, k: int, role: str, x: np.ndarray, perm, shape) -> np.ndarray:
+        """``x`` in step ``k``'s matrix layout; a rearranged copy goes to its place in the arena."""
+        if perm is None:
+            return arrange_operand(x, None, shape)
+        moved = x.transpose(perm)
+        copy = self.arena.array(k, role, moved.shape, moved.dtype)
+        np.copyto(copy, moved)
+        return arrange_operand(copy, None, shape)
 
     def key(self, i: int) -> dict:
         """Values of the sliced indices for slice ``i`` (first index of the order slowest)."""
@@ -78,9 +93,15 @@ class SliceContractor:
                 slots[st.out] = self.cache[k][1]
                 continue
             self.madds_done += st.madds
-            x = arrange_operand(slots.pop(st.left), st.left_perm, st.left_shape)
-            y = arrange_operand(slots.pop(st.right), st.right_perm, st.right_shape)
-            out = np.matmul(x, y).reshape(st.out_shape)
+            x = self._arranged(k, LEFT, slots.pop(st.left), st.left_perm, st.left_shape)
+            y = self._arranged(k, RIGHT, slots.pop(st.right), st.right_perm, st.right_shape)
+            dtype = np.result_type(x, y)
+            if dtype != self.dtype:                      # mixed precisions: not what the arena was laid out for
+                out = np.matmul(x, y)
+            else:
+                out = self.arena.array(k, OUT, x.shape[:-1] + y.shape[-1:], dtype)
+                np.matmul(x, y, out=out)
+            out = out.reshape(st.out_shape)
             del x, y
             if k in self.plan.kept:
                 self.cache[k] = (keys[k], out)
@@ -88,4 +109,6 @@ class SliceContractor:
         out = slots[prog.final_slot]
         if prog.final_perm is not None:
             out = out.transpose(prog.final_perm)
+        if self.arena.holds(out):
+            return np.array(out)                         # the caller's own copy: the next slice overwrites it
         return np.asarray(out)

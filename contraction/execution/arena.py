@@ -1,0 +1,115 @@
+"""Memory for the large arrays of a slice, laid out once per step program and reused by every slice.
+
+A sliced contraction allocates and frees arrays of 2^25-2^28 elements at every step. Taken from the C
+heap (which :func:`contraction.execution.slices.keep_freed_memory` never trims, so pages are not
+faulted in again) they run fast, but the heap keeps freed blocks it cannot fit the next request into:
+the 53-qubit 12-cycle run peaked at 10.1 GB of resident memory against an 8 GiB cap. Mapping each array
+afresh keeps within the cap but faults every page in again: 2.5-3x slower a slice (measured). A pool
+of buffers reused by size still held 2.75 GiB more than the live arrays needed (measured: 10.1 GiB
+mapped for a live peak of 7.3 GiB).
+
+Every slice runs the same program of steps, so the large arrays' lifetimes are known before the first
+slice: a step's output lives from its step to the step that consumes it, a rearranged operand only
+during its step, an intermediate kept between slices for good. :func:`plan_arena` places them at byte
+offsets of one arena so that no two arrays alive at the same step overlap (largest first, each at the
+lowest offset free over its lifetime — the greedy-by-size placement common in compilers' memory
+planners), and :class:`Arena` maps that arena once. Memory is then the arena's size, known before the
+work starts, and after the first slice no page is faulted in again. Steps a slice skips (kept
+intermediates still valid) simply leave their places unused.
+"""
+
+from __future__ import annotations
+
+import mmap
+from dataclasses import dataclass
+
+import numpy as np
+
+from contraction.execution.pairwise import Program
+
+#: arrays smaller than this many bytes come from numpy's allocator as usual (common practice threshold:
+#: the C heap serves them well)
+ARENA_MIN_BYTES = 1 << 23
+
+#: every place starts at a multiple of this (one page: common practice)
+_ALIGN = 4096
+
+LEFT, RIGHT, OUT = "left", "right", "out"
+
+
+@dataclass(frozen=True)
+class ArenaPlan:
+    """Byte offsets of the large arrays of a step program, by (step, role), and the arena's size."""
+
+    offsets: dict
+    nbytes: int
+    live_peak_bytes: int             # the most bytes alive at one step (a lower bound on nbytes)
+
+
+def _lifetimes(program: Program, kept: set[int], itemsize: int, min_bytes: int) -> list[tuple]:
+    """(start step, end step, bytes, key) of every array the arena holds."""
+    m = program.num_inputs
+    last = len(program.steps) - 1
+    consumer = {}
+    for k, st in enumerate(program.steps):
+        consumer[st.left] = consumer[st.right] = k
+    items = []
+    for k, st in enumerate(program.steps):
+        for role, perm, shape in ((LEFT, st.left_perm, st.left_shape), (RIGHT, st.right_perm, st.right_shape)):
+            nbytes = int(np.prod(shape)) * itemsize
+            if perm is not None and nbytes >= min_bytes:
+                items.append((k, k, nbytes, (k, role)))
+        nbytes = int(np.prod(st.out_shape)) * itemsize
+        if nbytes >= min_bytes:
+            if k in kept:
+                start, end = 0, last                       # kept between slices: its place is its own
+            else:
+                start, end = k, consumer.get(m + k, last)
+            items.append((start, end, nbytes, (k, OUT)))
+    return items
+
+
+def plan_arena(program: Program, kept: set[int], itemsize: int, min_bytes: int = ARENA_MIN_BYTES) -> ArenaPlan:
+    """Places for the program's large arrays (see the module notes)."""
+    items = _lifetimes(program, kept, itemsize, min_bytes)
+    placed: list[tuple[int, int, int, int]] = []           # (start, end, offset, size)
+    offsets = {}
+    top = 0
+    for start, end, nbytes, key in sorted(items, key=lambda it: (-it[2], it[0])):
+        size = -(-nbytes // _ALIGN) * _ALIGN
+        busy = sorted((off, off + sz) for s, e, off, sz in placed if s <= end and start <= e)
+        offset = 0
+        for lo, hi in busy:
+            if offset + size <= lo:
+                break
+            offset = max(offset, hi)
+        placed.append((start, end, offset, size))
+        offsets[key] = offset
+        top = max(top, offset + size)
+    steps = len(program.steps)
+    live = [0] * max(steps, 1)
+    for start, end, nbytes, _ in items:
+        for k in range(start, end + 1):
+            live[k] += nbytes
+    return ArenaPlan(offsets, top, max(live))
+
+
+class Arena:
+    """One mapping holding the large arrays of an :class:`ArenaPlan`."""
+
+    def __init__(self, plan: ArenaPlan):
+        self.plan = plan
+        self._bytes = np.frombuffer(mmap.mmap(-1, plan.nbytes), np.uint8) if plan.nbytes else None
+
+    def array(self, step: int, role: str, shape: tuple[int, ...], dtype) -> np.ndarray:
+        """The array of ``role`` at ``step`` in its place, or a fresh one when the plan has none for it."""
+        offset = self.plan.offsets.get((step, role))
+        if offset is None:
+            return np.empty(shape, dtype)
+        dtype = np.dtype(dtype)
+        count = int(np.prod(shape))
+        return self._bytes[offset:offset + count * dtype.itemsize].view(dtype).reshape(shape)
+
+    def holds(self, x: np.ndarray) -> bool:
+        """Whether ``x`` lies in this arena (its contents change with the next slice)."""
+        return self._bytes is not None and np.may_share_memory(x, self._bytes)
