@@ -8,6 +8,8 @@ Quantum Information, 2010, §4.2: gates applied as matrices to the state); slici
 here by brute force over every pair of arrays.
 """
 
+import gc
+
 import numpy as np
 import pytest
 
@@ -71,3 +73,21 @@ def test_a_returned_slice_is_the_callers_own(rng):
     sc.contract(1)
     assert np.array_equal(first, kept)
     assert not sc.arena.holds(first)
+
+
+def test_a_kept_mapping_serves_one_arena_at_a_time(monkeypatch):
+    from contraction.execution import arena as arena_module
+
+    monkeypatch.setattr(arena_module, "_keep_idle", True)
+    monkeypatch.setattr(arena_module, "_idle", [])
+    plan = arena_module.ArenaPlan({(0, "out"): 0}, 8192, 8192)
+    a, b = arena_module.Arena(plan), arena_module.Arena(plan)
+    assert not np.may_share_memory(a._bytes, b._bytes)             # both alive: two mappings
+    address = a._bytes.ctypes.data
+    del a
+    gc.collect()
+    c = arena_module.Arena(plan)                                      # a's mapping, now free, is reused
+    assert c._bytes.ctypes.data == address
+    assert not np.may_share_memory(c._bytes, b._bytes)
+    d = arena_module.Arena(plan)                                      # nothing idle: a new one
+    assert not np.may_share_memory(d._bytes, c._bytes) and not np.may_share_memory(d._bytes, b._bytes)

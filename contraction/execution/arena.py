@@ -21,6 +21,8 @@ intermediates still valid) simply leave their places unused.
 from __future__ import annotations
 
 import mmap
+import threading
+import weakref
 from dataclasses import dataclass
 
 import numpy as np
@@ -94,12 +96,43 @@ def plan_arena(program: Program, kept: set[int], itemsize: int, min_bytes: int =
     return ArenaPlan(offsets, top, max(live))
 
 
+_idle: list[np.ndarray] = []          # at most one mapping no arena uses, kept for the next one
+_idle_lock = threading.Lock()
+_keep_idle = False
+
+
+def keep_idle_mapping() -> None:
+    """Keep the mapping of an arena no longer used (at most one) for the next arena of this process,
+    so a process that runs task after task faults its pages in once. For processes whose work is
+    contracting (:func:`contraction.execution.slices.keep_freed_memory` calls it); others give an
+    arena's memory back as soon as its contractor is gone."""
+    global _keep_idle
+    _keep_idle = True
+
+
+def _mapping(nbytes: int) -> np.ndarray:
+    with _idle_lock:
+        if _idle and _idle[0].nbytes >= nbytes:
+            return _idle.pop()
+        _idle.clear()
+    return np.frombuffer(mmap.mmap(-1, nbytes), np.uint8)
+
+
+def _give_back(mapping: np.ndarray) -> None:
+    with _idle_lock:
+        if not _idle or _idle[0].nbytes < mapping.nbytes:
+            _idle[:] = [mapping]
+
+
 class Arena:
-    """One mapping holding the large arrays of an :class:`ArenaPlan`."""
+    """One mapping holding the large arrays of an :class:`ArenaPlan`; one arena's mapping is never
+    another's while both exist."""
 
     def __init__(self, plan: ArenaPlan):
         self.plan = plan
-        self._bytes = np.frombuffer(mmap.mmap(-1, plan.nbytes), np.uint8) if plan.nbytes else None
+        self._bytes = _mapping(plan.nbytes) if plan.nbytes else None
+        if self._bytes is not None and _keep_idle:
+            weakref.finalize(self, _give_back, self._bytes)
 
     def array(self, step: int, role: str, shape: tuple[int, ...], dtype) -> np.ndarray:
         """The array of ``role`` at ``step`` in its place, or a fresh one when the plan has none for it."""

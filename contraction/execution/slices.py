@@ -19,6 +19,7 @@ from typing import Callable, Protocol, Sequence
 import numpy as np
 
 from contraction.errors import Cancelled
+from contraction.execution.arena import keep_idle_mapping
 from contraction.execution.executor import CancelCheck, contract_slice_scaled, sum_scaled
 from contraction.execution.reuse import SliceContractor
 from contraction.planning.engine_choice import Contraction
@@ -89,12 +90,14 @@ def keep_freed_memory() -> None:
     1.3-1.4x slower than with this setting). The heap is never trimmed: with glibc's default trim
     threshold capped at 2 GiB, each slice of the 53-qubit network (2^27-element intermediates) gave
     its memory back and faulted it in again, 16 s a slice against 11.4 s untrimmed. A worker thus keeps
-    its peak (which the memory cap bounds) until it exits. Called once per contraction worker process;
-    a no-op where glibc is not the C library."""
+    its peak (which the memory cap bounds) until it exits, and likewise the mapping of its last
+    arena (:func:`contraction.execution.arena.keep_idle_mapping`). Called once per contraction worker
+    process; the heap setting is a no-op where glibc is not the C library."""
     global _kept
     if _kept:
         return
     _kept = True
+    keep_idle_mapping()
     try:
         libc = ctypes.CDLL("libc.so.6")
         libc.mallopt(_M_MMAP_MAX, 0)                # large arrays from the heap, not fresh mappings

@@ -3,7 +3,7 @@ amplitude with the stored plan, and the time bound of ``estimate`` on large text
 
 Prints one JSON line per part; every ratio is against a baseline measured in this same run.
 
-    python tests/benchmarks/bench_scale53.py [--parts pae] [--budget 300] [--cycles 12]
+    python tests/benchmarks/bench_scale53.py [--parts pbace] [--budget 300] [--cycles 12]
         [--cap-log2 30] [--estimate-budget 60]
 
 Part p: veramp's ``find_plan`` (structure-only simplification, slicing inside every trial, whole
@@ -16,6 +16,16 @@ on the machine's BLAS threads (default) or ``--amp-workers`` processes on one th
 it (the plan's target is then a quarter of a share); wall time and peak RSS of this process and of
 its workers (measured, not estimated), against the time at the matrix-multiply rate measured in the
 same run.
+Part c: checks that do not trust the engine, at 53 qubits: the patch circuit of the grid (every gate
+between rows 0-2 and rows 3-5 removed) against the product of its halves' state-vector amplitudes
+(tensor-product rule, Nielsen & Chuang 2010, §2.1.7), and two plans with different slicings (searched
+with different seeds and targets) of the full circuit with ``--check-cycles`` cycles, which must agree
+to 1e-10 relative in complex128 and 1e-5 in complex64 (common practice for these precisions).
+Part b: a batch of ``--batch`` uncorrelated bitstrings (|0...0> and random ones) sharing one
+contraction (a batch index on the projectors): its plan, searched with the same budget and target as
+part p's, against part p's plan (ratio of multiply-adds); with ``--run-batch`` it is contracted in
+complex64 (time, peak RSS) and its |0...0> entry compared with part a's amplitude when given
+(``--amplitude RE IM``: two plans of the same amplitude, 1e-5 relative in complex64).
 Part e: ``estimate`` with a 60 s budget on a 32-qubit quantum-volume circuit of depth 32, a
 63-qubit QFT and a 45-qubit ripple-carry adder (generated from their published definitions).
 """
@@ -128,6 +138,90 @@ def part_amplitude(cycles: int, plan, cap_log2: int, workers: int = 1) -> dict:
     return out
 
 
+def part_batch(cycles: int, budget: float, cap_log2: int, target_log2: float, single, batch: int,
+               run: bool, amplitude: complex | None) -> dict:
+    from contraction.execution.executor import contract_array
+    from contraction.execution.slices import keep_freed_memory
+    from contraction.network.builder import build_structure, tensor_arrays
+    from contraction.planning.search import PlannerOptions, find_plan
+
+    circ = w53(cycles)
+    sb = build_structure(circ, batch=batch)
+    t = time.perf_counter()
+    plan = find_plan(sb, PlannerOptions(budget_seconds=budget, max_elements=2 ** target_log2, parallel=2,
+                                        minimize="flops"))
+    out = {"part": "b_batch", "batch": batch, "cycles": cycles, "plan_seconds": round(time.perf_counter() - t, 1),
+           "log10_madds": round(math.log10(plan.madds), 3), "slices": plan.nslices, "width_log2": plan.width,
+           "single_log10_madds": round(math.log10(single.madds), 3),
+           "madds_ratio_to_single": round(plan.madds / single.madds, 2), "goal_time_ratio_max": 4.0}
+    if not run:
+        return out
+    keep_freed_memory()
+    rng = np.random.default_rng(5)
+    bits = ["0" * circ.num_qubits] + ["".join(rng.choice(["0", "1"], size=circ.num_qubits)) for _ in range(batch - 1)]
+    arrays = tensor_arrays(sb, circ, bits, dtype="complex64")
+    from rss import PeakRss
+
+    t = time.perf_counter()
+    with PeakRss() as memory:
+        values = contract_array(plan.tree(sb), arrays,
+                                progress=lambda p: print(f"{p}", file=sys.stderr, flush=True))
+    out.update(seconds=round(time.perf_counter() - t, 1), peak_rss_self_bytes=memory.self_bytes,
+               cap_bytes=2 ** cap_log2 * 8, first=[complex(values[0]).real, complex(values[0]).imag])
+    if amplitude is not None:
+        diff = abs(complex(values[0]) - amplitude) / abs(amplitude)
+        out["agreement_with_part_a"] = {"relative_difference": diff, "tolerance": 1e-5, "agree": diff <= 1e-5}
+    return out
+
+
+def part_checks(cycles: int, check_cycles: int, cap_log2: int, budget: float) -> dict:
+    from contraction.circuits.patches import elide, split
+    from contraction.execution.amplitudes import amplitudes
+    from contraction.execution.executor import contract_scalar
+    from contraction.execution.slices import keep_freed_memory
+    from contraction.execution.statevector import state_vector
+    from contraction.network.builder import build_structure, tensor_arrays
+    from contraction.planning.search import PlannerOptions, find_plan
+
+    keep_freed_memory()
+    rng = np.random.default_rng(7)
+    out: dict = {"part": "c_checks"}
+    full = w53(cycles)
+    top = list(range(27))                              # rows 0-2 of the 6 x 9 grid (site 53 removed)
+    patch = elide(full, top)
+    a, b, qa, qb = split(patch, top)
+    bits = "".join(rng.choice(["0", "1"], size=full.num_qubits))
+    t = time.perf_counter()
+    got = amplitudes(patch, [bits], engine="single", planner=PlannerOptions(budget_seconds=30.0, parallel=2),
+                     memory_bytes=2 ** cap_log2 * 16).results[0].amplitude
+    engine_s = time.perf_counter() - t
+    want = complex(state_vector(a)[int("".join(bits[q] for q in qa), 2)])
+    want *= complex(state_vector(b)[int("".join(bits[q] for q in qb), 2)])
+    out["patch"] = {"cycles": cycles, "qubits": [a.num_qubits, b.num_qubits], "engine": [got.real, got.imag],
+                    "product_of_halves": [want.real, want.imag], "engine_seconds": round(engine_s, 1),
+                    "relative_difference": abs(got - want) / abs(want), "tolerance": 1e-10,
+                    "agree": abs(got - want) <= 1e-10 * abs(want)}
+    circ = w53(check_cycles)
+    s = build_structure(circ)
+    plans = [find_plan(s, PlannerOptions(budget_seconds=budget, max_elements=2.0 ** (cap_log2 - 2 - k),
+                                         parallel=2, seed=seed)) for k, seed in ((0, 1), (4, 2))]
+    rows = []
+    for dtype, tol in (("complex128", 1e-10), ("complex64", 1e-5)):
+        arrays = tensor_arrays(s, circ, bits, dtype=dtype)
+        values, seconds = [], []
+        for plan in plans:
+            t = time.perf_counter()
+            values.append(contract_scalar(plan.tree(s), arrays))
+            seconds.append(round(time.perf_counter() - t, 1))
+        diff = abs(values[0] - values[1]) / abs(values[0])
+        rows.append({"dtype": dtype, "amplitudes": [[v.real, v.imag] for v in values], "seconds": seconds,
+                     "relative_difference": diff, "tolerance": tol, "agree": diff <= tol})
+    out["two_plans"] = {"cycles": check_cycles, "slices": [p.nslices for p in plans],
+                        "sliced_indices": [list(p.sliced) for p in plans],
+                        "log10_madds": [round(math.log10(p.madds), 3) for p in plans], "runs": rows}
+    return out
+
+
 def part_estimate(budget: float) -> dict:
     from contraction.circuits.textbook import qft, quantum_volume, ripple_carry_adder
     from contraction.errors import MemoryLimitError
@@ -154,11 +248,18 @@ def part_estimate(budget: float) -> dict:
 
 def main() -> None:
     ap = argparse.ArgumentParser()
-    ap.add_argument("--parts", default="pae")
+    ap.add_argument("--parts", default="pace")
     ap.add_argument("--budget", type=float, default=300.0)
     ap.add_argument("--cycles", type=int, default=12)
     ap.add_argument("--cap-log2", type=int, default=30)
     ap.add_argument("--estimate-budget", type=float, default=60.0)
+    ap.add_argument("--batch", type=int, default=64, help="part b: bitstrings in the batch")
+    ap.add_argument("--run-batch", action="store_true", help="part b: contract the batch too")
+    ap.add_argument("--amplitude", type=float, nargs=2, default=None,
+                    help="part b: part a's amplitude of |0...0> (real, imaginary) to compare with")
+    ap.add_argument("--check-cycles", type=int, default=12,
+                    help="part c: cycles of the circuit whose two plans must agree")
+    ap.add_argument("--check-budget", type=float, default=60.0, help="part c: planning budget of each plan")
     ap.add_argument("--no-baseline", action="store_true", help="part p without the quimb + cotengra baseline")
     ap.add_argument("--save-plan", default=None, help="write part p's plan (JSON) to this file")
     ap.add_argument("--load-plan", default=None, help="part a with this stored plan instead of part p's")
@@ -172,8 +273,8 @@ def main() -> None:
         from contraction.planning.search import Plan
 
         plan = Plan.from_json(open(args.load_plan).read())
-    if "p" in args.parts or ("a" in args.parts and plan is None):
-        target_log2 = args.target_log2 or args.cap_log2 - 2 - math.log2(args.amp_workers)
+    target_log2 = args.target_log2 or args.cap_log2 - 2 - math.log2(args.amp_workers)
+    if "p" in args.parts or (("a" in args.parts or "b" in args.parts) and plan is None):
         doc, plan = part_plan(args.cycles, args.budget, args.cap_log2, baseline=not args.no_baseline,
                               target_log2=target_log2)
         emit(doc)
@@ -182,6 +283,11 @@ def main() -> None:
                 f.write(plan.to_json())
     if "a" in args.parts:
         emit(part_amplitude(args.cycles, plan, args.cap_log2, args.amp_workers))
+    if "b" in args.parts:
+        emit(part_batch(args.cycles, args.budget, args.cap_log2, target_log2, plan, args.batch, args.run_batch,
+                        complex(*args.amplitude) if args.amplitude else None))
+    if "c" in args.parts:
+        emit(part_checks(args.cycles, args.check_cycles, args.cap_log2, args.check_budget))
     if "e" in args.parts:
         emit(part_estimate(args.estimate_budget))
 
