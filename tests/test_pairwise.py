@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 from contraction.circuits.random_instances import grid_architecture, random_instance
-from contraction.execution.pairwise import compile_program
+from contraction.execution.pairwise import compile_program, copy_into
 from contraction.execution.reuse import SliceContractor
 from contraction.execution.statevector import state_vector
 from contraction.network.builder import build_structure, tensor_arrays
@@ -62,3 +62,15 @@ def test_grid_program_matches_the_state_vector(rng):
         sc = SliceContractor(tree, tensor_arrays(s, c, bits))
         total = sum(complex(sc.contract(i)) for i in range(tree.nslices))
         assert abs(total - psi[int(k)]) < 1e-12
+
+
+@pytest.mark.parametrize("threads", [1, 2, 3])
+def test_a_copy_split_over_threads_equals_numpys(threads):
+    # reference: numpy's own copy of the same transposed view
+    rng = np.random.default_rng(threads)
+    for shape in [(2,) * 10, (3, 5, 7, 2), (1, 1, 6, 4), (5,)]:
+        x = rng.normal(size=shape) + 1j * rng.normal(size=shape)
+        moved = x.transpose(tuple(reversed(range(len(shape)))))
+        dst = np.empty(moved.shape, moved.dtype)
+        copy_into(dst, moved, threads, min_bytes=0)
+        assert np.array_equal(dst, moved)

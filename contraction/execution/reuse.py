@@ -15,7 +15,7 @@ from typing import Sequence
 import numpy as np
 
 from contraction.execution.arena import ARENA_MIN_BYTES, LEFT, OUT, RIGHT, Arena, plan_arena
-from contraction.execution.pairwise import arrange_operand, program_for
+from contraction.execution.pairwise import arrange_operand, blas_threads, copy_into, program_for
 from contraction.planning.slice_reuse import ReusePlan
 
 
@@ -37,6 +37,7 @@ class SliceContractor:
         m = self.program.num_inputs
         self._operands = [tuple(src - m for src in (st.left, st.right) if src >= m) for st in self.program.steps]
         self.dtype = np.result_type(*self.arrays) if self.arrays else np.dtype(np.complex128)
+        self.threads = blas_threads()                    # rearranging copies run on as many threads as BLAS
         self.arena = Arena(plan_arena(self.program, set(plan.kept), self.dtype.itemsize, arena_min_bytes))
 
     def _arranged(self, k: int, role: str, x: np.ndarray, perm, shape) -> np.ndarray:
@@ -45,7 +46,7 @@ class SliceContractor:
             return arrange_operand(x, None, shape)
         moved = x.transpose(perm)
         copy = self.arena.array(k, role, moved.shape, moved.dtype)
-        np.copyto(copy, moved)
+        copy_into(copy, moved, self.threads)
         return arrange_operand(copy, None, shape)
 
     def key(self, i: int) -> dict:
