@@ -17,6 +17,7 @@ permutations and shapes) and run for every slice by :class:`contraction.executio
 from __future__ import annotations
 
 import math
+import os
 import threading
 import weakref
 from concurrent.futures import ThreadPoolExecutor
@@ -181,8 +182,9 @@ def arrange_operand(x: np.ndarray, perm: tuple[int, ...] | None, shape: tuple[in
 #: the work to threads costs about what it saves)
 COPY_SPLIT_BYTES = 1 << 22
 
-_copiers: list = []                      # [(threads, executor)]: at most one, made when first needed
+_copiers: dict[int, ThreadPoolExecutor] = {}     # by thread count, made when first needed, never shut down
 _copiers_lock = threading.Lock()
+os.register_at_fork(after_in_child=_copiers.clear)  # a forked child has none of its parent's threads
 
 
 def blas_threads() -> int:
@@ -195,11 +197,9 @@ def blas_threads() -> int:
 
 def _copier(threads: int) -> ThreadPoolExecutor:
     with _copiers_lock:
-        if not _copiers or _copiers[0][0] != threads:
-            if _copiers:
-                _copiers.pop()[1].shutdown(wait=False)
-            _copiers.append((threads, ThreadPoolExecutor(threads, thread_name_prefix="veramp-copy")))
-        return _copiers[0][1]
+        if threads not in _copiers:
+            _copiers[threads] = ThreadPoolExecutor(threads, thread_name_prefix="veramp-copy")
+        return _copiers[threads]
 
 
 def copy_into(dst: np.ndarray, src: np.ndarray, threads: int = 1, min_bytes: int = COPY_SPLIT_BYTES) -> None:
