@@ -236,8 +236,12 @@ def part_checks(cycles: int, check_cycles: int, cap_log2: int, budget: float) ->
             values.append(contract_scalar(plan.tree(s), arrays))
             seconds.append(round(time.perf_counter() - t, 1))
         diff = abs(values[0] - values[1]) / abs(values[0])
-        rows.append({"dtype": dtype, "amplitudes": [[v.real, v.imag] for v in values], "seconds": seconds,
-                     "relative_difference": diff, "tolerance": tol, "agree": diff <= tol})
+        row = {"dtype": dtype, "amplitudes": [[v.real, v.imag] for v in values], "seconds": seconds,
+               "relative_difference": diff, "tolerance": tol, "agree": diff <= tol}
+        if rows:                                        # each plan's complex64 value against its complex128 one
+            row["relative_to_complex128"] = [abs(complex(*v) - complex(*w)) / abs(complex(*w))
+                                             for v, w in zip(row["amplitudes"], rows[0]["amplitudes"])]
+        rows.append(row)
     out["two_plans"] = {"cycles": check_cycles, "slices": [p.nslices for p in plans],
                         "sliced_indices": [list(p.sliced) for p in plans],
                         "log10_madds": [round(math.log10(p.madds), 3) for p in plans], "runs": rows}
