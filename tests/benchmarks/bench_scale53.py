@@ -19,7 +19,8 @@ same run.
 Part c: checks that do not trust the engine, at 53 qubits: the patch circuit of the grid (every gate
 between rows 0-2 and rows 3-5 removed) against the product of its halves' state-vector amplitudes
 (tensor-product rule, Nielsen & Chuang 2010, §2.1.7), and two plans with different slicings (searched
-with different seeds and targets) of the full circuit with ``--check-cycles`` cycles, which must agree
+with different seeds and targets) of the full circuit with ``--check-cycles`` cycles (default 10; at 12,
+run part a with two stored plans instead), which must agree
 to 1e-10 relative in complex128 and 1e-5 in complex64 (common practice for these precisions).
 Part b: a batch of ``--batch`` uncorrelated bitstrings (|0...0> and random ones) sharing one
 contraction (a batch index on the projectors): its plan, searched with the same budget and target as
@@ -283,8 +284,9 @@ def main() -> None:
     ap.add_argument("--run-batch", action="store_true", help="part b: contract the batch too")
     ap.add_argument("--amplitude", type=float, nargs=2, default=None,
                     help="part b: part a's amplitude of |0...0> (real, imaginary) to compare with")
-    ap.add_argument("--check-cycles", type=int, default=12,
-                    help="part c: cycles of the circuit whose two plans must agree")
+    ap.add_argument("--check-cycles", type=int, default=10,
+                    help="part c: cycles of the circuit whose two plans must agree (12 takes four runs of "
+                         "15-40 min; compare two part a runs with --load-plan instead)")
     ap.add_argument("--check-budget", type=float, default=60.0, help="part c: planning budget of each plan")
     ap.add_argument("--no-baseline", action="store_true", help="part p without the quimb + cotengra baseline")
     ap.add_argument("--save-plan", default=None, help="write part p's plan (JSON) to this file")
