@@ -24,6 +24,7 @@ import numpy as np
 
 from contraction.circuits.random_instances import grid_architecture, random_instance
 from contraction.execution.amplitudes import amplitudes
+from contraction.execution.pairwise import blas_threads
 from contraction.execution.statevector import apply_gate_in_place
 from contraction.network.builder import build_structure
 from contraction.planning.rates import MachineRate, read_rate
@@ -101,7 +102,6 @@ def _statevector_update_time() -> float:
 def measure() -> MachineRate:
     """Run the calibration (a few seconds)."""
     from scipy.optimize import nnls
-    from threadpoolctl import threadpool_info
 
     rate = matmul_rate()
     rows, times = [], []
@@ -113,9 +113,8 @@ def measure() -> MachineRate:
     coef, _ = nnls(np.array(rows), np.array(times))
     inv_eff, per_write, per_step = coef
     eff = 1.0 / inv_eff if inv_eff > 0 else 1.0
-    threads = max([i.get("num_threads", 1) for i in threadpool_info()] or [1])
     return MachineRate(rate, float(min(1.0, max(0.01, eff))), float(per_write), float(per_step),
-                       _statevector_update_time(), threads, time.time())
+                       _statevector_update_time(), blas_threads(), time.time())
 
 
 def load_or_measure(path: str | os.PathLike | None, remeasure: bool = False) -> MachineRate:

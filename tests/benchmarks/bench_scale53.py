@@ -3,7 +3,7 @@ amplitude with the stored plan, and the time bound of ``estimate`` on large text
 
 Prints one JSON line per part; every ratio is against a baseline measured in this same run.
 
-    python tests/benchmarks/bench_scale53.py [--parts pbace] [--budget 300] [--cycles 12]
+    python tests/benchmarks/bench_scale53.py [--parts pace] (add b for the batch) [--budget 300] [--cycles 12]
         [--cap-log2 30] [--estimate-budget 60]
 
 Part p: veramp's ``find_plan`` (structure-only simplification, slicing inside every trial, whole
@@ -16,12 +16,6 @@ on the machine's BLAS threads (default) or ``--amp-workers`` processes on one th
 it (the plan's target is then a quarter of a share); wall time and peak RSS of this process and of
 its workers (measured, not estimated), against the time at the matrix-multiply rate measured in the
 same run.
-Part c: checks that do not trust the engine, at 53 qubits: the patch circuit of the grid (every gate
-between rows 0-2 and rows 3-5 removed) against the product of its halves' state-vector amplitudes
-(tensor-product rule, Nielsen & Chuang 2010, §2.1.7), and two plans with different slicings (searched
-with different seeds and targets) of the full circuit with ``--check-cycles`` cycles (default 10; at 12,
-run part a with two stored plans instead), which must agree
-to 1e-10 relative in complex128 and 1e-5 in complex64 (common practice for these precisions).
 Part b: a batch of ``--batch`` uncorrelated bitstrings (|0...0> and random ones) sharing one
 contraction (a batch index on the projectors): its plan, searched with the same budget and target as
 part p's, against part p's plan (ratio of multiply-adds); with ``--run-batch`` it is contracted in
@@ -29,6 +23,12 @@ complex64 (time, peak RSS) and its |0...0> entry compared with part a's amplitud
 (``--amplitude RE IM``: two plans of the same amplitude, 1e-5 relative in complex64). It also reports
 the modelled cost of the batch through part p's single-amplitude tree with every intermediate stacked
 over the distinct restrictions of the bitstrings to its projected qubits (sparse output state).
+Part c: checks that do not trust the engine, at 53 qubits: the patch circuit of the grid (every gate
+between rows 0-2 and rows 3-5 removed) against the product of its halves' state-vector amplitudes
+(tensor-product rule, Nielsen & Chuang 2010, §2.1.7), and two plans with different slicings (searched
+with different seeds and targets) of the full circuit with ``--check-cycles`` cycles (default 10; at 12,
+run part a with two stored plans instead), which must agree
+to 1e-10 relative in complex128 and 1e-5 in complex64 (common practice for these precisions).
 Part e: ``estimate`` with a 60 s budget on a 32-qubit quantum-volume circuit of depth 32, a
 63-qubit QFT and a 45-qubit ripple-carry adder (generated from their published definitions).
 """
@@ -46,6 +46,10 @@ import numpy as np
 
 def emit(doc: dict) -> None:
     print(json.dumps(doc), flush=True)
+
+
+def progress_to_stderr(progress) -> None:
+    print(f"{progress}", file=sys.stderr, flush=True)
 
 
 def w53(cycles: int):
@@ -130,7 +134,7 @@ def part_amplitude(cycles: int, plan, cap_log2: int, workers: int = 1) -> dict:
         # processes on one thread each sharing the cap (the plan must fit a share)
         run = amplitudes(circ, ["0" * circ.num_qubits], engine="single", dtype="complex64", plan_store=store,
                          planner=None, memory_bytes=2 ** cap_log2 * 8, workers=workers,
-                         progress=lambda p: print(f"{p}", file=sys.stderr, flush=True))
+                         progress=progress_to_stderr)
     dt = time.perf_counter() - t
     out.update(seconds=round(dt, 1), workers=workers, peak_rss_self_bytes=memory.self_bytes,
                peak_rss_workers_bytes=memory.descendants_bytes, cap_bytes=2 ** cap_log2 * 8,
@@ -188,7 +192,7 @@ def part_batch(cycles: int, budget: float, cap_log2: int, target_log2: float, si
     t = time.perf_counter()
     with PeakRss() as memory:
         values = contract_array(plan.tree(sb), arrays,
-                                progress=lambda p: print(f"{p}", file=sys.stderr, flush=True))
+                                progress=progress_to_stderr)
     out.update(seconds=round(time.perf_counter() - t, 1), peak_rss_self_bytes=memory.self_bytes,
                cap_bytes=2 ** cap_log2 * 8, first=[complex(values[0]).real, complex(values[0]).imag])
     if amplitude is not None:
