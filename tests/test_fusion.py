@@ -19,10 +19,17 @@ from contraction.planning.search import PlannerOptions, find_plan, plan_from_tre
 
 
 def _tree(rows, cols, cycles, seed, cap=None):
+    """A fixed tree for the instance: seeded randomised greedy (32 repeats), sliced to ``cap`` with a
+    seeded slicer. The timed search of ``find_plan`` returns different trees from run to run, and some
+    of them have nothing to group at the lowered thresholds, which made the first check flaky."""
+    import cotengra as ctg
+
     c = random_instance(grid_architecture(rows, cols, cycles), seed, gates="haar")
     s = build_structure(c)
-    plan = find_plan(s, PlannerOptions(budget_seconds=1.0, max_elements=cap, minimize="flops", fuse=False))
-    return c, s, plan.tree(s)
+    tree = ctg.RandomGreedyOptimizer(max_repeats=32, seed=seed).search(s.inputs, s.output, s.size_dict)
+    if cap is not None:
+        tree.slice_(target_size=cap, allow_outer=False, seed=seed)
+    return c, s, tree
 
 
 def _amplitude(tree, s, c, bits):
@@ -30,9 +37,10 @@ def _amplitude(tree, s, c, bits):
     return sum(complex(sc.contract(i)) for i in range(tree.nslices))
 
 
-@pytest.mark.parametrize("cap", [None, 2 ** 12])
+@pytest.mark.parametrize("cap", [None, 2 ** 14])
 def test_fused_tree_gives_the_same_amplitudes(cap, rng):
     c, s, tree = _tree(4, 5, 12, 5, cap)
+    assert (tree.nslices > 1) == (cap is not None)
     # thresholds lowered so that this 20-qubit network has absorptions to group
     fused = fuse_absorptions(tree, big_min=2 ** 6, small_max=2 ** 4, group_max=2 ** 6)
     assert fused is not tree
