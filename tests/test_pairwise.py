@@ -68,7 +68,7 @@ def test_grid_program_matches_the_state_vector(rng):
 def test_a_copy_split_over_threads_equals_numpys(threads):
     # reference: numpy's own copy of the same transposed view
     rng = np.random.default_rng(threads)
-    for shape in [(2,) * 10, (3, 5, 7, 2), (1, 1, 6, 4), (5,)]:
+    for shape in [(2,) * 10, (3, 5, 7, 2), (1, 1, 6, 4), (5,), (3, 4000, 2), (1, 7), (1, 1, 1)]:
         x = rng.normal(size=shape) + 1j * rng.normal(size=shape)
         moved = x.transpose(tuple(reversed(range(len(shape)))))
         dst = np.empty(moved.shape, moved.dtype)

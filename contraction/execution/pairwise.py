@@ -209,15 +209,23 @@ def copy_into(dst: np.ndarray, src: np.ndarray, threads: int = 1, min_bytes: int
     if threads < 2 or dst.ndim == 0 or dst.nbytes < min_bytes:
         np.copyto(dst, src)
         return
+    # leading axes whose index combinations are fewer than the threads, then the next axis cut into
+    # ranges: about ``threads`` blocks whatever the axis lengths (one block per index of a long
+    # leading axis would loop in Python over millions of tiny copies)
     lead, count = 0, 1
-    while lead < dst.ndim and count < threads:
+    while lead < dst.ndim and count * dst.shape[lead] < threads:
         count *= dst.shape[lead]
         lead += 1
-    blocks = list(np.ndindex(*dst.shape[:lead]))
+    if lead == dst.ndim:
+        np.copyto(dst, src)
+        return
+    pieces = min(dst.shape[lead], -(-threads // count))
+    edges = [dst.shape[lead] * k // pieces for k in range(pieces + 1)]
+    blocks = [ix + (slice(a, b),) for ix in np.ndindex(*dst.shape[:lead]) for a, b in zip(edges, edges[1:])]
 
     def run(share: list) -> None:
         for ix in share:
-            np.copyto(dst[ix + (...,)], src[ix + (...,)])
+            np.copyto(dst[ix], src[ix])
 
     list(_copier(threads).map(run, [blocks[t::threads] for t in range(threads)]))
 

@@ -7,7 +7,7 @@ chose and ``auto / fastest`` (goal: at most 1.25 on every case).
 Cases: grid circuits (Haar two-qubit gates) of 20-40 qubits with 1 to 2,000 bitstrings, a 25-qubit
 swap test, a 24-qubit QFT (diagonal controlled phases) and a 30-qubit quantum-volume circuit.
 
-    python tests/benchmarks/bench_engine_choice.py [--budget 5] [--cases all|quick]
+    python tests/benchmarks/bench_engine_choice.py [--budget 5] [--cases all|quick|large|N,M,...]
 """
 
 from __future__ import annotations
@@ -44,7 +44,14 @@ def cases(which: str):
            ("grid24x12", grid(4, 6, 12), 64), ("swap25", swap_test(12), 1), ("qft24", qft(24), 16),
            ("qv30x8", quantum_volume(30, 8, seed=2), 1), ("grid30x12", grid(5, 6, 12), 256),
            ("grid36x8", grid(6, 6, 8), 64), ("grid40x8", grid(5, 8, 8), 2000)]
-    return out[:4] if which == "quick" else out
+    if which == "quick":
+        return out[:4]
+    if which == "large":
+        return out[6:]
+    if which == "all":
+        return out
+    wanted = which.split(",")                       # case numbers (0-based) in the list above
+    return [out[int(k)] for k in wanted]
 
 
 def main() -> None:
