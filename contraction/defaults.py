@@ -28,3 +28,7 @@ STATEVECTOR_AUTO_QUBITS = 22
 MAX_BLOCK_QUBITS = 20
 #: number type of tensors and amplitudes
 DTYPE = "complex128"
+
+#: a sliced contraction is split into at most this many tasks per local worker process (a slow
+#: worker then holds up the end of a run by a quarter of its share at most; common practice)
+TASKS_PER_WORKER = 4

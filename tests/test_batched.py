@@ -18,7 +18,7 @@ from contraction.execution.amplitudes import amplitudes
 from contraction.execution.blocks import block_amplitudes, light_cone, marginal_probabilities
 from contraction.execution.statevector import state_vector
 from contraction.network.builder import build_structure
-from contraction.planning.engine_choice import batch_candidates, choose, chunk_schedule
+from contraction.planning.engine_choice import Option, batch_candidates, choose, chunk_schedule, scheduled
 from contraction.planning.search import PlannerOptions
 from contraction.planning.store import MemoryPlanStore
 
@@ -144,6 +144,19 @@ def test_chunk_schedule_follows_the_cost_model():
     assert chunk_schedule(70, {1: 1.0, 8: 2.0, 64: 10.0}) == [64, 8]
     assert chunk_schedule(3, {1: 1.0, 8: 20.0}) == [1, 1, 1]
     assert batch_candidates(1) == [] and batch_candidates(1000) == [16, 128, 1024]
+
+
+def test_predicted_wall_time_shares_tasks_among_workers():
+    # the project's own scheduling model (no outside source), hand-worked: ten one-bitstring
+    # contractions of 2 s each on two worker processes take 10 s; one unsliced 16-bitstring
+    # contraction of 8 s runs on one worker, so two workers do not halve it
+    single = Option("single", 2.0, 1.0, 1)
+    assert scheduled("single", 10, {1: single}, workers=2).seconds == 10.0
+    assert scheduled("single", 10, {1: single}, workers=1).seconds == 20.0
+    batch = Option("batch", 8.0, 1.0, 16)
+    assert scheduled("batch", 16, {16: batch}, workers=2).seconds == 8.0
+    assert scheduled("batch", 32, {16: batch}, workers=2).seconds == 8.0
+    assert scheduled("batch", 48, {16: batch}, workers=2).seconds == 12.0
 
 
 def test_engine_choice_reasons(medium, small):

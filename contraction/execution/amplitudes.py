@@ -149,7 +149,7 @@ def _run_network(circuit: Circuit, option: Option, groups: dict[str, list[str]],
     plans = []
     for b, items in chunks.items():
         sub = option.parts[b]
-        pieces = split_slices(sub.plan.nslices, 4 * runner.workers if sub.plan.nslices > 1 else 1)
+        pieces = split_slices(sub.plan.nslices, defaults.TASKS_PER_WORKER * runner.workers if sub.plan.nslices > 1 else 1)
         reuse = reuse_budget(worker_bytes / np.dtype(dt).itemsize, sub.plan.peak_elements, sub.plan.width)
         tasks, owner = [], []
         first = None                      # gate tensors are computed once per contraction size, then shared

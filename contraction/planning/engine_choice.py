@@ -213,12 +213,23 @@ def network_option(circuit: Circuit, batch: int, dtype: str, rate: MachineRate, 
                   c.plan.peak_bytes(dtype), batch, c, c.from_store, c.plan.madds)
 
 
-def scheduled(engine: str, count: int, parts: dict[int, Option]) -> Option:
-    """The whole request run as chunks of the planned sizes in ``parts``."""
+def tasks_per_chunk(nslices: int, workers: int) -> int:
+    """Tasks one contraction of ``nslices`` slices is split into for ``workers`` local processes (as
+    the executor splits it: contiguous runs of slices)."""
+    return 1 if nslices <= 1 else min(nslices, defaults.TASKS_PER_WORKER * max(1, workers))
+
+
+def scheduled(engine: str, count: int, parts: dict[int, Option], workers: int = 1) -> Option:
+    """The whole request run as chunks of the planned sizes in ``parts``, its tasks shared by
+    ``workers`` local processes: predicted wall time is the larger of the total over the workers
+    and the longest single task (one unsliced chunk runs on one worker however many there are)."""
     schedule = chunk_schedule(count, {b: o.seconds for b, o in parts.items()})
     used = {b: parts[b] for b in set(schedule)}
     main = max(used.values(), key=lambda o: o.batch)
-    return Option(engine, sum(parts[b].seconds for b in schedule), max(o.peak_bytes for o in used.values()),
+    total = sum(parts[b].seconds for b in schedule)
+    longest = max(o.seconds / tasks_per_chunk(o.plan.nslices if o.plan else 1, workers) for o in used.values())
+    wall = max(total / max(1, workers), longest)
+    return Option(engine, wall, max(o.peak_bytes for o in used.values()),
                   main.batch, main.contraction, all(o.plan_cached for o in used.values()),
                   sum(parts[b].madds for b in schedule), schedule, used)
 
@@ -278,9 +289,9 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
         except NoStoredPlan:
             pass
     if 1 in planned:
-        options.append(scheduled("single", count, {1: planned[1]}))
+        options.append(scheduled("single", count, {1: planned[1]}, workers))
     if any(b > 1 for b in planned):
-        batched = scheduled("batch", count, planned)
+        batched = scheduled("batch", count, planned, workers)
         if batched.batch > 1 or 1 not in planned:         # all chunks of one: that is the single engine
             options.append(batched)
     if not options and not search:
