@@ -174,6 +174,10 @@ def network_seconds(plan: Plan, structure: NetworkStructure, rate: MachineRate, 
     """Predicted seconds of one contraction with ``plan`` (all slices)."""
     steps = max(0, structure.num_tensors - 1) * plan.nslices
     per = rate.contraction_seconds(plan.madds, plan.writes, steps)
+    if structure.batch:
+        per *= rate.batch_factor
+    elif structure.open_qubits:
+        per *= rate.open_factor
     if np.dtype(dtype).itemsize == 8:
         per *= 0.5  # complex64 moves half the bytes (an assumption; the benchmark measures complex128)
     return per

@@ -15,8 +15,9 @@ from pathlib import Path
 @dataclass(frozen=True)
 class MachineRate:
     """Rates of this machine: complex multiply-adds per second of a dense matrix product, the share
-    of it a contraction reaches, seconds per element written and per pairwise step, and seconds per
-    (amplitude x gate) update of the state-vector engine."""
+    of it a contraction reaches, seconds per element written and per pairwise step, seconds per
+    (amplitude x gate) update of the state-vector engine, and the batched and open-qubit engines'
+    measured time over what the model predicts for them."""
 
     matmul_madds_per_second: float
     efficiency: float
@@ -25,6 +26,10 @@ class MachineRate:
     statevector_seconds_per_update: float
     threads: int
     measured_at: float
+    # measured / predicted for the engines whose networks differ from the one-amplitude networks the
+    # model is fitted on: a batch index on every projector, open qubits (1.0: the model as it is)
+    batch_factor: float = 1.0
+    open_factor: float = 1.0
 
     def contraction_seconds(self, madds: float, writes: float, steps: float) -> float:
         """Predicted seconds of a contraction with these multiply-adds, elements written and steps."""
