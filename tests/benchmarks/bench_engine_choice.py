@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 import time
 
 import numpy as np
@@ -50,8 +51,11 @@ def cases(which: str):
         return out[6:]
     if which == "all":
         return out
-    wanted = which.split(",")                       # case numbers (0-based) in the list above
-    return [out[int(k)] for k in wanted]
+    try:                                            # case numbers (0-based) in the list above
+        return [out[int(k)] for k in which.split(",")]
+    except (ValueError, IndexError):
+        raise SystemExit(f"--cases: all, quick, large or case numbers 0-{len(out) - 1} separated by commas, "
+                         f"not {which!r}") from None
 
 
 def main() -> None:
@@ -91,6 +95,10 @@ def main() -> None:
                 forced = choose(circ, len(bits), engine=engine, dtype="complex128", rate=rate, store=store,
                                 planner=opts, memory_bytes=cap, workers=args.workers)
                 forced_schedule[engine] = forced.chosen.schedule
+                # the plans behind each forced engine (they vary between runs with short budgets)
+                row[f"{engine}_plans"] = {b: {"slices": o.plan.nslices, "log10_madds": round(math.log10(o.plan.madds), 2),
+                                              "predicted_s": round(o.seconds, 3)}
+                                          for b, o in forced.chosen.parts.items() if o.plan is not None}
         picked = choose(circ, len(bits), engine="auto", dtype="complex128", rate=rate, store=store,
                         planner=opts, memory_bytes=cap, workers=args.workers)
         same = [e for e in times if e == picked.engine and (e == "statevector" or
