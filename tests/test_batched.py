@@ -236,3 +236,55 @@ def test_auto_choice_does_not_charge_a_cheap_network_the_planning_budget():
     assert run.engine in ("single", "batch"), run.reason          # a network engine, not the state vector
     assert abs(run.results[0].amplitude - np.prod(np.cos(thetas / 2))) < 1e-13
     assert abs(run.results[1].amplitude) < 1e-15
+
+
+def test_a_batch_size_order_serves_another_batch_size(small, rng):
+    """One batch size's contraction order, sliced anew for another batch size, gives that batch's
+    amplitudes. Reference: the numpy state vector (a general-purpose reference library)."""
+    from contraction.execution.executor import contract_array
+    from contraction.network.builder import tensor_arrays
+    from contraction.planning.search import find_plan, retarget_plan
+
+    donor = find_plan(build_structure(small, batch=4), PlannerOptions(budget_seconds=0.3, max_repeats=4))
+    s = build_structure(small, batch=32)
+    plan = retarget_plan(donor, s, 2 ** 7, 5.0)
+    assert plan is not None and plan.network_key == s.key and plan.nslices > 1 and plan.peak_elements > 0
+    assert plan.width <= 7 and plan.options["order_of"] == donor.network_key
+    psi = state_vector(small)
+    bits = random_bitstrings(rng, 12, 32)
+    out = contract_array(plan.tree(s), tensor_arrays(s, small, bits))
+    for i, b in enumerate(bits):
+        assert _rel(out[i], psi[int(b, 2)]) < 1e-10
+    # an order of another network does not serve: refused, not misapplied
+    assert retarget_plan(donor, build_structure(random_instance(grid_architecture(3, 4, 6), seed=5), batch=32),
+                         2 ** 7, 1.0) is None
+
+
+def test_engine_choice_tries_each_batch_orders_on_the_others(medium):
+    """With several batch sizes planned, each one's order is tried on the others and every batch
+    size ends with a plan no costlier than what the others' orders gave it within the cap (the
+    project's own promise; the values such plans give are checked in the test above)."""
+    from contraction.planning import engine_choice
+
+    cap_bytes = 2 ** 26
+    tried = []
+    real = engine_choice.retarget_plan
+
+    def spy(plan, structure, *args, **kw):
+        got = real(plan, structure, *args, **kw)
+        ok = got is not None and got.peak_elements <= cap_bytes / 16
+        tried.append((plan.network_key, structure.key, got.madds if ok else None))
+        return got
+
+    engine_choice.retarget_plan = spy
+    try:
+        c = choose(medium, 100, engine="batch", memory_bytes=cap_bytes, store=MemoryPlanStore(),
+                   planner=PlannerOptions(budget_seconds=3.0, max_repeats=4))
+    finally:
+        engine_choice.retarget_plan = real
+    sizes = sorted(b for b in c.planned if b > 1)
+    assert len(sizes) > 1 and len(tried) == len(sizes) * (len(sizes) - 1)
+    assert all(a != b for a, b, _ in tried)
+    for b in sizes:
+        offered = [m for _, key, m in tried if key == c.planned[b].contraction.structure.key and m is not None]
+        assert all(c.planned[b].plan.madds <= m for m in offered)

@@ -26,7 +26,7 @@ from contraction.circuits.model import Circuit
 from contraction.errors import MemoryLimitError, NoStoredPlan, PlanError, VerampError
 from contraction.network.builder import NetworkStructure, build_structure
 from contraction.planning.rates import NOMINAL_RATE, MachineRate
-from contraction.planning.search import Plan, PlannerOptions, find_plan, planning_seconds
+from contraction.planning.search import Plan, PlannerOptions, find_plan, planning_seconds, retarget_plan
 from contraction.planning.slice_reuse import reuse_budget, reuse_plan_for
 from contraction.planning.store import PlanStore
 
@@ -238,6 +238,37 @@ def scheduled(engine: str, count: int, parts: dict[int, Option], workers: int = 
                   sum(parts[b].madds for b in schedule), schedule, used)
 
 
+#: share of the planning budget spent trying each batch size's contraction order on the other sizes
+SHARE_ORDERS_FRACTION = 0.2
+
+
+def _share_batch_orders(circuit: Circuit, sizes: list[int], planned: dict[int, Option], store: PlanStore,
+                        planner: PlannerOptions, memory_bytes: float, dtype: str, rate: MachineRate,
+                        open_qubits: tuple[int, ...], seconds: float) -> None:
+    """Try each planned batch size's contraction order on the other batch sizes (their networks
+    differ only in the batch index's size), store what is cheaper and re-read those sizes' options.
+    Short searches split several ways find orders of very different quality: 40 qubits, 8 cycles,
+    batch 2048, 1.7 s each, gave 64 slices and 10^12.02 multiply-adds in one run, 131,072 slices
+    and 10^15.13 in the next (with 10^10.99 found for batch 256 in the same run)."""
+    cap = memory_bytes / np.dtype(dtype).itemsize
+    target = min(planner.max_elements or math.inf, cap / 4)
+    donors = [a for a in sizes if a in planned]
+    each = seconds / max(1, len(donors) * (len(sizes) - 1))
+    for b in sizes:
+        s = planned[b].contraction.structure if b in planned else \
+            build_structure(circuit, batch=b, open_qubits=open_qubits)
+        best = planned[b].plan.madds if b in planned else math.inf
+        better = False
+        for a in donors:
+            if a == b:
+                continue
+            plan = retarget_plan(planned[a].plan, s, target, each, planner.minimize)
+            if plan is not None and plan.peak_elements <= cap and plan.madds < best:
+                best, better = plan.madds, store.put(plan) or better
+        if better:
+            planned[b] = network_option(circuit, b, dtype, rate, store, None, memory_bytes, open_qubits, s)
+
+
 def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "complex128",
            rate: MachineRate | None = None, store: PlanStore | None = None,
            planner: PlannerOptions | None = None, memory_bytes: float,
@@ -280,8 +311,12 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
     planned: dict[int, Option] = {}
     sizes = ([1] if engine in ("auto", "single") or count < 2 else []) + \
         (batch_candidates(count) if engine in ("auto", "batch") else [])
-    # the planning budget is for the whole request: shared by every contraction size planned
-    per_size = None if planner is None else replace(planner, budget_seconds=planner.budget_seconds / max(1, len(sizes)))
+    # the planning budget is for the whole request: shared by every contraction size planned, and
+    # with two batch sizes or more a share of it for trying each one's order on the others
+    batch_sizes = [b for b in sizes if b > 1]
+    sharing = SHARE_ORDERS_FRACTION if planner is not None and store is not None and len(batch_sizes) > 1 else 0.0
+    per_size = None if planner is None else replace(
+        planner, budget_seconds=planner.budget_seconds * (1.0 - sharing) / max(1, len(sizes)))
     for b in sizes:
         try:
             # ``workers`` local processes contract slices side by side, each with its own intermediates:
@@ -292,6 +327,9 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
             errors.append(f"{b} per contraction: {exc}")
         except NoStoredPlan:
             pass
+    if sharing:
+        _share_batch_orders(circuit, batch_sizes, planned, store, planner, per_worker, dtype, rate, open_qubits,
+                            planner.budget_seconds * sharing)
     if 1 in planned:
         options.append(scheduled("single", count, {1: planned[1]}, workers))
     if any(b > 1 for b in planned):

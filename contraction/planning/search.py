@@ -171,6 +171,25 @@ def _slice_inner(tree, target: int, minimize: str, deadline: float = math.inf, h
     return tree
 
 
+def retarget_plan(plan: Plan, structure: NetworkStructure, max_elements: float, seconds: float,
+                  minimize: str = "combo") -> Plan | None:
+    """``plan``'s contraction order applied to ``structure`` — a network with the same tensors and
+    indices whose sizes differ (another batch size) — and sliced anew to ``max_elements`` within
+    ``seconds``. None when the order does not fit the network or the cap is not reached in time."""
+    import cotengra as ctg
+
+    try:
+        tree = ctg.ContractionTree.from_path(structure.inputs, structure.output, structure.size_dict,
+                                             ssa_path=[list(p) for p in plan.ssa_path], check=True)
+    except Exception:            # another network after all: cotengra raises many kinds of errors
+        return None
+    t0 = time.perf_counter()
+    tree = _slice_inner(tree, max(2, int(max_elements)), minimize, t0 + 0.8 * seconds, t0 + seconds)
+    if tree.max_size() > max_elements:
+        return None
+    return plan_from_tree(tree, structure, {"minimize": minimize, "order_of": plan.network_key})
+
+
 def _excess(tree, target: float) -> float:
     """log2 of how far the tree's largest intermediate is above ``target``."""
     return math.log2(max(tree.max_size(), 1)) - math.log2(target)
