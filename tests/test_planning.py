@@ -242,9 +242,9 @@ def test_a_failing_observer_does_not_stop_the_search():
 
 def test_a_plan_needing_astronomically_many_slices_is_refused_as_not_feasible():
     # A quantum-volume circuit (Cross et al., Phys. Rev. A 100, 032328 (2019)) of 100 qubits and 50
-    # layers of random pairings: no contraction order of such a deep all-to-all circuit is known to get
-    # near the 2^77 elements below which 2^28 could be reached in 2^48 slices (the best trees found in
-    # 2 s here hold 2^110). The answer is an honest refusal with the numbers, not a plan of 2^80 slices.
+    # layers of random pairings: the trees found in 2 s here hold 2^110 elements and the state-vector
+    # order 2^100, far above the 2^77 from which 2^28 is reachable in 2^48 slices. The answer is an
+    # honest refusal with the numbers, not a plan of 2^80 slices.
     # (A 40-qubit QFT served here first; better trees than the greedy one make it feasible, and a CI run
     # found one.)
     from contraction.circuits.textbook import quantum_volume
