@@ -327,7 +327,8 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
             errors.append(f"{b} per contraction: {exc}")
         except NoStoredPlan:
             pass
-    if sharing:
+    # only when a size was searched now: with every plan read from the store there is nothing to share
+    if sharing and any(b not in planned or not planned[b].plan_cached for b in batch_sizes):
         _share_batch_orders(circuit, batch_sizes, planned, store, planner, per_worker, dtype, rate, open_qubits,
                             planner.budget_seconds * sharing)
     if 1 in planned:
