@@ -26,7 +26,7 @@ from contraction.execution.executor import CancelCheck, Progress, ProgressCallba
 from contraction.execution.slices import ProcessRunner, Runner, Task, make_runner, split_slices
 from contraction.execution.statevector import state_vector
 from contraction.network.builder import resolve_dtype, tensor_arrays
-from contraction.planning.engine_choice import Choice, Option, choose
+from contraction.planning.engine_choice import Choice, Option, choose, tasks_per_chunk
 from contraction.planning.rates import MachineRate
 from contraction.planning.search import Plan, PlannerOptions
 from contraction.planning.slice_reuse import reuse_budget
@@ -149,7 +149,7 @@ def _run_network(circuit: Circuit, option: Option, groups: dict[str, list[str]],
     plans = []
     for b, items in chunks.items():
         sub = option.parts[b]
-        pieces = split_slices(sub.plan.nslices, defaults.TASKS_PER_WORKER * runner.workers if sub.plan.nslices > 1 else 1)
+        pieces = split_slices(sub.plan.nslices, tasks_per_chunk(sub.plan.nslices, runner.workers))
         reuse = reuse_budget(worker_bytes / np.dtype(dt).itemsize, sub.plan.peak_elements, sub.plan.width)
         tasks, owner = [], []
         first = None                      # gate tensors are computed once per contraction size, then shared

@@ -69,13 +69,14 @@ def _network_time(rows: int, cols: int, cycles: int, repeats: int, count: int = 
     return t, plan.madds, plan.writes, build_structure(c).num_tensors - 1
 
 
-def request_overhead_seconds(repeats: int = 5, count: int = 16) -> float:
+def request_overhead_seconds(repeats: int = 5, count: int = 16, one: float | None = None) -> float:
     """Seconds a request costs besides its contractions (engine choice, checks, set-up): a request
     for one amplitude of the smallest calibration network against one for ``count`` of them. The
     per-contraction model is fitted without it: counted once per step, it made one amplitude of a
     40-qubit 8-cycle grid circuit (213 steps) predicted at 2.1x its time inside a 2,000-bitstring request."""
     rows, cols, cycles, _ = CALIBRATION_NETWORKS[0]
-    one = _network_time(rows, cols, cycles, repeats)[0]
+    if one is None:                       # ``one``: that request's time when the caller measured it already
+        one = _network_time(rows, cols, cycles, repeats)[0]
     many = _network_time(rows, cols, cycles, repeats, count)[0]
     per_amplitude = max(0.0, many - one) / (count - 1)
     return max(0.0, one - per_amplitude)
@@ -146,8 +147,8 @@ def measure() -> MachineRate:
 
     rate = matmul_rate()
     rows, times = [], []
-    overhead = request_overhead_seconds()
     samples = [_network_time(*spec) for spec in CALIBRATION_NETWORKS]
+    overhead = request_overhead_seconds(one=samples[0][0])
     # what one contraction takes inside a request (at least a tenth of the measured time, so that a
     # noisy overhead cannot make a sample vanish)
     samples = [(max(0.1 * t, t - overhead), m, w, s) for t, m, w, s in samples] + [_dense_pair_time()]

@@ -99,11 +99,13 @@ def main() -> None:
                 row[f"{engine}_plans"] = {b: {"slices": o.plan.nslices, "log10_madds": round(math.log10(o.plan.madds), 2),
                                               "predicted_s": round(o.seconds, 3)}
                                           for b, o in forced.chosen.parts.items() if o.plan is not None}
-        picked = choose(circ, len(bits), engine="auto", dtype="complex128", rate=rate, store=store,
-                        planner=opts, memory_bytes=cap, workers=args.workers)
-        same = [e for e in times if e == picked.engine and (e == "statevector" or
-                                                               forced_schedule.get(e) == picked.chosen.schedule)]
-        if args.reuse_forced and same:
+        same = []
+        if args.reuse_forced:                      # what auto would pick, and whether a forced run did just that
+            picked = choose(circ, len(bits), engine="auto", dtype="complex128", rate=rate, store=store,
+                            planner=opts, memory_bytes=cap, workers=args.workers)
+            same = [e for e in times if e == picked.engine and (e == "statevector" or
+                                                                   forced_schedule.get(e) == picked.chosen.schedule)]
+        if same:
             # auto picked exactly what a forced run did (same engine, same chunks, same stored plans):
             # that run's time stands for it, marked as such
             auto_s, auto_engine, auto_batch, reason = times[same[0]], picked.engine, picked.chosen.batch, picked.reason
