@@ -295,3 +295,45 @@ def test_engine_choice_tries_each_batch_orders_on_the_others(medium):
     for b in sizes:
         offered = [m for _, key, m in tried if key == c.planned[b].contraction.structure.key and m is not None]
         assert all(c.planned[b].plan.madds <= m for m in offered)
+
+
+def test_engine_choice_shares_the_planning_budget_by_deadline(medium, monkeypatch):
+    """The planning budget is for the whole request (the project's promise: planning returns within
+    its budget): each contraction size gets an equal part of what is left when its turn comes, so
+    time one size leaves unused goes to the next, an overrun shortens the next, and trying orders
+    between batch sizes gets what remains. Checked on a scripted clock, not on wall time."""
+    from contraction.errors import MemoryLimitError, NoStoredPlan
+    from contraction.planning import engine_choice
+
+    clock = {"now": 100.0}
+    took = iter([0.0, 6.0, 1.0, 0.5])         # seconds each size's planning takes on the scripted clock
+    granted, shared = [], []
+
+    class FakeTime:
+        @staticmethod
+        def perf_counter():
+            return clock["now"]
+
+    def fake_option(circuit, b, dtype, rate, store, planner, *args):
+        granted.append((b, planner.budget_seconds))
+        clock["now"] += next(took)
+        raise NoStoredPlan(f"size {b}")
+
+    def fake_share(*args):
+        shared.append(args[-1])
+
+    monkeypatch.setattr(engine_choice, "time", FakeTime)
+    monkeypatch.setattr(engine_choice, "network_option", fake_option)
+    monkeypatch.setattr(engine_choice, "_share_batch_orders", fake_share)
+    with pytest.raises(MemoryLimitError):   # nothing planned in this script, no state vector in 1 MiB
+        choose(medium, 100, engine="auto", memory_bytes=2 ** 20, store=MemoryPlanStore(),
+               planner=PlannerOptions(budget_seconds=20.0))
+    sizes = [b for b, _ in granted]
+    assert sizes == [1] + batch_candidates(100)          # four sizes: 1, 2, 16, 128
+    reserve = 20.0 * engine_choice.SHARE_ORDERS_FRACTION   # 4 s for trying orders between sizes
+    budgets = [g for _, g in granted]
+    assert budgets[0] == pytest.approx((20.0 - reserve) / 4)      # 4 s each to start with
+    assert budgets[1] == pytest.approx((20.0 - reserve) / 3)      # the first took nothing: 16/3 s
+    assert budgets[2] == pytest.approx((20.0 - reserve - 6.0) / 2)  # the second overran its 5.33 s
+    assert budgets[3] == pytest.approx(20.0 - reserve - 7.0)
+    assert shared == [pytest.approx(20.0 - 7.5)]         # what is left of the whole budget

@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import logging
 import math
+import time
 from dataclasses import dataclass, field, replace
 
 import numpy as np
@@ -81,8 +82,11 @@ def network_plan(structure: NetworkStructure, store: PlanStore | None, options: 
     # the peak holds a contraction's two inputs and its output at once: aim each below a quarter; when
     # the peak still overshoots (live inputs add up), aim lower, a few times, before giving up
     target = min(options.max_elements or math.inf, cap_elements / 4)
+    # the retries share the budget: each gets what the earlier ones left
+    end = time.perf_counter() + options.budget_seconds
     for _ in range(PEAK_RETRIES):
-        plan = find_plan(structure, replace(options, max_elements=target))
+        plan = find_plan(structure, replace(options, max_elements=target,
+                                            budget_seconds=max(0.0, end - time.perf_counter())))
         if plan.peak_elements <= cap_elements:
             break
         target /= 2
@@ -253,7 +257,8 @@ def _share_batch_orders(circuit: Circuit, sizes: list[int], planned: dict[int, O
     cap = memory_bytes / np.dtype(dtype).itemsize
     target = min(planner.max_elements or math.inf, cap / 4)
     donors = [a for a in sizes if a in planned]
-    each = seconds / max(1, len(donors) * (len(sizes) - 1))
+    end = time.perf_counter() + seconds
+    pairs = len(donors) * (len(sizes) - 1)
     for b in sizes:
         s = planned[b].contraction.structure if b in planned else \
             build_structure(circuit, batch=b, open_qubits=open_qubits)
@@ -262,6 +267,9 @@ def _share_batch_orders(circuit: Circuit, sizes: list[int], planned: dict[int, O
         for a in donors:
             if a == b:
                 continue
+            # each pair gets an equal part of what is left, so the whole stays within ``seconds``
+            each = max(0.0, end - time.perf_counter()) / max(1, pairs)
+            pairs -= 1
             plan = retarget_plan(planned[a].plan, s, target, each, planner.minimize)
             if plan is not None and plan.peak_elements <= cap and plan.madds < best:
                 best, better = plan.madds, store.put(plan) or better
@@ -312,12 +320,16 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
     sizes = ([1] if engine in ("auto", "single") or count < 2 else []) + \
         (batch_candidates(count) if engine in ("auto", "batch") else [])
     # the planning budget is for the whole request: shared by every contraction size planned, and
-    # with two batch sizes or more a share of it for trying each one's order on the others
+    # with two batch sizes or more a share of it for trying each one's order on the others. Each size
+    # gets an equal part of what is left when its turn comes, so time a size does not use (a stored
+    # plan, a network not worth searching) goes to the next and an overrun shortens the next.
     batch_sizes = [b for b in sizes if b > 1]
     sharing = SHARE_ORDERS_FRACTION if planner is not None and store is not None and len(batch_sizes) > 1 else 0.0
-    per_size = None if planner is None else replace(
-        planner, budget_seconds=planner.budget_seconds * (1.0 - sharing) / max(1, len(sizes)))
-    for b in sizes:
+    deadline = time.perf_counter() + (planner.budget_seconds if planner is not None else 0.0)
+    reserved = 0.0 if planner is None else planner.budget_seconds * sharing
+    for k, b in enumerate(sizes):
+        per_size = None if planner is None else replace(
+            planner, budget_seconds=max(0.0, deadline - reserved - time.perf_counter()) / (len(sizes) - k))
         try:
             # ``workers`` local processes contract slices side by side, each with its own intermediates:
             # each gets its share of the cap, so the run as a whole stays within ``memory_bytes``
@@ -330,7 +342,7 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
     # only when a size was searched now: with every plan read from the store there is nothing to share
     if sharing and any(b not in planned or not planned[b].plan_cached for b in batch_sizes):
         _share_batch_orders(circuit, batch_sizes, planned, store, planner, per_worker, dtype, rate, open_qubits,
-                            planner.budget_seconds * sharing)
+                            max(0.0, deadline - time.perf_counter()))
     if 1 in planned:
         options.append(scheduled("single", count, {1: planned[1]}, workers))
     if any(b > 1 for b in planned):

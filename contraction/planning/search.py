@@ -419,7 +419,7 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
     when installed, kahypar partitions) for 90 % of the budget, in which — when the baseline is within
     2^12 of the memory target — every trial is scored after slicing to the target, so the tree is
     chosen for the cap; then a subtree reconfiguration and slicing of the best tree, stopped by the
-    deadline (slicing may take 5 % + 1 s more); last, small tensors absorbed one by one into large
+    deadline (slicing may take 5 % more, plus up to 1 s); last, small tensors absorbed one by one into large
     intermediates are grouped (:mod:`contraction.planning.fusion`; the searched tree's multiply-adds
     are kept in the plan's options as ``madds_before_fusion``). With ``parallel`` > 1 the deadline is
     hard: trials still running are ended. Raises :class:`MemoryLimitError` when no tree within
@@ -430,8 +430,10 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
 
     t0 = time.perf_counter()
     deadline = t0 + max(0.0, options.budget_seconds)
-    # slicing may run a little past the budget to reach the cap; never more than 5 % (plus 1 s)
-    hard_deadline = deadline + 0.05 * max(0.0, options.budget_seconds) + 1.0
+    # slicing may run a little past the budget to reach the cap: 5 % of it, plus as much again up to 1 s
+    # (a plain greedy slicing pass follows when that was not enough)
+    slack = 0.05 * max(0.0, options.budget_seconds)
+    hard_deadline = deadline + slack + min(1.0, slack)
     methods = ["greedy", "kahypar"] if kahypar_available() else ["greedy", "labels"]
     target = None if options.max_elements is None else max(2, int(options.max_elements))
     state = random.getstate()
