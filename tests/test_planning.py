@@ -276,12 +276,12 @@ def test_the_best_tree_sliced_anew_is_kept_only_when_cheaper_and_gives_the_same_
         poor.remove_ind_(ix)
     assert poor.max_size() <= target and poor.nslices > 1
     notes: dict = {}
-    kept = search._resliced(poor, greedy, target, "flops", float("inf"), float("inf"), notes)
+    kept = search._resliced(poor, target, "flops", float("inf"), float("inf"), notes, "resliced")
     assert kept.max_size() <= target
     assert kept.contraction_cost() <= poor.contraction_cost()
     r = notes["resliced"]
-    assert r["madds_searched"] == pytest.approx(poor.contraction_cost())
-    assert r["madds_resliced"] is not None and min(r["madds_resliced"], r["madds_searched"]) == \
+    assert r["madds_before"] == pytest.approx(poor.contraction_cost())
+    assert r["madds_resliced"] is not None and min(r["madds_resliced"], r["madds_before"]) == \
         pytest.approx(kept.contraction_cost())
     # slicing indices in name order is far from the best (measured: 10^30.9 multiply-adds over 2^90
     # slices, against 10^7.0 over 512 slices for the fresh slicing): the fresh one is kept

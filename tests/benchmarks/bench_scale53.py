@@ -78,6 +78,10 @@ def part_plan(cycles: int, budget: float, cap_log2: int, baseline: bool = True,
             "slicing_overhead": round(plan.slicing_overhead, 3), "slices": plan.nslices,
             "width_log2": plan.width, "trials": plan.options.get("trials"),
             "tensors_after_simplify": plan.options.get("tensors_after_simplify")}
+    for stage in ("resliced", "resliced_fused"):   # the final stages: the tree as it was and sliced anew
+        if plan.options.get(stage):
+            ours[stage] = {k: (round(math.log10(v), 3) if k.startswith("madds") and v else v)
+                           for k, v in plan.options[stage].items()}
     if not baseline:
         return {"part": "p_plan", "qubits": circ.num_qubits, "cycles": cycles, "budget_s": budget,
                 "cap_elements_log2": cap_log2, "target_intermediate_log2": math.log2(target), "veramp": ours,
