@@ -452,9 +452,11 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
     when installed, kahypar partitions) for 90 % of the budget, in which — when the baseline is within
     2^12 of the memory target — every trial is scored after slicing to the target, so the tree is
     chosen for the cap; then a subtree reconfiguration and slicing of the best tree, stopped by the
-    deadline (slicing may take 5 % more, and as much again up to 1 s); last, small tensors absorbed one by one into large
-    intermediates are grouped (:mod:`contraction.planning.fusion`; the searched tree's multiply-adds
-    are kept in the plan's options as ``madds_before_fusion``). With ``parallel`` > 1 the deadline is
+    deadline (slicing may take 5 % more, and as much again up to 1 s), and the same tree sliced anew
+    from scratch with larger reconfigurations, the cheaper kept (:func:`_resliced`); last, small
+    tensors absorbed one by one into large intermediates are grouped
+    (:mod:`contraction.planning.fusion`; the searched tree's multiply-adds are kept in the plan's
+    options as ``madds_before_fusion``) and the grouped tree is sliced anew likewise. With ``parallel`` > 1 the deadline is
     hard: trials still running are ended. Raises :class:`MemoryLimitError` when no tree within
     ``max_elements`` is found, with the best figures found ("not feasible" when it would take more than
     2^48 slices).
