@@ -286,7 +286,16 @@ def test_the_best_tree_sliced_anew_is_kept_only_when_cheaper_and_gives_the_same_
     # slicing indices in name order is far from the best (measured: 10^30.9 multiply-adds over 2^90
     # slices, against 10^7.0 over 512 slices for the fresh slicing): the fresh one is kept
     assert kept is not poor
+    # the fused stage: the fresh slicing is fused before it is compared, and its cost before fusion kept
+    from contraction.planning.fusion import fuse_absorptions
+
+    kept_fused = search._resliced(fuse_absorptions(poor), target, "flops", float("inf"), float("inf"), notes,
+                                  "resliced_fused", fuse=True)
+    rf = notes["resliced_fused"]
+    assert rf["kept"] and rf["madds_resliced"] == pytest.approx(kept_fused.contraction_cost())
+    assert rf["madds_resliced_before_fusion"] <= rf["madds_resliced"]   # fusion trades multiply-adds for passes
     psi = state_vector(circ)
     for b in random_bitstrings(rng, circ.num_qubits, 2):
-        got = contract_scalar(kept, tensor_arrays(s, circ, b))
-        assert abs(got - psi[int(b, 2)]) <= 1e-10 * abs(got)
+        for tree in (kept, kept_fused):
+            got = contract_scalar(tree, tensor_arrays(s, circ, b))
+            assert abs(got - psi[int(b, 2)]) <= 1e-10 * abs(got)

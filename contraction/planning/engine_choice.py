@@ -61,6 +61,12 @@ class Contraction:
     from_store: bool = False
 
 
+def intermediate_target(options: PlannerOptions, cap_elements: float) -> float:
+    """Largest intermediate (elements) a plan is searched for under a cap of ``cap_elements``: the peak
+    holds a contraction's two inputs and its output at once, so each is aimed below a quarter."""
+    return min(options.max_elements or math.inf, cap_elements / 4)
+
+
 def network_plan(structure: NetworkStructure, store: PlanStore | None, options: PlannerOptions | None,
                  memory_bytes: float = defaults.MEMORY_BYTES, dtype="complex128") -> Contraction:
     """The :class:`Contraction` of ``structure`` with a peak within ``memory_bytes``.
@@ -79,9 +85,8 @@ def network_plan(structure: NetworkStructure, store: PlanStore | None, options: 
                 log.warning("stored plan rejected, planning again: %s", exc)
     if options is None:
         raise NoStoredPlan(structure.key)
-    # the peak holds a contraction's two inputs and its output at once: aim each below a quarter; when
-    # the peak still overshoots (live inputs add up), aim lower, a few times, before giving up
-    target = min(options.max_elements or math.inf, cap_elements / 4)
+    # when the peak still overshoots the cap (live inputs add up), aim lower, a few times, before giving up
+    target = intermediate_target(options, cap_elements)
     # the retries share the budget: each gets what the earlier ones left
     end = time.perf_counter() + options.budget_seconds
     for _ in range(PEAK_RETRIES):
@@ -255,7 +260,7 @@ def _share_batch_orders(circuit: Circuit, sizes: list[int], planned: dict[int, O
     batch 2048, 1.7 s each, gave 64 slices and 10^12.02 multiply-adds in one run, 131,072 slices
     and 10^15.13 in the next (with 10^10.99 found for batch 256 in the same run)."""
     cap = memory_bytes / np.dtype(dtype).itemsize
-    target = min(planner.max_elements or math.inf, cap / 4)
+    target = intermediate_target(planner, cap)
     donors = [a for a in sizes if a in planned]
     end = time.perf_counter() + seconds
     pairs = len(donors) * (len(sizes) - 1)

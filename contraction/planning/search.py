@@ -180,10 +180,10 @@ RESLICE_MIN_SECONDS = 1.0
 
 
 def _resliced(tree, target: int, minimize: str, deadline: float, hard_deadline: float, record: dict,
-              stage: str, then=None):
+              stage: str, fuse: bool = False):
     """The cheaper of ``tree`` (sliced) and the same tree with every slice undone and sliced again from
     scratch, with reconfigurations of larger subtrees between rounds than inside the search's trials
-    (``then``, e.g. fusion, applied to the fresh one before comparing). Measured on the 53-qubit
+    (with ``fuse``, the fresh one is fused before comparing; ``tree`` is fused already). Measured on the 53-qubit
     12-cycle network at 2^28: a tree searched for 150 s went from 10^13.00 multiply-adds (128 slices) to
     10^12.64 (32 slices) in 2.7 s; four fused 300 s plans from 10^12.78-12.89 to 10^12.75-12.83 (fused
     again), 2.5-3.5 s each. Skipped unless ``RESLICE_MIN_SECONDS`` are left before ``deadline`` or when
@@ -196,12 +196,13 @@ def _resliced(tree, target: int, minimize: str, deadline: float, hard_deadline: 
         return tree
     alt = _slice_inner(unsliced, target, minimize, deadline, hard_deadline, RESLICE_SUBTREE_SIZE, "auto")
     fits = alt.max_size() <= target
-    if fits and then is not None:
-        alt = then(alt)
-    record[stage] = {"madds_before": float(tree.contraction_cost()), "slices_before": tree.nslices,
-                     "madds_resliced": float(alt.contraction_cost()) if fits else None,
-                     "slices_resliced": alt.nslices}
-    return alt if fits and alt.contraction_cost() < tree.contraction_cost() else tree
+    record[stage] = {"madds_before": float(tree.contraction_cost()), "slices_before": tree.nslices}
+    if fits and fuse:
+        record[stage]["madds_resliced_before_fusion"] = float(alt.contraction_cost())
+        alt = fuse_absorptions(alt)
+    record[stage].update(madds_resliced=float(alt.contraction_cost()) if fits else None, slices_resliced=alt.nslices,
+                         kept=bool(fits and alt.contraction_cost() < tree.contraction_cost()))
+    return alt if record[stage]["kept"] else tree
 
 
 def retarget_plan(plan: Plan, structure: NetworkStructure, max_elements: float, seconds: float,
@@ -456,8 +457,8 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
     from scratch with larger reconfigurations, the cheaper kept (:func:`_resliced`); last, small
     tensors absorbed one by one into large intermediates are grouped
     (:mod:`contraction.planning.fusion`; the searched tree's multiply-adds are kept in the plan's
-    options as ``madds_before_fusion``) and the grouped tree is sliced anew likewise. With ``parallel`` > 1 the deadline is
-    hard: trials still running are ended. Raises :class:`MemoryLimitError` when no tree within
+    options as ``madds_before_fusion``) and the grouped tree is sliced anew likewise. With
+    ``parallel`` > 1 the deadline is hard: trials still running are ended. Raises :class:`MemoryLimitError` when no tree within
     ``max_elements`` is found, with the best figures found ("not feasible" when it would take more than
     2^48 slices).
     """
@@ -552,15 +553,17 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
             f"{options.max_elements:.3g} elements in {time.perf_counter() - t0:.3g} s (best cost found "
             f"10^{math.log10(max(tree.contraction_cost(), 1)):.2f} multiply-adds); raise the memory cap or the "
             f"planning budget")
-    record = _record(options, methods, trials, reduced_tensors, t0)
-    record.update(notes)
     if options.fuse and structure.num_tensors > 2:
-        record["madds_before_fusion"] = float(tree.contraction_cost())
+        notes["madds_before_fusion"] = float(tree.contraction_cost())
         tree = fuse_absorptions(tree)
         if target is not None:
             # the fused tree is another starting point: sliced anew from it, then fused again
-            tree = _resliced(tree, target, options.minimize, deadline, hard_deadline, record, "resliced_fused",
-                             then=fuse_absorptions)
+            tree = _resliced(tree, target, options.minimize, deadline, hard_deadline, notes, "resliced_fused",
+                             fuse=True)
+            if notes.get("resliced_fused", {}).get("kept"):
+                notes["madds_before_fusion"] = notes["resliced_fused"]["madds_resliced_before_fusion"]
+    record = _record(options, methods, trials, reduced_tensors, t0)
+    record.update(notes)
     plan = plan_from_tree(tree, structure, record)
     _notify(SearchProgress(trials, plan.madds, time.perf_counter() - t0, options.budget_seconds))
     return plan
