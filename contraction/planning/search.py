@@ -330,34 +330,54 @@ def _report(opt, t0: float, budget: float) -> None:
 #: a greedy tree cheaper than this (complex multiply-adds; ~0.05 s on the machines this is built on) is
 #: not searched further: a search cannot save more time than the contraction takes (common practice)
 SEARCH_WORTHWHILE_MADDS = 1e8
+#: a tree that fits the memory target is searched for at most one second per this many multiply-adds
+#: of its greedy tree: about twenty times the greedy contraction's own time at the 5e9 multiply-adds/s a
+#: contraction reaches on these machines (common practice: a stored plan serves every later instance,
+#: so a search may cost a few runs' worth, not more). A 20-qubit 10-cycle batch of 4 (greedy 1.2e8)
+#: took 4.1 s of planning for a 0.02 s contraction before this rule.
+SEARCH_PAYBACK_MADDS_PER_SECOND = 2.5e8
 
 
-def _not_worth_searching(tree, target) -> bool:
-    return (target is None or tree.max_size() <= target) and tree.contraction_cost() < SEARCH_WORTHWHILE_MADDS
+def search_seconds_worth(tree, target) -> float:
+    """Seconds a search for a better tree than ``tree`` (a greedy one) is worth: none below
+    :data:`SEARCH_WORTHWHILE_MADDS`, in proportion to its multiply-adds above it, unbounded (the budget
+    decides) when it does not fit the memory target and must be sliced."""
+    if target is not None and tree.max_size() > target:
+        return math.inf
+    madds = float(tree.contraction_cost())
+    return 0.0 if madds < SEARCH_WORTHWHILE_MADDS else madds / SEARCH_PAYBACK_MADDS_PER_SECOND
 
 
-def quick_madds(structure: NetworkStructure, seed: int = 0) -> float:
-    """Multiply-adds of a quick greedy tree (simplified network, a few greedy trials; milliseconds up to
-    a few hundred tensors): an upper bound of what a search finds, used to predict planning time."""
+def quick_tree(structure: NetworkStructure, seed: int = 0):
+    """A quick greedy tree of the simplified network (a few greedy trials; milliseconds up to a few
+    hundred tensors), or None for a network of at most two tensors."""
     import cotengra as ctg
 
     if structure.num_tensors <= 2:
-        return 1.0
+        return None
     red = simplify_structure(structure)
     if len(red.inputs) <= 2:
-        return 1.0
-    tree = ctg.array_contract_tree(red.inputs, red.output, red.size_dict,
+        return None
+    return ctg.array_contract_tree(red.inputs, red.output, red.size_dict,
                                    optimize=ctg.RandomGreedyOptimizer(max_repeats=4, seed=seed))
-    return float(tree.contraction_cost())
+
+
+def quick_madds(structure: NetworkStructure, seed: int = 0) -> float:
+    """Multiply-adds of :func:`quick_tree`: an upper bound of what a search finds."""
+    tree = quick_tree(structure, seed)
+    return 1.0 if tree is None else float(tree.contraction_cost())
 
 
 def planning_seconds(structure: NetworkStructure, options: "PlannerOptions") -> float:
-    """Predicted seconds :func:`find_plan` takes on ``structure``: a network whose quick greedy tree is
-    already cheap is not searched (about the greedy pass itself), any other uses the whole budget."""
+    """Predicted seconds :func:`find_plan` takes on ``structure``: the quick greedy pass, then the search
+    its greedy tree is worth (:func:`search_seconds_worth`), at most the budget."""
     t0 = time.perf_counter()
-    if quick_madds(structure, options.seed) < SEARCH_WORTHWHILE_MADDS:
-        return 2.0 * (time.perf_counter() - t0)
-    return options.budget_seconds
+    tree = quick_tree(structure, options.seed)
+    greedy = 2.0 * (time.perf_counter() - t0)
+    if tree is None:
+        return greedy
+    target = None if options.max_elements is None else max(2, int(options.max_elements))
+    return min(options.budget_seconds, greedy + search_seconds_worth(tree, target))
 
 
 #: a tree needing more than 2^48 slices is not sliced at all: it is not feasible on any machine this
@@ -505,9 +525,10 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
                 best = ctg.array_contract_tree(inputs, output, sizes, optimize=greedy)
                 # the search gets 90 % of what is left; refinement and slicing the rest (measured at
                 # 53 qubits: under 3 s after a 120 s search)
+                # a tree within the target is searched only as long as its greedy cost makes it worth
+                deadline = min(deadline, time.perf_counter() + search_seconds_worth(best, target))
                 search_deadline = time.perf_counter() + 0.9 * (deadline - time.perf_counter())
-                if (len(inputs) > 8 and search_deadline - time.perf_counter() > 0.1
-                        and not _not_worth_searching(best, target)):
+                if len(inputs) > 8 and search_deadline - time.perf_counter() > 0.1:
                     found, trials = _search(inputs, output, sizes, options, methods, search_deadline, target,
                                             math.log2(max(best.max_size(), 1)),
                                             grace=0.5 * (deadline - search_deadline), t0=t0)

@@ -22,7 +22,9 @@ part p's, against part p's plan (ratio of multiply-adds); with ``--run-batch`` i
 complex64 (time, peak RSS) and its |0...0> entry compared with part a's amplitude when given
 (``--amplitude RE IM``: two plans of the same amplitude, 1e-5 relative in complex64). It also reports
 the modelled cost of the batch through part p's single-amplitude tree with every intermediate stacked
-over the distinct restrictions of the bitstrings to its projected qubits (sparse output state).
+over the distinct restrictions of the bitstrings to its projected qubits (sparse output state), and
+that stacked cost of a tree searched for it directly (``--stacked-budget``) against a tree searched
+for one amplitude in the same time (both unsliced).
 Part c: checks that do not trust the engine, at 53 qubits: the patch circuit of the grid (every gate
 between rows 0-2 and rows 3-5 removed) against the product of its halves' state-vector amplitudes
 (tensor-product rule, Nielsen & Chuang 2010, §2.1.7), and two plans with different slicings (searched
@@ -167,8 +169,76 @@ def sparse_state_ratio(tree, structure, bits: list[str]) -> float:
     return stacked / plain
 
 
+def _stacked_counts(structure, bits: list[str]):
+    """(reduced network, the projected qubits each of its tensors holds, bit rows) for the search below."""
+    from contraction.network.simplify import simplify_structure
+
+    red = simplify_structure(structure)
+    held = {i: frozenset([src[1]]) if src[0] == "proj" else frozenset() for i, src in enumerate(structure.sources)}
+    nid = len(structure.inputs)
+    for a, b in red.pre_path:
+        held[nid] = held[a] | held[b]
+        nid += 1
+    return red, [held[i] for i in red.ssa_ids], np.array([[int(c) for c in b] for b in bits])
+
+
+class StackedCost:
+    """A cotengra objective scoring a tree by the stacked (sparse output state) multiply-adds of a batch
+    ``rows``: each step's multiply-adds times the distinct restrictions of the rows to the projected
+    qubits below it (module level: the search's worker processes receive it pickled)."""
+
+    def __init__(self, qubits, rows):
+        self.qubits, self.rows = qubits, rows
+        self.flops = None
+
+    def cost(self, tree) -> float:
+        held = {tree.input_to_node(i): self.qubits[i] for i in range(tree.N)}
+        total = 0.0
+        for p, l, r in tree.traverse():
+            held[p] = held[l] | held[r]
+            cols = sorted(held[p])
+            distinct = len({row.tobytes() for row in self.rows[:, cols]}) if cols else 1
+            total += float(tree.get_flops(p)) * distinct
+        return total
+
+    def __call__(self, trial) -> float:
+        return math.log2(max(self.cost(trial["tree"]), 1.0))
+
+    def __getattr__(self, name):
+        # everything else (local costs for reconfiguration, the dynamic-programming objective) as for flops
+        if name.startswith("__") or name in ("qubits", "rows", "flops"):
+            raise AttributeError(name)
+        if self.flops is None:
+            from cotengra.scoring import FlopsObjective
+
+            self.flops = FlopsObjective()
+        return getattr(self.flops, name)
+
+
+def stacked_search(structure, bits: list[str], budget: float) -> dict:
+    """A tree searched (kahypar and greedy, two processes, unsliced) for the stacked cost of the batch
+    ``bits`` itself, against a tree searched for one amplitude's multiply-adds in the same time."""
+    import concurrent.futures as cf
+
+    import cotengra as ctg
+
+    red, qubits, rows = _stacked_counts(structure, bits)
+    objective = StackedCost(qubits, rows)
+    out = {"budget_seconds": budget}
+    for name, minimize in (("single", "flops"), ("stacked", objective)):
+        with cf.ProcessPoolExecutor(2) as pool:
+            opt = ctg.HyperOptimizer(methods=["kahypar", "greedy"], minimize=minimize, max_repeats=10 ** 6,
+                                     max_time=budget, parallel=pool, progbar=False, on_trial_error="ignore")
+            tree = opt.search(red.inputs, red.output, red.size_dict)
+        out[name] = {"trials": len(opt.scores), "log10_madds": round(math.log10(tree.contraction_cost()), 3),
+                     "log10_stacked": round(math.log10(objective.cost(tree)), 3)}
+    out["ratio_stacked_over_single"] = round(
+        10 ** (out["stacked"]["log10_stacked"] - out["single"]["log10_madds"]), 2)
+    return out
+
+
 def part_batch(cycles: int, budget: float, cap_log2: int, target_log2: float, single, batch: int,
-               run: bool, amplitude: complex | None) -> dict:
+               run: bool, amplitude: complex | None, stacked_budget: float = 0.0) -> dict:
     from contraction.execution.executor import contract_array
     from contraction.execution.slices import keep_freed_memory
     from contraction.network.builder import build_structure, tensor_arrays
@@ -187,6 +257,8 @@ def part_batch(cycles: int, budget: float, cap_log2: int, target_log2: float, si
     bits = ["0" * circ.num_qubits] + ["".join(rng.choice(["0", "1"], size=circ.num_qubits)) for _ in range(batch - 1)]
     s1 = build_structure(circ)
     out["modelled_sparse_state_ratio_on_single_tree"] = round(sparse_state_ratio(single.tree(s1), s1, bits), 2)
+    if stacked_budget > 0:
+        out["stacked_cost_searched"] = stacked_search(s1, bits, stacked_budget)
     if not run:
         return out
     keep_freed_memory()
@@ -290,6 +362,8 @@ def main() -> None:
     ap.add_argument("--estimate-budget", type=float, default=60.0)
     ap.add_argument("--batch", type=int, default=64, help="part b: bitstrings in the batch")
     ap.add_argument("--run-batch", action="store_true", help="part b: contract the batch too")
+    ap.add_argument("--stacked-budget", type=float, default=90.0,
+                    help="part b: seconds of each of two searches (one amplitude; the batch's stacked cost); 0: none")
     ap.add_argument("--amplitude", type=float, nargs=2, default=None,
                     help="part b: part a's amplitude of |0...0> (real, imaginary) to compare with")
     ap.add_argument("--check-cycles", type=int, default=10,
@@ -321,7 +395,7 @@ def main() -> None:
         emit(part_amplitude(args.cycles, plan, args.cap_log2, args.amp_workers))
     if "b" in args.parts:
         emit(part_batch(args.cycles, args.budget, args.cap_log2, target_log2, plan, args.batch, args.run_batch,
-                        complex(*args.amplitude) if args.amplitude else None))
+                        complex(*args.amplitude) if args.amplitude else None, args.stacked_budget))
     if "c" in args.parts:
         emit(part_checks(args.cycles, args.check_cycles, args.cap_log2, args.check_budget))
     if "e" in args.parts:
