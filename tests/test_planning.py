@@ -299,3 +299,48 @@ def test_the_best_tree_sliced_anew_is_kept_only_when_cheaper_and_gives_the_same_
         for tree in (kept, kept_fused):
             got = contract_scalar(tree, tensor_arrays(s, circ, b))
             assert abs(got - psi[int(b, 2)]) <= 1e-10 * abs(got)
+
+
+def test_predictions_carry_the_requests_fixed_cost():
+    """A calibrated request overhead is added once to every option's prediction (the calibration
+    measured it and dropped it); the choice itself does not change, and a calibration document written
+    before the field existed still reads (the field takes its default)."""
+    from contraction.planning.engine_choice import choose
+
+    circ = random_instance(grid_architecture(3, 4, 8), 1, gates="discrete")
+    kw = dict(memory_bytes=2 ** 30, store=MemoryPlanStore(), planner=PlannerOptions(budget_seconds=1.0))
+    for engine in ("single", "statevector"):
+        plain = choose(circ, 4, engine=engine, rate=RATE, **kw)
+        loaded = choose(circ, 4, engine=engine, rate=dataclasses.replace(RATE, request_overhead_seconds=0.25), **kw)
+        assert loaded.engine == plain.engine
+        assert loaded.chosen.seconds == pytest.approx(plain.chosen.seconds + 0.25)
+        assert all(o.seconds >= 0.25 for o in loaded.options)
+    doc = RATE.to_dict()
+    del doc["request_overhead_seconds"]
+    assert MachineRate.from_dict(doc).request_overhead_seconds == 0.0
+    del doc["threads"]                                   # a field without a default is still required
+    with pytest.raises(KeyError):
+        MachineRate.from_dict(doc)
+
+
+def test_work_too_small_for_a_pool_runs_in_the_calling_process(monkeypatch):
+    """With two local workers asked for, a request predicted to take less than a worker pool's start
+    runs in the calling process (one amplitude: 0.02-0.07 s there, 0.18-0.24 s through a pool); one
+    predicted longer goes to the pool. The amplitude is the state vector's either way."""
+    from contraction.execution import slices
+
+    circ = random_instance(grid_architecture(3, 4, 8), 1, gates="discrete")
+    want = complex(state_vector(circ)[0])
+    used = []
+
+    def fake_pool_run(self, contraction, tasks, done, cancelled=None):
+        used.append(self.workers)
+        slices.InlineRunner().run(contraction, tasks, done, cancelled)
+
+    monkeypatch.setattr(slices.ProcessRunner, "run", fake_pool_run)
+    kw = dict(engine="single", workers=2, plan_store=MemoryPlanStore(), planner=PlannerOptions(budget_seconds=1.0))
+    run = amplitudes(circ, ["0" * 12], rate=RATE, **kw)
+    assert used == [] and run.results[0].amplitude == pytest.approx(want, abs=1e-12)
+    slow = dataclasses.replace(RATE, matmul_madds_per_second=1e3)      # predicted far above a pool's start
+    run = amplitudes(circ, ["0" * 12], rate=slow, **kw)
+    assert used == [2] and run.results[0].amplitude == pytest.approx(want, abs=1e-12)

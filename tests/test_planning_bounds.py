@@ -95,6 +95,8 @@ def test_a_search_takes_only_the_time_its_greedy_tree_is_worth(monkeypatch):
     tree = search.quick_tree(s)
     worth = search.search_seconds_worth(tree, None)
     assert 0 < worth < 100                               # greedy cost above the floor, far below the budget
+    # a plan that will run once per bitstring of a large request is worth as many times the search
+    assert search.search_seconds_worth(tree, None, runs=2000) == pytest.approx(2000 * worth)
     search.find_plan(s, PlannerOptions(budget_seconds=1000.0, simplify=True))
     assert "seconds" in seen and seen["seconds"] <= 0.9 * 2 * worth + 0.5   # find_plan's greedy has more repeats
     assert search.planning_seconds(s, PlannerOptions(budget_seconds=1000.0)) < 2 * worth + 1.0
@@ -103,3 +105,27 @@ def test_a_search_takes_only_the_time_its_greedy_tree_is_worth(monkeypatch):
     seen.clear()
     search.find_plan(s, PlannerOptions(budget_seconds=20.0, max_elements=tree.max_size() / 4))
     assert seen["seconds"] > 0.9 * 0.9 * 20.0 - 1.0
+
+
+def test_a_plan_searched_ahead_of_time_uses_the_whole_budget(monkeypatch):
+    """``veramp plan`` (``whole_budget``) searches for the budget it was given, however cheap the greedy
+    tree, above the floor below which no search pays; so does a plan a request will run a million times."""
+    import time
+
+    from contraction.circuits.random_instances import grid_architecture, random_instance
+    from contraction.planning import search
+
+    s = build_structure(random_instance(grid_architecture(4, 5, 10), 1, gates="discrete"), batch=4)
+    seen = {}
+
+    def fake_search(inputs, output, sizes, options, methods, deadline, target, width_log2, grace=1.0, t0=0.0):
+        seen["seconds"] = deadline - time.perf_counter()
+        return None, 0
+
+    monkeypatch.setattr(search, "_search", fake_search)
+    search.find_plan(s, PlannerOptions(budget_seconds=100.0, whole_budget=True))
+    assert seen["seconds"] > 0.9 * 0.9 * 100.0 - 1.0
+    assert search.planning_seconds(s, PlannerOptions(budget_seconds=100.0, whole_budget=True)) == 100.0
+    seen.clear()
+    search.find_plan(s, PlannerOptions(budget_seconds=100.0, expected_runs=10 ** 6))
+    assert seen["seconds"] > 0.9 * 0.9 * 100.0 - 1.0

@@ -71,6 +71,12 @@ class AmplitudeRun:
 ResultsCallback = Callable[[list[Amplitude]], None]
 
 
+#: seconds a pool of local worker processes takes to start and take its first task (measured: one
+#: amplitude of a 20-qubit 10-cycle circuit in 0.02-0.07 s in the calling process, 0.18-0.24 s through a
+#: pool of two)
+POOL_START_SECONDS = 0.15
+
+
 def amplitudes(circuit: Circuit, bitstrings: Iterable[str], *, dtype: str = "complex128",
                engine: str = "auto", planner: PlannerOptions | None = None,
                plan_store: PlanStore | None = None, memory_bytes: float = defaults.MEMORY_BYTES,
@@ -110,7 +116,12 @@ def amplitudes(circuit: Circuit, bitstrings: Iterable[str], *, dtype: str = "com
         if progress is not None:
             progress(Progress(1, 1, time.perf_counter() - t0))
     else:
-        _run_network(circuit, choice.chosen, groups, open_qubits, dt, runner or make_runner(workers),
+        if runner is None:
+            # a pool's start costs more than it saves on work this small: run it here (the plan was made
+            # for one worker's share of the cap, so it fits)
+            inline = choice.chosen.seconds * local < choice.chosen.seconds + POOL_START_SECONDS
+            runner = make_runner(1 if inline else workers)
+        _run_network(circuit, choice.chosen, groups, open_qubits, dt, runner,
                      emit, progress, cancelled, memory_bytes / max(1, local))
     o = choice.chosen
     return AmplitudeRun([Amplitude(b, found[b]) for b in bits], choice.engine, choice.reason, dtype,

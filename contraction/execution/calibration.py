@@ -162,7 +162,7 @@ def measure() -> MachineRate:
     base = MachineRate(rate, float(min(1.0, max(0.01, eff))), float(per_write), float(per_step),
                        _statevector_update_time(), blas_threads(), time.time())
     return replace(base, batch_factor=engine_factor(base, "batch", overhead),
-                   open_factor=engine_factor(base, "open", overhead))
+                   open_factor=engine_factor(base, "open", overhead), request_overhead_seconds=float(overhead))
 
 
 def load_or_measure(path: str | os.PathLike | None, remeasure: bool = False) -> MachineRate:

@@ -153,6 +153,11 @@ class Choice:
         return {_label(o): o.seconds for o in self.options}
 
 
+def _with_overhead(o: Option, rate: MachineRate) -> Option:
+    """``o`` with the request's fixed cost besides its contractions added to its predicted seconds."""
+    return replace(o, seconds=o.seconds + rate.request_overhead_seconds)
+
+
 def _label(o: Option) -> str:
     return f"batch{o.batch}" if o.engine == "batch" else o.engine
 
@@ -306,20 +311,26 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
                                    f"gate; the memory cap is {memory_bytes:.4g} bytes"
                                    + (f" and the engine is limited to {defaults.STATEVECTOR_MAX_QUBITS} qubits" if n > defaults.STATEVECTOR_MAX_QUBITS
                                       else ""))
+        sv = _with_overhead(sv, rate)
         return Choice("statevector", "requested", sv, [sv], count=count)
     if engine == "auto" and sv_fits and n <= defaults.STATEVECTOR_AUTO_QUBITS and sv.seconds <= SV_OUTRIGHT_SECONDS:
-        return Choice("statevector", f"{n} qubits <= {defaults.STATEVECTOR_AUTO_QUBITS} and ~{sv.seconds:.2g} s: one "
-                                     "state vector answers every bitstring", sv, [sv], count=count)
+        reason = f"{n} qubits <= {defaults.STATEVECTOR_AUTO_QUBITS} and ~{sv.seconds:.2g} s: one state vector " \
+                 "answers every bitstring"
+        sv = _with_overhead(sv, rate)
+        return Choice("statevector", reason, sv, [sv], count=count)
     # local processes contracting side by side each get their share of the cap
     per_worker = memory_bytes / max(1, workers)
     single = None                         # the one-bitstring network, built once for both uses below
     if engine == "auto" and sv_fits:
         options.append(sv)
         single = build_structure(circuit, open_qubits=open_qubits)
-        planning = 0.0 if planner is None else _planning_seconds(single, store, planner, per_worker, dtype)
+        planning = 0.0 if planner is None else _planning_seconds(single, store, replace(planner, expected_runs=count),
+                                                                 per_worker, dtype)
         if sv.seconds <= planning:
-            return Choice("statevector", f"state vector predicted {sv.seconds:.3g} s, less than planning the "
-                                         f"network engines would take (~{planning:.3g} s)", sv, [sv], count=count)
+            reason = (f"state vector predicted {sv.seconds:.3g} s, less than planning the network engines would "
+                      f"take (~{planning:.3g} s)")
+            sv = _with_overhead(sv, rate)
+            return Choice("statevector", reason, sv, [sv], count=count)
     errors = []
     planned: dict[int, Option] = {}
     sizes = ([1] if engine in ("auto", "single") or count < 2 else []) + \
@@ -334,7 +345,8 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
     reserved = 0.0 if planner is None else planner.budget_seconds * sharing
     for k, b in enumerate(sizes):
         per_size = None if planner is None else replace(
-            planner, budget_seconds=max(0.0, deadline - reserved - time.perf_counter()) / (len(sizes) - k))
+            planner, budget_seconds=max(0.0, deadline - reserved - time.perf_counter()) / (len(sizes) - k),
+            expected_runs=max(1.0, count / b))           # contractions of this size the request would run
         try:
             # ``workers`` local processes contract slices side by side, each with its own intermediates:
             # each gets its share of the cap, so the run as a whole stays within ``memory_bytes``
@@ -358,6 +370,7 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
         return None
     if not options:
         raise MemoryLimitError("no engine fits the memory cap: " + "; ".join(errors))
+    options = [_with_overhead(o, rate) for o in options]
     best = min(options, key=lambda o: o.seconds)
     if engine != "auto":
         reason = "requested"

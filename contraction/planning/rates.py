@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import json
 import os
-from dataclasses import asdict, dataclass
+from dataclasses import MISSING, asdict, dataclass
 from pathlib import Path
 
 
@@ -30,6 +30,9 @@ class MachineRate:
     # model is fitted on: a batch index on every projector, open qubits (1.0: the model as it is)
     batch_factor: float = 1.0
     open_factor: float = 1.0
+    # what a request costs besides its contractions (engine choice, checks, tensor set-up): added once
+    # to every option's prediction, so that a tiny request is not predicted at a twentieth of its time
+    request_overhead_seconds: float = 0.0
 
     def contraction_seconds(self, madds: float, writes: float, steps: float) -> float:
         """Predicted seconds of a contraction with these multiply-adds, elements written and steps."""
@@ -42,8 +45,10 @@ class MachineRate:
 
     @classmethod
     def from_dict(cls, doc: dict) -> "MachineRate":
-        """Rates from :meth:`to_dict` output; raises KeyError/TypeError on a malformed document."""
-        return cls(**{k: doc[k] for k in cls.__dataclass_fields__})
+        """Rates from :meth:`to_dict` output (a field added since the document was written takes its
+        default); raises KeyError/TypeError on a malformed document."""
+        fields = cls.__dataclass_fields__
+        return cls(**{k: doc[k] for k, f in fields.items() if k in doc or f.default is MISSING})
 
 
 #: rates used when no calibration is given: typical of the 2-core machines the project is built

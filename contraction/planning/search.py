@@ -274,6 +274,12 @@ class PlannerOptions:
     parallel: bool | int = False          # explicit: never 'auto'; an int > 1 is a number of processes
     simplify: bool = True                 # structure-only simplification before the search
     fuse: bool = True                     # group small tensors absorbed into large intermediates (fusion)
+    # search for the whole budget even where the greedy tree is worth less (``veramp plan``: a plan
+    # searched ahead of time for an architecture); otherwise see :func:`search_seconds_worth`
+    whole_budget: bool = False
+    # contractions the plan will run in the request asking for it (a single amplitude's plan runs once
+    # per bitstring): the search is worth that many times as much
+    expected_runs: float = 1.0
 
     def to_dict(self) -> dict:
         """The options as a JSON-ready dict (kept with each plan)."""
@@ -338,14 +344,22 @@ SEARCH_WORTHWHILE_MADDS = 1e8
 SEARCH_PAYBACK_MADDS_PER_SECOND = 2.5e8
 
 
-def search_seconds_worth(tree, target) -> float:
-    """Seconds a search for a better tree than ``tree`` (a greedy one) is worth: none below
-    :data:`SEARCH_WORTHWHILE_MADDS`, in proportion to its multiply-adds above it, unbounded (the budget
-    decides) when it does not fit the memory target and must be sliced."""
+def search_seconds_worth(tree, target, runs: float = 1.0) -> float:
+    """Seconds a search for a better tree than ``tree`` (a greedy one) is worth when the plan will run
+    ``runs`` times in the request that asks for it: none below :data:`SEARCH_WORTHWHILE_MADDS` for one
+    contraction, above it in proportion to the multiply-adds of all ``runs``; unbounded (the budget
+    decides) when the tree does not fit the memory target and must be sliced."""
     if target is not None and tree.max_size() > target:
         return math.inf
     madds = float(tree.contraction_cost())
-    return 0.0 if madds < SEARCH_WORTHWHILE_MADDS else madds / SEARCH_PAYBACK_MADDS_PER_SECOND
+    return 0.0 if madds < SEARCH_WORTHWHILE_MADDS else madds * max(1.0, runs) / SEARCH_PAYBACK_MADDS_PER_SECOND
+
+
+def _search_seconds(tree, target, options: "PlannerOptions") -> float:
+    """Seconds of search ``options`` allow past the greedy ``tree``: what it is worth, or the whole budget
+    with ``whole_budget`` (a greedy tree below the floor is never searched)."""
+    worth = search_seconds_worth(tree, target, options.expected_runs)
+    return math.inf if options.whole_budget and worth > 0 else worth
 
 
 def quick_tree(structure: NetworkStructure, seed: int = 0):
@@ -377,7 +391,7 @@ def planning_seconds(structure: NetworkStructure, options: "PlannerOptions") -> 
     if tree is None:
         return greedy
     target = None if options.max_elements is None else max(2, int(options.max_elements))
-    return min(options.budget_seconds, greedy + search_seconds_worth(tree, target))
+    return min(options.budget_seconds, greedy + _search_seconds(tree, target, options))
 
 
 #: a tree needing more than 2^48 slices is not sliced at all: it is not feasible on any machine this
@@ -526,7 +540,7 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
                 # the search gets 90 % of what is left; refinement and slicing the rest (measured at
                 # 53 qubits: under 3 s after a 120 s search)
                 # a tree within the target is searched only as long as its greedy cost makes it worth
-                deadline = min(deadline, time.perf_counter() + search_seconds_worth(best, target))
+                deadline = min(deadline, time.perf_counter() + _search_seconds(best, target, options))
                 search_deadline = time.perf_counter() + 0.9 * (deadline - time.perf_counter())
                 if len(inputs) > 8 and search_deadline - time.perf_counter() > 0.1:
                     found, trials = _search(inputs, output, sizes, options, methods, search_deadline, target,

@@ -155,7 +155,7 @@ def cmd_plan(args) -> int:
     store = plan_store(settings)
     structure = build_structure(circuit)
     before = store.get(structure.key)
-    options = PlannerOptions(budget_seconds=args.budget, parallel=settings.plan_processes)
+    options = PlannerOptions(budget_seconds=args.budget, parallel=settings.plan_processes, whole_budget=True)
     plan = network_plan(structure, None, options, memory_cap(args, settings), args.dtype).plan
     kept = store.put(plan)
     best = store.get(structure.key)
