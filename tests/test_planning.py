@@ -344,3 +344,17 @@ def test_work_too_small_for_a_pool_runs_in_the_calling_process(monkeypatch):
     slow = dataclasses.replace(RATE, matmul_madds_per_second=1e3)      # predicted far above a pool's start
     run = amplitudes(circ, ["0" * 12], rate=slow, **kw)
     assert used == [2] and run.results[0].amplitude == pytest.approx(want, abs=1e-12)
+
+
+def test_a_plan_used_again_reuses_its_checked_tree():
+    """Request after request with one stored plan builds and checks its tree once; a plan whose cost was
+    altered is still checked against its own tree and refused, even after the true one was kept."""
+    circ = random_instance(grid_architecture(3, 4, 8), 1, gates="discrete")
+    s = build_structure(circ)
+    plan = find_plan(s, PlannerOptions(budget_seconds=0.5))
+    assert plan.tree(s) is plan.tree(s)
+    assert Plan.from_json(plan.to_json()).tree(s) is plan.tree(s)    # same content, same tree
+    with pytest.raises(PlanError):
+        dataclasses.replace(plan, madds=plan.madds * 1.5).tree(s)
+    value = contract_scalar(plan.tree(s), tensor_arrays(s, circ, "0" * 12))
+    assert value == pytest.approx(complex(state_vector(circ)[0]), abs=1e-12)

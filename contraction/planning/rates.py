@@ -30,8 +30,8 @@ class MachineRate:
     # model is fitted on: a batch index on every projector, open qubits (1.0: the model as it is)
     batch_factor: float = 1.0
     open_factor: float = 1.0
-    # what a request costs besides its contractions (engine choice, checks, tensor set-up): added once
-    # to every option's prediction, so that a tiny request is not predicted at a twentieth of its time
+    # what a request costs besides its contractions (engine choice, checks, tensor set-up), measured by
+    # the calibration: added once to every option's prediction
     request_overhead_seconds: float = 0.0
 
     def contraction_seconds(self, madds: float, writes: float, steps: float) -> float:

@@ -18,6 +18,7 @@ import math
 import random
 import threading
 import time
+from collections import OrderedDict
 from dataclasses import asdict, dataclass, field
 from typing import Callable, Iterator
 
@@ -41,6 +42,12 @@ def kahypar_available() -> bool:
     except ImportError:
         return False
     return True
+
+
+#: trees kept by :meth:`Plan.tree`, most recently used last (common practice size for a small cache)
+TREES_KEPT = 8
+_trees: "OrderedDict[tuple, object]" = OrderedDict()
+_trees_lock = threading.Lock()
 
 
 @dataclass(frozen=True)
@@ -124,11 +131,27 @@ class Plan:
 
     # ---- back to a cotengra tree
     def tree(self, structure: NetworkStructure):
-        """Rebuild the (sliced) contraction tree; checks that the plan fits ``structure``."""
-        import cotengra as ctg
-
+        """Rebuild the (sliced) contraction tree; checks that the plan fits ``structure``. The last few
+        trees built are kept (callers only read them), so a plan used request after request is built
+        and checked once, and its step program compiled once (:func:`contraction.execution.pairwise.program_for`)."""
         if structure.key != self.network_key:
             raise PlanError("plan belongs to another network structure")
+        key = (self.network_key, self.ssa_path, self.sliced, self.madds)
+        with _trees_lock:
+            tree = _trees.get(key)
+            if tree is not None:
+                _trees.move_to_end(key)
+                return tree
+        tree = self._build_tree(structure)
+        with _trees_lock:
+            _trees[key] = tree
+            while len(_trees) > TREES_KEPT:
+                _trees.popitem(last=False)
+        return tree
+
+    def _build_tree(self, structure: NetworkStructure):
+        import cotengra as ctg
+
         try:
             tree = ctg.ContractionTree.from_path(structure.inputs, structure.output, structure.size_dict,
                                                  ssa_path=[list(p) for p in self.ssa_path], check=True)
@@ -376,12 +399,6 @@ def quick_tree(structure: NetworkStructure, seed: int = 0):
                                    optimize=ctg.RandomGreedyOptimizer(max_repeats=4, seed=seed))
 
 
-def quick_madds(structure: NetworkStructure, seed: int = 0) -> float:
-    """Multiply-adds of :func:`quick_tree`: an upper bound of what a search finds."""
-    tree = quick_tree(structure, seed)
-    return 1.0 if tree is None else float(tree.contraction_cost())
-
-
 def planning_seconds(structure: NetworkStructure, options: "PlannerOptions") -> float:
     """Predicted seconds :func:`find_plan` takes on ``structure``: the quick greedy pass, then the search
     its greedy tree is worth (:func:`search_seconds_worth`), at most the budget."""
@@ -484,8 +501,9 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
 
     Stages: structure-only simplification (:mod:`contraction.network.simplify`, its steps become the first
     steps of the path); a randomised-greedy baseline; a hyper-optimized search over trees (greedy and,
-    when installed, kahypar partitions) for 90 % of the budget, in which — when the baseline is within
-    2^12 of the memory target — every trial is scored after slicing to the target, so the tree is
+    when installed, kahypar partitions) for 90 % of the budget (of the time a search is worth when the
+    baseline fits the memory target: :func:`search_seconds_worth`), in which, when the baseline is
+    within 2^12 of the memory target, every trial is scored after slicing to the target, so the tree is
     chosen for the cap; then a subtree reconfiguration and slicing of the best tree, stopped by the
     deadline (slicing may take 5 % more, and as much again up to 1 s), and the same tree sliced anew
     from scratch with larger reconfigurations, the cheaper kept (:func:`_resliced`); last, small
@@ -537,9 +555,9 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
             else:
                 greedy = ctg.RandomGreedyOptimizer(max_repeats=32 if len(inputs) < 300 else 8, seed=options.seed)
                 best = ctg.array_contract_tree(inputs, output, sizes, optimize=greedy)
-                # the search gets 90 % of what is left; refinement and slicing the rest (measured at
+                # a tree within the target is searched only as long as its greedy cost makes it worth;
+                # the search gets 90 % of what is left, refinement and slicing the rest (measured at
                 # 53 qubits: under 3 s after a 120 s search)
-                # a tree within the target is searched only as long as its greedy cost makes it worth
                 deadline = min(deadline, time.perf_counter() + _search_seconds(best, target, options))
                 search_deadline = time.perf_counter() + 0.9 * (deadline - time.perf_counter())
                 if len(inputs) > 8 and search_deadline - time.perf_counter() > 0.1:
