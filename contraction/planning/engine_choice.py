@@ -171,12 +171,14 @@ def _planning_seconds(s: NetworkStructure, store: PlanStore | None, planner: Pla
     return planning_seconds(s, planner)
 
 
-def statevector_option(circuit: Circuit, count: int, dtype: str, rate: MachineRate) -> Option:
+def statevector_option(circuit: Circuit, count: int, dtype: str, rate: MachineRate,
+                       structure: NetworkStructure | None = None) -> Option:
     """The state-vector engine's predicted seconds and peak bytes for this circuit (any number of amplitudes costs the
-    same)."""
+    same). ``structure``: the circuit's one-amplitude network (no open qubits), when already built."""
     n = circuit.num_qubits
     # the fused gates the state-vector engine applies, counted from the layout (no matrices built)
-    arities = [len(src[1]) if src[0] in ("gate", "diag") else 1 for src in build_structure(circuit).sources
+    structure = structure or build_structure(circuit)
+    arities = [len(src[1]) if src[0] in ("gate", "diag") else 1 for src in structure.sources
                if src[0] in ("gate", "diag") or (src[0] == "proj" and src[2])]
     itemsize = np.dtype(dtype).itemsize
     seconds = rate.statevector_seconds_per_update * 2 ** n * len(arities) * (itemsize / 16)
@@ -303,7 +305,8 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
     planner = (planner or PlannerOptions()) if search else None
     n = circuit.num_qubits
     options: list[Option] = []
-    sv = statevector_option(circuit, count, dtype, rate)
+    plain = build_structure(circuit)                  # the one-amplitude network, built once for every use
+    sv = statevector_option(circuit, count, dtype, rate, plain)
     sv_fits = n <= defaults.STATEVECTOR_MAX_QUBITS and sv.peak_bytes <= memory_bytes
     if engine == "statevector":
         if not sv_fits:
@@ -320,10 +323,10 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
         return Choice("statevector", reason, sv, [sv], count=count)
     # local processes contracting side by side each get their share of the cap
     per_worker = memory_bytes / max(1, workers)
-    single = None                         # the one-bitstring network, built once for both uses below
+    # the one-bitstring network (with the open qubits), built once for every use below
+    single = build_structure(circuit, open_qubits=open_qubits) if open_qubits else plain
     if engine == "auto" and sv_fits:
         options.append(sv)
-        single = build_structure(circuit, open_qubits=open_qubits)
         planning = 0.0 if planner is None else _planning_seconds(single, store, replace(planner, expected_runs=count),
                                                                  per_worker, dtype)
         if sv.seconds <= planning:
