@@ -326,7 +326,8 @@ def test_predictions_carry_the_requests_fixed_cost():
 def test_work_too_small_for_a_pool_runs_in_the_calling_process(monkeypatch):
     """With two local workers asked for, a request predicted to take less than a worker pool's start
     runs in the calling process (one amplitude: 0.02-0.07 s there, 0.18-0.24 s through a pool); one
-    predicted longer goes to the pool. The amplitude is the state vector's either way."""
+    predicted longer goes to the pool. The amplitude is the state vector's either way (the state vector
+    is checked against textbook values in tests/test_textbook_circuits.py)."""
     from contraction.execution import slices
 
     circ = random_instance(grid_architecture(3, 4, 8), 1, gates="discrete")
@@ -348,7 +349,8 @@ def test_work_too_small_for_a_pool_runs_in_the_calling_process(monkeypatch):
 
 def test_a_plan_used_again_reuses_its_checked_tree():
     """Request after request with one stored plan builds and checks its tree once; a plan whose cost was
-    altered is still checked against its own tree and refused, even after the true one was kept."""
+    altered is still checked against its own tree and refused, even after the true one was kept; the
+    kept tree still gives the state vector's amplitude (checked in tests/test_textbook_circuits.py)."""
     circ = random_instance(grid_architecture(3, 4, 8), 1, gates="discrete")
     s = build_structure(circ)
     plan = find_plan(s, PlannerOptions(budget_seconds=0.5))

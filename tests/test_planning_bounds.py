@@ -74,24 +74,34 @@ def test_local_workers_share_the_memory_cap():
     assert abs(two.results[0].amplitude - state_vector(c)[0]) < 1e-12
 
 
-def test_a_search_takes_only_the_time_its_greedy_tree_is_worth(monkeypatch):
-    """A network whose greedy tree fits the memory target is searched for at most its multiply-adds over
-    SEARCH_PAYBACK_MADDS_PER_SECOND seconds, however large the budget (a 20-qubit batch of 4 spent 4.1 s
-    planning a 0.02 s contraction under a 5 s budget); one that must be sliced gets the budget."""
+@pytest.fixture
+def search_deadline(monkeypatch) -> dict:
+    """The hyper-optimized search replaced by a stand-in that records the seconds it was given
+    (``["seconds"]``) and finds nothing, so the greedy tree is kept."""
     import time
 
-    from contraction.circuits.random_instances import grid_architecture, random_instance
     from contraction.planning import search
 
-    circ = random_instance(grid_architecture(4, 5, 10), 1, gates="discrete")
-    s = build_structure(circ, batch=4)
-    seen = {}
+    seen: dict = {}
 
     def fake_search(inputs, output, sizes, options, methods, deadline, target, width_log2, grace=1.0, t0=0.0):
         seen["seconds"] = deadline - time.perf_counter()
         return None, 0
 
     monkeypatch.setattr(search, "_search", fake_search)
+    return seen
+
+
+def test_a_search_takes_only_the_time_its_greedy_tree_is_worth(search_deadline):
+    """A network whose greedy tree fits the memory target is searched for at most its multiply-adds over
+    SEARCH_PAYBACK_MADDS_PER_SECOND seconds, however large the budget (a 20-qubit batch of 4 spent 4.1 s
+    planning a 0.02 s contraction under a 5 s budget); one that must be sliced gets the budget."""
+    from contraction.circuits.random_instances import grid_architecture, random_instance
+    from contraction.planning import search
+
+    circ = random_instance(grid_architecture(4, 5, 10), 1, gates="discrete")
+    s = build_structure(circ, batch=4)
+    seen = search_deadline
     tree = search.quick_tree(s)
     worth = search.search_seconds_worth(tree, None)
     assert 0 < worth < 100                               # greedy cost above the floor, far below the budget
@@ -107,22 +117,14 @@ def test_a_search_takes_only_the_time_its_greedy_tree_is_worth(monkeypatch):
     assert seen["seconds"] > 0.9 * 0.9 * 20.0 - 1.0
 
 
-def test_a_plan_searched_ahead_of_time_uses_the_whole_budget(monkeypatch):
+def test_a_plan_searched_ahead_of_time_uses_the_whole_budget(search_deadline):
     """``veramp plan`` (``whole_budget``) searches for the budget it was given, however cheap the greedy
     tree, above the floor below which no search pays; so does a plan a request will run a million times."""
-    import time
-
     from contraction.circuits.random_instances import grid_architecture, random_instance
     from contraction.planning import search
 
     s = build_structure(random_instance(grid_architecture(4, 5, 10), 1, gates="discrete"), batch=4)
-    seen = {}
-
-    def fake_search(inputs, output, sizes, options, methods, deadline, target, width_log2, grace=1.0, t0=0.0):
-        seen["seconds"] = deadline - time.perf_counter()
-        return None, 0
-
-    monkeypatch.setattr(search, "_search", fake_search)
+    seen = search_deadline
     search.find_plan(s, PlannerOptions(budget_seconds=100.0, whole_budget=True))
     assert seen["seconds"] > 0.9 * 0.9 * 100.0 - 1.0
     assert search.planning_seconds(s, PlannerOptions(budget_seconds=100.0, whole_budget=True)) == 100.0

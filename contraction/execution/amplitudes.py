@@ -117,9 +117,9 @@ def amplitudes(circuit: Circuit, bitstrings: Iterable[str], *, dtype: str = "com
             progress(Progress(1, 1, time.perf_counter() - t0))
     else:
         if runner is None:
-            # a pool's start costs more than it saves on work this small: run it here (the plan was made
-            # for one worker's share of the cap, so it fits)
-            inline = choice.chosen.seconds * local < choice.chosen.seconds + POOL_START_SECONDS
+            # run here when a pool would save less than its start (predictions assume ``local`` workers;
+            # the plan was made for one worker's share of the cap, so it fits)
+            inline = choice.chosen.seconds * (local - 1) < POOL_START_SECONDS
             runner = make_runner(1 if inline else workers)
         _run_network(circuit, choice.chosen, groups, open_qubits, dt, runner,
                      emit, progress, cancelled, memory_bytes / max(1, local))

@@ -158,6 +158,12 @@ def _with_overhead(o: Option, rate: MachineRate) -> Option:
     return replace(o, seconds=o.seconds + rate.request_overhead_seconds)
 
 
+def _statevector_choice(reason: str, sv: Option, rate: MachineRate, count: int) -> Choice:
+    """The state vector chosen for ``reason``, its prediction with the request's fixed cost added."""
+    sv = _with_overhead(sv, rate)
+    return Choice("statevector", reason, sv, [sv], count=count)
+
+
 def _label(o: Option) -> str:
     return f"batch{o.batch}" if o.engine == "batch" else o.engine
 
@@ -314,13 +320,10 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
                                    f"gate; the memory cap is {memory_bytes:.4g} bytes"
                                    + (f" and the engine is limited to {defaults.STATEVECTOR_MAX_QUBITS} qubits" if n > defaults.STATEVECTOR_MAX_QUBITS
                                       else ""))
-        sv = _with_overhead(sv, rate)
-        return Choice("statevector", "requested", sv, [sv], count=count)
+        return _statevector_choice("requested", sv, rate, count)
     if engine == "auto" and sv_fits and n <= defaults.STATEVECTOR_AUTO_QUBITS and sv.seconds <= SV_OUTRIGHT_SECONDS:
-        reason = f"{n} qubits <= {defaults.STATEVECTOR_AUTO_QUBITS} and ~{sv.seconds:.2g} s: one state vector " \
-                 "answers every bitstring"
-        sv = _with_overhead(sv, rate)
-        return Choice("statevector", reason, sv, [sv], count=count)
+        return _statevector_choice(f"{n} qubits <= {defaults.STATEVECTOR_AUTO_QUBITS} and ~{sv.seconds:.2g} s: one "
+                                   "state vector answers every bitstring", sv, rate, count)
     # local processes contracting side by side each get their share of the cap
     per_worker = memory_bytes / max(1, workers)
     # the one-bitstring network (with the open qubits), built once for every use below
@@ -330,10 +333,8 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
         planning = 0.0 if planner is None else _planning_seconds(single, store, replace(planner, expected_runs=count),
                                                                  per_worker, dtype)
         if sv.seconds <= planning:
-            reason = (f"state vector predicted {sv.seconds:.3g} s, less than planning the network engines would "
-                      f"take (~{planning:.3g} s)")
-            sv = _with_overhead(sv, rate)
-            return Choice("statevector", reason, sv, [sv], count=count)
+            return _statevector_choice(f"state vector predicted {sv.seconds:.3g} s, less than planning the network "
+                                       f"engines would take (~{planning:.3g} s)", sv, rate, count)
     errors = []
     planned: dict[int, Option] = {}
     sizes = ([1] if engine in ("auto", "single") or count < 2 else []) + \

@@ -399,6 +399,11 @@ def quick_tree(structure: NetworkStructure, seed: int = 0):
                                    optimize=ctg.RandomGreedyOptimizer(max_repeats=4, seed=seed))
 
 
+def _target(options: "PlannerOptions") -> int | None:
+    """The largest intermediate (elements) ``options`` ask for, or None for no cap."""
+    return None if options.max_elements is None else max(2, int(options.max_elements))
+
+
 def planning_seconds(structure: NetworkStructure, options: "PlannerOptions") -> float:
     """Predicted seconds :func:`find_plan` takes on ``structure``: the quick greedy pass, then the search
     its greedy tree is worth (:func:`search_seconds_worth`), at most the budget."""
@@ -407,7 +412,7 @@ def planning_seconds(structure: NetworkStructure, options: "PlannerOptions") -> 
     greedy = 2.0 * (time.perf_counter() - t0)
     if tree is None:
         return greedy
-    target = None if options.max_elements is None else max(2, int(options.max_elements))
+    target = _target(options)
     return min(options.budget_seconds, greedy + _search_seconds(tree, target, options))
 
 
@@ -523,7 +528,7 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
     slack = 0.05 * max(0.0, options.budget_seconds)
     hard_deadline = deadline + slack + min(1.0, slack)
     methods = ["greedy", "kahypar"] if kahypar_available() else ["greedy", "labels"]
-    target = None if options.max_elements is None else max(2, int(options.max_elements))
+    target = _target(options)
     state = random.getstate()
     random.seed(options.seed)
     trials = 0

@@ -151,22 +151,22 @@ def part_amplitude(cycles: int, plan, cap_log2: int, workers: int = 1) -> dict:
     return out
 
 
+def _projected(structure) -> list[frozenset]:
+    """The projected qubit each tensor of ``structure`` holds (empty for every other tensor)."""
+    return [frozenset([src[1]]) if src[0] == "proj" else frozenset() for src in structure.sources]
+
+
+def _bit_rows(bits: list[str]) -> np.ndarray:
+    return np.array([[int(c) for c in b] for b in bits])
+
+
 def sparse_state_ratio(tree, structure, bits: list[str]) -> float:
     """Modelled multiply-adds of a batch through ``tree`` (a single-amplitude tree) when every
     intermediate is stacked over the distinct restrictions of the bitstrings to the qubits whose
     projectors it holds (the sparse-output-state idea of Pan, Chen & Zhang, Phys. Rev. Lett. 129,
     090502 (2022)), over the single amplitude's."""
-    rows = np.array([[int(c) for c in b] for b in bits])
-    proj = {i: src[1] for i, src in enumerate(structure.sources) if src[0] == "proj"}
-    qubits = {tree.input_to_node(i): frozenset([proj[i]]) if i in proj else frozenset() for i in range(tree.N)}
-    plain = stacked = 0.0
-    for p, l, r in tree.traverse():
-        qubits[p] = qubits[l] | qubits[r]
-        cols = sorted(qubits[p])
-        distinct = len({tuple(row[cols]) for row in rows}) if cols else 1
-        plain += float(tree.get_flops(p))
-        stacked += float(tree.get_flops(p)) * distinct
-    return stacked / plain
+    per_slice = sum(float(tree.get_flops(p)) for p, _, _ in tree.traverse())   # as the stacked cost counts
+    return StackedCost(_projected(structure), _bit_rows(bits)).cost(tree) / per_slice
 
 
 def _stacked_counts(structure, bits: list[str]):
@@ -174,12 +174,12 @@ def _stacked_counts(structure, bits: list[str]):
     from contraction.network.simplify import simplify_structure
 
     red = simplify_structure(structure)
-    held = {i: frozenset([src[1]]) if src[0] == "proj" else frozenset() for i, src in enumerate(structure.sources)}
+    held = dict(enumerate(_projected(structure)))
     nid = len(structure.inputs)
     for a, b in red.pre_path:
         held[nid] = held[a] | held[b]
         nid += 1
-    return red, [held[i] for i in red.ssa_ids], np.array([[int(c) for c in b] for b in bits])
+    return red, [held[i] for i in red.ssa_ids], _bit_rows(bits)
 
 
 class StackedCost:
