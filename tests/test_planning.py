@@ -261,7 +261,7 @@ def test_the_best_tree_sliced_anew_is_kept_only_when_cheaper_and_gives_the_same_
     Kourtis, Quantum 5, 410 (2021))."""
     import cotengra as ctg
 
-    from contraction.planning import search
+    from contraction.planning import slicing
 
     circ = random_instance(grid_architecture(4, 5, 10), seed=4)
     s = build_structure(circ)
@@ -276,7 +276,7 @@ def test_the_best_tree_sliced_anew_is_kept_only_when_cheaper_and_gives_the_same_
         poor.remove_ind_(ix)
     assert poor.max_size() <= target and poor.nslices > 1
     notes: dict = {}
-    kept = search._resliced(poor, target, "flops", float("inf"), float("inf"), notes, "resliced")
+    kept = slicing.resliced(poor, target, "flops", float("inf"), float("inf"), notes, "resliced")
     assert kept.max_size() <= target
     assert kept.contraction_cost() <= poor.contraction_cost()
     r = notes["resliced"]
@@ -289,7 +289,7 @@ def test_the_best_tree_sliced_anew_is_kept_only_when_cheaper_and_gives_the_same_
     # the fused stage: the fresh slicing is fused before it is compared, and its cost before fusion kept
     from contraction.planning.fusion import fuse_absorptions
 
-    kept_fused = search._resliced(fuse_absorptions(poor), target, "flops", float("inf"), float("inf"), notes,
+    kept_fused = slicing.resliced(fuse_absorptions(poor), target, "flops", float("inf"), float("inf"), notes,
                                   "resliced_fused", fuse=True)
     rf = notes["resliced_fused"]
     assert rf["kept"] and rf["madds_resliced"] == pytest.approx(kept_fused.contraction_cost())
@@ -297,6 +297,50 @@ def test_the_best_tree_sliced_anew_is_kept_only_when_cheaper_and_gives_the_same_
     psi = state_vector(circ)
     for b in random_bitstrings(rng, circ.num_qubits, 2):
         for tree in (kept, kept_fused):
+            got = contract_scalar(tree, tensor_arrays(s, circ, b))
+            assert abs(got - psi[int(b, 2)]) <= 1e-10 * abs(got)
+
+
+def test_the_search_keeps_its_best_scored_trees_and_the_cheapest_resliced_one_wins(rng, monkeypatch):
+    """The hyper search keeps the trees of its best-scored trials besides its best (cheapest first);
+    at the end each is sliced anew and the cheapest within the target is kept. The plan's contraction
+    is checked against the state vector (slices partition the sum over an index: Gray & Kourtis,
+    Quantum 5, 410 (2021))."""
+    from contraction.planning import search, slicing
+
+    circ = random_instance(grid_architecture(3, 5, 8), seed=4)
+    s = build_structure(circ)
+    opt = search._keeping_optimizer(methods=["greedy"], minimize="flops", max_repeats=24, parallel=False,
+                                    progbar=False)
+    best = opt.search(s.inputs, s.output, s.size_dict)
+    scores = [score for score, _, _ in opt.kept]
+    assert 1 < len(opt.kept) <= search.KEPT_CANDIDATES and scores == sorted(scores)
+    assert scores[0] == opt.best["score"] and any(tree is best for _, _, tree in opt.kept)
+
+    target = 2 ** 6
+    trees = [tree for _, _, tree in opt.kept]
+    sliced_first = slicing.slice_to_target(trees[-1], target, "flops")         # the worst kept, sliced
+    notes: dict = {}
+    chosen = slicing.best_resliced(sliced_first, trees, target, "flops", float("inf"), float("inf"), notes)
+    costs = notes["candidates"]["madds_resliced"]
+    assert len(costs) == len(trees) and chosen.max_size() <= target
+    assert chosen.contraction_cost() == min([sliced_first.contraction_cost()] + [c for c in costs if c])
+    # inside the planner (the search stood in by one that returns at once, leaving the final stages
+    # what they need of a budget far larger than that): the candidates are found on the simplified network, mapped back to the whole one and
+    # sliced anew; none cheaper than the plan is left out
+    def quick_search(inputs, output, sizes, options, methods, deadline, target, width_log2, grace=1.0, t0=0.0):
+        o = search._keeping_optimizer(methods=["greedy"], minimize="flops", max_repeats=24, parallel=False,
+                                      progbar=False)
+        found = o.search(inputs, output, sizes)
+        return found, len(o.scores), [t for _, _, t in o.kept if t is not found]
+
+    monkeypatch.setattr(search, "_search", quick_search)
+    plan = find_plan(s, PlannerOptions(budget_seconds=30.0, max_elements=target, minimize="flops", fuse=False))
+    cands = plan.options["candidates"]["madds_resliced"]
+    assert len(cands) >= 1 and plan.madds <= min(c for c in cands if c) * (1 + 1e-9)
+    psi = state_vector(circ)
+    for b in random_bitstrings(rng, circ.num_qubits, 2):
+        for tree in (chosen, plan.tree(s)):
             got = contract_scalar(tree, tensor_arrays(s, circ, b))
             assert abs(got - psi[int(b, 2)]) <= 1e-10 * abs(got)
 

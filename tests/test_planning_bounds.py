@@ -86,7 +86,7 @@ def search_deadline(monkeypatch) -> dict:
 
     def fake_search(inputs, output, sizes, options, methods, deadline, target, width_log2, grace=1.0, t0=0.0):
         seen["seconds"] = deadline - time.perf_counter()
-        return None, 0
+        return None, 0, []
 
     monkeypatch.setattr(search, "_search", fake_search)
     return seen

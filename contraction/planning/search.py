@@ -29,6 +29,8 @@ from contraction.errors import MemoryLimitError, PlanError
 from contraction.network.builder import NetworkStructure
 from contraction.network.simplify import simplify_structure
 from contraction.planning.fusion import fuse_absorptions
+from contraction.planning.slicing import (IN_TRIAL_SLICING_LOG2, RESLICE_MIN_SECONDS, best_resliced, excess, resliced,
+                                          slice_to_target)
 
 log = logging.getLogger(__name__)
 
@@ -170,64 +172,6 @@ class Plan:
         return tree
 
 
-def _slice_inner(tree, target: int, minimize: str, deadline: float = math.inf, hard_deadline: float = math.inf,
-                 subtree_size: int = 8, maxiter: int | str = 64):
-    """Slice until the largest intermediate fits ``target``, reconfiguring subtrees (of
-    ``subtree_size`` leaves, ``maxiter`` of them) between rounds while time is left before
-    ``deadline`` (cotengra's slice-and-reconfigure, with a stop when no inner index is left to slice);
-    past it, slicing goes on without reconfiguration until ``hard_deadline``, where it stops and the
-    caller reports the cap as not reached. Output indices (batch, open qubits) are never sliced:
-    slices are summed, and summing over an output index would add different amplitudes together."""
-    tree = tree.copy()
-    while tree.max_size() > target:
-        now = time.perf_counter()
-        if now > hard_deadline:
-            break
-        before = (tree.nslices, tree.max_size())
-        try:
-            tree.slice_(target_slices=2, minimize=minimize, allow_outer=False, max_repeats=16 if now < deadline else 2)
-        except (KeyError, ValueError, RuntimeError):   # cotengra: no candidate index left to slice
-            break
-        if time.perf_counter() < deadline:
-            tree.subtree_reconfigure_(minimize=minimize, maxiter=maxiter, subtree_size=subtree_size)
-        if (tree.nslices, tree.max_size()) == before:
-            break                     # nothing left to slice: the caller reports the cap as unreachable
-    return tree
-
-
-#: subtree size of the reconfiguration while the best tree is sliced anew (cotengra's default is 8)
-RESLICE_SUBTREE_SIZE = 10
-#: seconds that must be left before the deadline to try slicing anew (one reconfiguration round at 53
-#: qubits takes about half a second)
-RESLICE_MIN_SECONDS = 1.0
-
-
-def _resliced(tree, target: int, minimize: str, deadline: float, hard_deadline: float, record: dict,
-              stage: str, fuse: bool = False):
-    """The cheaper of ``tree`` (sliced) and the same tree with every slice undone and sliced again from
-    scratch, with reconfigurations of larger subtrees between rounds than inside the search's trials
-    (with ``fuse``, the fresh one is fused before comparing; ``tree`` is fused already). Measured on the 53-qubit
-    12-cycle network at 2^28: a tree searched for 150 s went from 10^13.00 multiply-adds (128 slices) to
-    10^12.64 (32 slices) in 2.7 s; four fused 300 s plans from 10^12.78-12.89 to 10^12.75-12.83 (fused
-    again), 2.5-3.5 s each. Skipped unless ``RESLICE_MIN_SECONDS`` are left before ``deadline`` or when
-    the unsliced tree is more than 2^12 above ``target``; ``record[stage]`` gets both costs."""
-    if not tree.sliced_inds or deadline - time.perf_counter() < RESLICE_MIN_SECONDS:
-        return tree
-    unsliced = tree.copy()
-    unsliced.unslice_all_()
-    if _excess(unsliced, target) > IN_TRIAL_SLICING_LOG2:
-        return tree
-    alt = _slice_inner(unsliced, target, minimize, deadline, hard_deadline, RESLICE_SUBTREE_SIZE, "auto")
-    fits = alt.max_size() <= target
-    record[stage] = {"madds_before": float(tree.contraction_cost()), "slices_before": tree.nslices}
-    if fits and fuse:
-        record[stage]["madds_resliced_before_fusion"] = float(alt.contraction_cost())
-        alt = fuse_absorptions(alt)
-    record[stage].update(madds_resliced=float(alt.contraction_cost()) if fits else None, slices_resliced=alt.nslices,
-                         kept=bool(fits and alt.contraction_cost() < tree.contraction_cost()))
-    return alt if record[stage]["kept"] else tree
-
-
 def retarget_plan(plan: Plan, structure: NetworkStructure, max_elements: float, seconds: float,
                   minimize: str = "combo") -> Plan | None:
     """``plan``'s contraction order applied to ``structure`` — a network with the same tensors and
@@ -241,15 +185,10 @@ def retarget_plan(plan: Plan, structure: NetworkStructure, max_elements: float, 
     except Exception:            # another network after all: cotengra raises many kinds of errors
         return None
     t0 = time.perf_counter()
-    tree = _slice_inner(tree, max(2, int(max_elements)), minimize, t0 + 0.8 * seconds, t0 + seconds)
+    tree = slice_to_target(tree, max(2, int(max_elements)), minimize, t0 + 0.8 * seconds, t0 + seconds)
     if tree.max_size() > max_elements:
         return None
     return plan_from_tree(tree, structure, {"minimize": minimize, "order_of": plan.network_key})
-
-
-def _excess(tree, target: float) -> float:
-    """log2 of how far the tree's largest intermediate is above ``target``."""
-    return math.log2(max(tree.max_size(), 1)) - math.log2(target)
 
 
 def _checksum(doc: dict) -> str:
@@ -419,13 +358,40 @@ def planning_seconds(structure: NetworkStructure, options: "PlannerOptions") -> 
 #: a tree needing more than 2^48 slices is not sliced at all: it is not feasible on any machine this
 #: service runs on, and slicing it would take minutes of search for nothing
 MAX_SLICED_LOG2 = 48
-#: in-trial slicing when the greedy baseline's width is at most 2^12 times the target (measured: the
-#: 53-qubit 12-cycle network's baseline is 2^9 above a 2^28 target; a 63-qubit QFT's 2^36 above,
-#: where one trial sliced for 48 s)
-IN_TRIAL_SLICING_LOG2 = 12
 #: log2 of how far above the memory target a tree may be for the final reconfiguration and for
 #: comparing trees by their sliced cost (beyond it the unsliced cost times the slices is the measure)
 FAR_ABOVE_TARGET = 6
+
+
+#: share of the planning time the hyper search gets; the rest goes to refining and slicing its best
+#: trees. At 53 qubits and 300 s the final stages need 10-30 s: one fresh slicing 2.5-3.5 s, the best of
+#: five candidates sliced anew reached 10^12.746 multiply-adds where the search's best reached 10^12.85.
+SEARCH_SHARE = 0.8
+#: share of the time left after slicing the best tree anew that slicing other candidates may take
+CANDIDATES_SHARE = 0.6
+#: trees of the best-scored trials the search keeps besides its best, each sliced anew at the end while
+#: time is left (:func:`contraction.planning.slicing.best_resliced`; 2.5-3.5 s each at 53 qubits)
+KEPT_CANDIDATES = 8
+
+
+def _keeping_optimizer(**kwargs):
+    """cotengra's hyper-optimizer that also keeps the trees of its ``KEPT_CANDIDATES`` best-scored
+    trials in ``.kept`` (best first). It hooks the method every finished trial is reported through
+    (cotengra is pinned: should that method change, ``.kept`` stays empty and only the best is used)."""
+    import cotengra as ctg
+
+    class KeepingOptimizer(ctg.HyperOptimizer):
+        def _maybe_report_result(self, setting, trial):
+            super()._maybe_report_result(setting, trial)
+            tree = trial.get("tree")
+            if tree is not None and math.isfinite(trial.get("score", math.inf)):
+                self.kept.append((trial["score"], len(self.scores), tree))   # the count breaks ties
+                self.kept.sort(key=lambda kept: kept[:2])
+                del self.kept[KEPT_CANDIDATES:]
+
+    opt = KeepingOptimizer(**kwargs)
+    opt.kept = []
+    return opt
 
 
 def _search(inputs, output, sizes, options: PlannerOptions, methods, deadline: float, target, width_log2: float,
@@ -433,8 +399,6 @@ def _search(inputs, output, sizes, options: PlannerOptions, methods, deadline: f
     """The hyper-optimized search on (inputs, output, sizes) until ``deadline`` (see
     :func:`_run_search`). When the greedy baseline's width is within 2^12 of ``target``, every trial
     is scored after slicing to it, so the tree is chosen for the cap, not sliced after the fact."""
-    import cotengra as ctg
-
     # slicing interleaved with a bounded subtree reconfiguration inside each trial: on the 53-qubit
     # 12-cycle network at a 2^28 target it reached 10^13.66 multiply-adds in 60 s against 10^13.91
     # with plain slicing per trial (kahypar trials, two processes, measured in one session). Far above
@@ -448,7 +412,7 @@ def _search(inputs, output, sizes, options: PlannerOptions, methods, deadline: f
     workers = 0 if isinstance(options.parallel, bool) else int(options.parallel)
     pool = cf.ProcessPoolExecutor(workers) if workers > 1 else None
     try:
-        opt = ctg.HyperOptimizer(
+        opt = _keeping_optimizer(
             methods=methods, minimize=options.minimize, max_repeats=options.max_repeats, max_time=1.0,
             parallel=pool if pool is not None else options.parallel, reconf_opts=None, slicing_opts=None,
             slicing_reconf_opts=slicing_reconf, progbar=False, on_trial_error="ignore",
@@ -464,7 +428,7 @@ def _run_search(opt, inputs, output, sizes, deadline: float, pool, grace: float,
     """Run ``opt`` until ``deadline``; with a ``pool`` of worker processes, at most ``grace`` seconds
     past it. Reports progress about every second to the observer of :func:`observe_searches`
     (``t0``: when the plan was asked for, ``budget``: its seconds). Returns (best tree or None, trials
-    done)."""
+    done, other well-scored trees kept by the optimizer, best first)."""
     # one call for the whole budget: splitting it into rounds lost most trials in flight when a round
     # ended (12 trials in 90 s against 34 in 60 s on the 53-qubit network)
     opt.max_time = max(0.05, deadline - time.perf_counter())
@@ -473,7 +437,7 @@ def _run_search(opt, inputs, output, sizes, deadline: float, pool, grace: float,
             best = opt.search(inputs, output, sizes)
         except (ValueError, KeyError, RuntimeError):      # no trial finished in time
             best = None
-        return best, len(opt.scores)
+        return best, len(opt.scores), [tree for _, _, tree in getattr(opt, "kept", []) if tree is not best]
     # with worker processes the deadline is hard: trials still running shortly after it are ended
     # (their processes terminated) and the best tree reported so far is kept
     done: dict = {}
@@ -498,7 +462,7 @@ def _run_search(opt, inputs, output, sizes, deadline: float, pool, grace: float,
         worker.join(5.0)
     best = done.get("tree") or (opt.best or {}).get("tree")
     trials = len(opt.scores)
-    return best, trials
+    return best, trials, [tree for _, _, tree in getattr(opt, "kept", []) if tree is not best]
 
 
 def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOptions()) -> Plan:
@@ -540,6 +504,7 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
             tree = ctg.ContractionTree.from_path(structure.inputs, structure.output, structure.size_dict, path=path)
             reduced_tensors = structure.num_tensors
         else:
+            candidates: list = []             # other trees the search scored well (reduced network)
             red = simplify_structure(structure) if options.simplify else None
             inputs, output, sizes = ((red.inputs, red.output, red.size_dict) if red is not None
                                      else (structure.inputs, structure.output, structure.size_dict))
@@ -549,9 +514,9 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
                 if target is None or t.max_size() <= target:
                     return t.contraction_cost()
                 # far above the target, slicing only to compare would cost too much time: a lower bound
-                if _excess(t, target) > FAR_ABOVE_TARGET:
-                    return t.contraction_cost() * 2.0 ** _excess(t, target)
-                return _slice_inner(t, target, options.minimize, 0, hard_deadline).contraction_cost()
+                if excess(t, target) > FAR_ABOVE_TARGET:
+                    return t.contraction_cost() * 2.0 ** excess(t, target)
+                return slice_to_target(t, target, options.minimize, 0, hard_deadline).contraction_cost()
 
             if len(inputs) == 1:
                 best = None
@@ -561,34 +526,40 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
                 greedy = ctg.RandomGreedyOptimizer(max_repeats=32 if len(inputs) < 300 else 8, seed=options.seed)
                 best = ctg.array_contract_tree(inputs, output, sizes, optimize=greedy)
                 # a tree within the target is searched only as long as its greedy cost makes it worth;
-                # the search gets 90 % of what is left, refinement and slicing the rest (measured at
-                # 53 qubits: under 3 s after a 120 s search)
+                # the search gets SEARCH_SHARE of what is left, refinement and slicing the rest
                 deadline = min(deadline, time.perf_counter() + _search_seconds(best, target, options))
-                search_deadline = time.perf_counter() + 0.9 * (deadline - time.perf_counter())
+                search_deadline = time.perf_counter() + SEARCH_SHARE * (deadline - time.perf_counter())
                 if len(inputs) > 8 and search_deadline - time.perf_counter() > 0.1:
-                    found, trials = _search(inputs, output, sizes, options, methods, search_deadline, target,
+                    found, trials, candidates = _search(inputs, output, sizes, options, methods, search_deadline, target,
                                             math.log2(max(best.max_size(), 1)),
                                             grace=0.5 * (deadline - search_deadline), t0=t0)
                     if found is not None and cost(found) < cost(best):
                         best = found
-            if red is not None:
-                ssa = [] if best is None else best.get_ssa_path()
-                tree = ctg.ContractionTree.from_path(structure.inputs, structure.output, structure.size_dict,
+            def on_network(found):
+                """A tree of the search on the whole network (unsliced)."""
+                if red is None:
+                    if found is None:
+                        return None
+                    whole = found.copy()
+                    whole.unslice_all_()
+                    return whole
+                ssa = [] if found is None else found.get_ssa_path()
+                return ctg.ContractionTree.from_path(structure.inputs, structure.output, structure.size_dict,
                                                      ssa_path=red.full_path(ssa))
-                for ix in ([] if best is None else best.sliced_inds):
-                    tree.remove_ind_(ix)
-            else:
-                tree = best
-            if time.perf_counter() < deadline and (target is None or _excess(tree, target) <= FAR_ABOVE_TARGET):
+
+            tree = on_network(best)
+            for ix in ([] if best is None else best.sliced_inds):
+                tree.remove_ind_(ix)
+            if time.perf_counter() < deadline and (target is None or excess(tree, target) <= FAR_ABOVE_TARGET):
                 tree.subtree_reconfigure_(minimize=options.minimize, maxiter=256)
-            if target is not None and _excess(tree, target) > MAX_SLICED_LOG2:
+            if target is not None and excess(tree, target) > MAX_SLICED_LOG2:
                 raise MemoryLimitError(
                     f"not feasible: the best tree found in {time.perf_counter() - t0:.3g} s has its largest "
                     f"intermediate at 2^{math.log2(tree.max_size()):.0f} elements, so fitting the cap of "
-                    f"{options.max_elements:.3g} elements would take at least 2^{_excess(tree, target):.0f} slices of "
+                    f"{options.max_elements:.3g} elements would take at least 2^{excess(tree, target):.0f} slices of "
                     f"10^{math.log10(max(tree.contraction_cost(), 1)):.1f} multiply-adds each")
             if target is not None and tree.max_size() > target:
-                tree = _slice_inner(tree, target, options.minimize, deadline, hard_deadline)
+                tree = slice_to_target(tree, target, options.minimize, deadline, hard_deadline)
             if target is not None and tree.max_size() > target:
                 # the interleaved slicing ran out of time or candidates: one plain greedy slicing pass
                 # (cotengra's, seconds at most) rather than refusing a network that does fit
@@ -596,8 +567,17 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
                     tree = tree.slice(target_size=target, allow_outer=False)
                 except (KeyError, ValueError, RuntimeError):
                     pass
+            reslice_seconds = RESLICE_MIN_SECONDS
             if target is not None and tree.max_size() <= target:
-                tree = _resliced(tree, target, options.minimize, deadline, hard_deadline, notes, "resliced")
+                start = time.perf_counter()
+                tree = resliced(tree, target, options.minimize, deadline, hard_deadline, notes, "resliced")
+                if "resliced" in notes:                   # it ran: one fresh slicing takes about this long
+                    reslice_seconds = time.perf_counter() - start
+            if target is not None and tree.max_size() <= target and tree.sliced_inds and candidates:
+                # the fused tree's own fresh slicing (below) keeps the last part of the time
+                until = time.perf_counter() + CANDIDATES_SHARE * (deadline - time.perf_counter())
+                tree = best_resliced(tree, [on_network(c) for c in candidates], target, options.minimize,
+                                     until, hard_deadline, notes, reslice_seconds)
             if target is not None and tree.nslices > 2 ** MAX_SLICED_LOG2:
                 raise MemoryLimitError(
                     f"not feasible: fitting the cap of {options.max_elements:.3g} elements takes 2^"
@@ -616,7 +596,7 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
         tree = fuse_absorptions(tree)
         if target is not None:
             # the fused tree is another starting point: sliced anew from it, then fused again
-            tree = _resliced(tree, target, options.minimize, deadline, hard_deadline, notes, "resliced_fused",
+            tree = resliced(tree, target, options.minimize, deadline, hard_deadline, notes, "resliced_fused",
                              fuse=True)
             if notes.get("resliced_fused", {}).get("kept"):
                 notes["madds_before_fusion"] = notes["resliced_fused"]["madds_resliced_before_fusion"]

@@ -4,9 +4,10 @@ complex128 and complex64; the complex64 value's error against complex128; what c
 exponent stripping (every intermediate rescaled) costs against the plain-first contraction; and a
 run of consecutive slices keeping intermediates between them (complex64).
 
-All on one BLAS thread (a contraction worker's setting), one slice per case: the first run apart
-(fresh memory) and the median of the runs after it (at least one; ``--repeats`` in all, two for
-slices over 10 s). Plans are searched in this run with the
+All on one BLAS thread (a contraction worker's setting), one slice per case, run as a worker runs
+its slices (one contractor made first, its set-up reported apart): the first run apart (fresh
+memory) and the median of the runs after it (at least one; ``--repeats`` in all, two for slices over
+10 s); ``seconds_with_a_new_contractor`` is the same slice with a contractor made for it alone. Plans are searched in this run with the
 service's default objective ("combo": multiply-adds and memory writes).
 
     python tests/benchmarks/bench_gemm_rate.py [--budget 30] [--repeats 3] [--cases 20,24,27]
@@ -63,12 +64,21 @@ def case(width: int, budget: float, repeats: int, run_slices: int) -> dict:
         for dtype in ("complex128", "complex64"):
             before = matmul_rate(dtype=np.dtype(dtype))
             arrays = tensor_arrays(s, circ, bits, dtype=dtype)
-            seconds, first, (m, e) = timed(lambda: contract_slice_scaled(tree, arrays, 0), repeats)
+            # a worker runs its slices with one contractor (step program, arena): made once here, its
+            # set-up timed apart; the same slice contracted again does all of its work every time (no
+            # intermediates are kept without a reuse plan)
+            t = time.perf_counter()
+            steady = SliceContractor(tree, arrays)
+            setup = time.perf_counter() - t
+            seconds, first, (m, e) = timed(lambda: contract_slice_scaled(tree, arrays, 0, steady), repeats)
+            fresh, _, _ = timed(lambda: contract_slice_scaled(tree, arrays, 0), 2)
             values[dtype] = complex(m) * 10.0 ** e
             # the ceiling: the better of two measurements around the slice (the first may overlap the
             # planning processes' exit)
             rate = max(before, matmul_rate(dtype=np.dtype(dtype)))
             row[dtype] = {"seconds": round(seconds, 3), "first_slice_seconds": round(first, 3),
+                          "contractor_setup_seconds": round(setup, 4),
+                          "seconds_with_a_new_contractor": round(fresh, 3),
                           "first_slice_fraction_of_matmul": round(per_slice / first / rate, 3),
                           "matmul_madds_per_s": rate,
                           "madds_per_s": per_slice / seconds, "fraction_of_matmul": round(per_slice / seconds / rate, 3)}
