@@ -470,12 +470,14 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
 
     Stages: structure-only simplification (:mod:`contraction.network.simplify`, its steps become the first
     steps of the path); a randomised-greedy baseline; a hyper-optimized search over trees (greedy and,
-    when installed, kahypar partitions) for 90 % of the budget (of the time a search is worth when the
+    when installed, kahypar partitions) for SEARCH_SHARE (80 %) of the budget (of the time a search is worth when the
     baseline fits the memory target: :func:`search_seconds_worth`), in which, when the baseline is
     within 2^12 of the memory target, every trial is scored after slicing to the target, so the tree is
     chosen for the cap; then a subtree reconfiguration and slicing of the best tree, stopped by the
     deadline (slicing may take 5 % more, and as much again up to 1 s), and the same tree sliced anew
-    from scratch with larger reconfigurations, the cheaper kept (:func:`_resliced`); last, small
+    from scratch with larger reconfigurations, the cheaper kept (:func:`~contraction.planning.slicing.resliced`),
+    then the search's other best-scored trees sliced anew likewise (:func:`~contraction.planning.slicing.best_resliced`);
+    last, small
     tensors absorbed one by one into large intermediates are grouped
     (:mod:`contraction.planning.fusion`; the searched tree's multiply-adds are kept in the plan's
     options as ``madds_before_fusion``) and the grouped tree is sliced anew likewise. With
