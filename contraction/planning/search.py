@@ -470,19 +470,18 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
 
     Stages: structure-only simplification (:mod:`contraction.network.simplify`, its steps become the first
     steps of the path); a randomised-greedy baseline; a hyper-optimized search over trees (greedy and,
-    when installed, kahypar partitions) for SEARCH_SHARE (80 %) of the budget (of the time a search is worth when the
-    baseline fits the memory target: :func:`search_seconds_worth`), in which, when the baseline is
-    within 2^12 of the memory target, every trial is scored after slicing to the target, so the tree is
-    chosen for the cap; then a subtree reconfiguration and slicing of the best tree, stopped by the
-    deadline (slicing may take 5 % more, and as much again up to 1 s), and the same tree sliced anew
-    from scratch with larger reconfigurations, the cheaper kept (:func:`~contraction.planning.slicing.resliced`),
-    then the search's other best-scored trees sliced anew likewise (:func:`~contraction.planning.slicing.best_resliced`);
-    last, small
+    when installed, kahypar partitions) for ``SEARCH_SHARE`` (80 %) of the budget (of the time a search
+    is worth when the baseline fits the memory target: :func:`search_seconds_worth`), in which, when the
+    baseline is within 2^12 of the memory target, every trial is scored after slicing to the target, so
+    the tree is chosen for the cap; then a subtree reconfiguration and slicing of the best tree, stopped
+    by the deadline (slicing may take 5 % more, and as much again up to 1 s), and the same tree sliced
+    anew from scratch with larger reconfigurations, the cheaper kept (``slicing.resliced``), then the
+    search's other best-scored trees sliced anew likewise (``slicing.best_resliced``); last, small
     tensors absorbed one by one into large intermediates are grouped
     (:mod:`contraction.planning.fusion`; the searched tree's multiply-adds are kept in the plan's
     options as ``madds_before_fusion``) and the grouped tree is sliced anew likewise. With
-    ``parallel`` > 1 the deadline is hard: trials still running are ended. Raises :class:`MemoryLimitError` when no tree within
-    ``max_elements`` is found, with the best figures found ("not feasible" when it would take more than
+    ``parallel`` > 1 the deadline is hard: trials still running are ended. Raises
+    :class:`MemoryLimitError` when no tree within ``max_elements`` is found, with the best figures found ("not feasible" when it would take more than
     2^48 slices).
     """
     import cotengra as ctg
@@ -532,11 +531,12 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
                 deadline = min(deadline, time.perf_counter() + _search_seconds(best, target, options))
                 search_deadline = time.perf_counter() + SEARCH_SHARE * (deadline - time.perf_counter())
                 if len(inputs) > 8 and search_deadline - time.perf_counter() > 0.1:
-                    found, trials, candidates = _search(inputs, output, sizes, options, methods, search_deadline, target,
-                                            math.log2(max(best.max_size(), 1)),
-                                            grace=0.5 * (deadline - search_deadline), t0=t0)
+                    found, trials, candidates = _search(inputs, output, sizes, options, methods, search_deadline,
+                                                        target, math.log2(max(best.max_size(), 1)),
+                                                        grace=0.5 * (deadline - search_deadline), t0=t0)
                     if found is not None and cost(found) < cost(best):
                         best = found
+
             def on_network(found):
                 """A tree of the search on the whole network (unsliced)."""
                 if red is None:

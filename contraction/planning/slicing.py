@@ -54,8 +54,19 @@ RESLICE_SUBTREE_SIZE = 10
 RESLICE_MIN_SECONDS = 1.0
 
 
+def _sliced_anew(tree, target: int, minimize: str, deadline: float, hard_deadline: float):
+    """``tree`` with every slice undone and sliced again from scratch, with reconfigurations of larger
+    subtrees between rounds than inside the search's trials; None when the unsliced tree is more than
+    2^12 above ``target`` (slicing it from scratch could take minutes)."""
+    unsliced = tree.copy()
+    unsliced.unslice_all_()
+    if excess(unsliced, target) > IN_TRIAL_SLICING_LOG2:
+        return None
+    return slice_to_target(unsliced, target, minimize, deadline, hard_deadline, RESLICE_SUBTREE_SIZE, "auto")
+
+
 def resliced(tree, target: int, minimize: str, deadline: float, hard_deadline: float, record: dict,
-              stage: str, fuse: bool = False):
+             stage: str, fuse: bool = False):
     """The cheaper of ``tree`` (sliced) and the same tree with every slice undone and sliced again from
     scratch, with reconfigurations of larger subtrees between rounds than inside the search's trials
     (with ``fuse``, the fresh one is fused before comparing; ``tree`` is fused already). Measured on the 53-qubit
@@ -65,11 +76,9 @@ def resliced(tree, target: int, minimize: str, deadline: float, hard_deadline: f
     the unsliced tree is more than 2^12 above ``target``; ``record[stage]`` gets both costs."""
     if not tree.sliced_inds or deadline - time.perf_counter() < RESLICE_MIN_SECONDS:
         return tree
-    unsliced = tree.copy()
-    unsliced.unslice_all_()
-    if excess(unsliced, target) > IN_TRIAL_SLICING_LOG2:
+    alt = _sliced_anew(tree, target, minimize, deadline, hard_deadline)
+    if alt is None:
         return tree
-    alt = slice_to_target(unsliced, target, minimize, deadline, hard_deadline, RESLICE_SUBTREE_SIZE, "auto")
     fits = alt.max_size() <= target
     record[stage] = {"madds_before": float(tree.contraction_cost()), "slices_before": tree.nslices}
     if fits and fuse:
@@ -94,10 +103,8 @@ def best_resliced(tree, candidates, target: int, minimize: str, deadline: float,
         start = time.perf_counter()
         if deadline - start < needed:
             break
-        unsliced = cand.copy()
-        unsliced.unslice_all_()
-        alt = slice_to_target(unsliced, target, minimize, deadline, hard_deadline, RESLICE_SUBTREE_SIZE, "auto")
-        fits = alt.max_size() <= target
+        alt = _sliced_anew(cand, target, minimize, deadline, hard_deadline)
+        fits = alt is not None and alt.max_size() <= target
         needed = max(needed if costs else 0.0, time.perf_counter() - start)
         costs.append(float(alt.contraction_cost()) if fits else None)
         if fits and alt.contraction_cost() < tree.contraction_cost():

@@ -5,7 +5,7 @@ planned before its timing, so planning is not what is compared; ``auto`` then fi
 chose and ``auto / fastest`` (goal: at most 1.25 on every case). Runs shorter than ``--short``
 seconds are repeated (``--repeats``) and their median reported.
 
-Cases: grid circuits (Haar two-qubit gates) of 20-40 qubits with 1 to 2,000 bitstrings, a 25-qubit
+Cases: grid circuits (Haar two-qubit gates) of 20-53 qubits with 1 to 10,000 bitstrings, a 25-qubit
 swap test, a 24-qubit QFT (diagonal controlled phases) and a 30-qubit quantum-volume circuit.
 
     python tests/benchmarks/bench_engine_choice.py [--budget 5] [--cases all|quick|large|N,M,...] [--reuse-forced] [--repeats 5]
@@ -45,11 +45,13 @@ def cases(which: str):
     out = [("grid20x10", grid(4, 5, 10), 1), ("grid20x10", grid(4, 5, 10), 1000),
            ("grid24x12", grid(4, 6, 12), 64), ("swap25", swap_test(12), 1), ("qft24", qft(24), 16),
            ("qv30x8", quantum_volume(30, 8, seed=2), 1), ("grid30x12", grid(5, 6, 12), 256),
-           ("grid36x8", grid(6, 6, 8), 64), ("grid40x8", grid(5, 8, 8), 2000)]
+           ("grid36x8", grid(6, 6, 8), 64), ("grid40x8", grid(5, 8, 8), 2000),
+           ("grid20x10", grid(4, 5, 10), 10000),
+           ("grid53x8", random_instance(grid_architecture(6, 9, 8, removed=frozenset({53})), seed=1), 16)]
     if which == "quick":
         return out[:4]
     if which == "large":
-        return out[6:]
+        return out[6:9] + out[10:]
     if which == "all":
         return out
     try:                                            # case numbers (0-based) in the list above
