@@ -332,7 +332,7 @@ def test_the_search_keeps_its_best_scored_trees_and_the_cheapest_resliced_one_wi
         o = search._keeping_optimizer(methods=["greedy"], minimize="flops", max_repeats=24, parallel=False,
                                       progbar=False)
         found = o.search(inputs, output, sizes)
-        return found, len(o.scores), [t for _, _, t in o.kept if t is not found]
+        return found, len(o.scores), search.kept_besides(o, found)
 
     monkeypatch.setattr(search, "_search", quick_search)
     plan = find_plan(s, PlannerOptions(budget_seconds=30.0, max_elements=target, minimize="flops", fuse=False))

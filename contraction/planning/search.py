@@ -394,6 +394,11 @@ def _keeping_optimizer(**kwargs):
     return opt
 
 
+def kept_besides(opt, best) -> list:
+    """The trees ``opt`` (from :func:`_keeping_optimizer`) kept other than ``best``, best-scored first."""
+    return [tree for _, _, tree in getattr(opt, "kept", []) if tree is not best]
+
+
 def _search(inputs, output, sizes, options: PlannerOptions, methods, deadline: float, target, width_log2: float,
             grace: float = 1.0, t0: float = 0.0):
     """The hyper-optimized search on (inputs, output, sizes) until ``deadline`` (see
@@ -437,7 +442,7 @@ def _run_search(opt, inputs, output, sizes, deadline: float, pool, grace: float,
             best = opt.search(inputs, output, sizes)
         except (ValueError, KeyError, RuntimeError):      # no trial finished in time
             best = None
-        return best, len(opt.scores), [tree for _, _, tree in getattr(opt, "kept", []) if tree is not best]
+        return best, len(opt.scores), kept_besides(opt, best)
     # with worker processes the deadline is hard: trials still running shortly after it are ended
     # (their processes terminated) and the best tree reported so far is kept
     done: dict = {}
@@ -462,7 +467,7 @@ def _run_search(opt, inputs, output, sizes, deadline: float, pool, grace: float,
         worker.join(5.0)
     best = done.get("tree") or (opt.best or {}).get("tree")
     trials = len(opt.scores)
-    return best, trials, [tree for _, _, tree in getattr(opt, "kept", []) if tree is not best]
+    return best, trials, kept_besides(opt, best)
 
 
 def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOptions()) -> Plan:
@@ -481,8 +486,8 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
     (:mod:`contraction.planning.fusion`; the searched tree's multiply-adds are kept in the plan's
     options as ``madds_before_fusion``) and the grouped tree is sliced anew likewise. With
     ``parallel`` > 1 the deadline is hard: trials still running are ended. Raises
-    :class:`MemoryLimitError` when no tree within ``max_elements`` is found, with the best figures found ("not feasible" when it would take more than
-    2^48 slices).
+    :class:`MemoryLimitError` when no tree within ``max_elements`` is found, with the best figures found
+    ("not feasible" when it would take more than 2^48 slices).
     """
     import cotengra as ctg
 
@@ -578,7 +583,7 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
             if target is not None and tree.max_size() <= target and tree.sliced_inds and candidates:
                 # the fused tree's own fresh slicing (below) keeps the last part of the time
                 until = time.perf_counter() + CANDIDATES_SHARE * (deadline - time.perf_counter())
-                tree = best_resliced(tree, [on_network(c) for c in candidates], target, options.minimize,
+                tree = best_resliced(tree, (on_network(c) for c in candidates), target, options.minimize,
                                      until, hard_deadline, notes, reslice_seconds)
             if target is not None and tree.nslices > 2 ** MAX_SLICED_LOG2:
                 raise MemoryLimitError(

@@ -92,11 +92,13 @@ def resliced(tree, target: int, minimize: str, deadline: float, hard_deadline: f
 def best_resliced(tree, candidates, target: int, minimize: str, deadline: float, hard_deadline: float,
                   record: dict, expected_seconds: float = RESLICE_MIN_SECONDS):
     """The cheapest of ``tree`` (sliced, within ``target``) and each of ``candidates`` (other trees the
-    search scored well, in order) sliced from scratch as :func:`resliced` does, while the time left
+    search scored well, in order; mapped lazily, as they are reached) sliced from scratch as
+    :func:`resliced` does, while the time left
     before ``deadline`` is at least what one such slicing takes (``expected_seconds`` for the first,
     then the longest so far). The search's ranking comes from slicing with small reconfigurations,
     which is noisy: slicing anew moved the best 53-qubit tree by up to 2.3x.
-    ``record["candidates"]`` gets each candidate's cost (None when it did not fit in time)."""
+    ``record["candidates"]`` gets each tried candidate's cost (None when it did not reach the target in
+    time, or lies too far above it to be sliced anew)."""
     costs = []
     needed = expected_seconds
     for cand in candidates:
