@@ -335,14 +335,55 @@ def test_the_search_keeps_its_best_scored_trees_and_the_cheapest_resliced_one_wi
         return found, len(o.scores), search.kept_besides(o, found)
 
     monkeypatch.setattr(search, "_search", quick_search)
+    monkeypatch.setattr(slicing, "REFINE_SUBTREE_SIZES", (6,))         # the refinement after them: brief
     plan = find_plan(s, PlannerOptions(budget_seconds=30.0, max_elements=target, minimize="flops", fuse=False))
     cands = plan.options["candidates"]["madds_resliced"]
     assert len(cands) >= 1 and plan.madds <= min(c for c in cands if c) * (1 + 1e-9)
+    # then the kept tree is refined (never made dearer) and that is the plan (no fusion asked for)
+    refined = plan.options["refined"]
+    assert refined["madds_refined"] <= refined["madds_before"] and plan.madds == refined["madds_refined"]
     psi = state_vector(circ)
     for b in random_bitstrings(rng, circ.num_qubits, 2):
         for tree in (chosen, plan.tree(s)):
             got = contract_scalar(tree, tensor_arrays(s, circ, b))
             assert abs(got - psi[int(b, 2)]) <= 1e-10 * abs(got)
+
+
+def test_forest_refinement_lowers_a_sliced_trees_cost_and_keeps_its_slices(rng, monkeypatch):
+    """Rounds of forested subtree reconfiguration (Gray & Kourtis, Quantum 5, 410 (2021), sec. on
+    subtree reconfiguration) on a sliced tree: the multiply-adds go down, the memory target stays, no
+    index is sliced that was not, the amplitudes still equal the state vector's; with no time left
+    nothing runs. Sliced more than needed, the slices the target does not need are restored."""
+    import cotengra as ctg
+
+    from contraction.planning import slicing
+
+    monkeypatch.setattr(slicing, "REFINE_SUBTREE_SIZES", (6, 8))      # small subtrees: a quick test
+
+    circ = random_instance(grid_architecture(4, 5, 10), seed=2)
+    s = build_structure(circ)
+    # a poor start: one plain greedy tree, sliced without any reconfiguration
+    tree = ctg.array_contract_tree(s.inputs, s.output, s.size_dict, optimize="greedy")
+    target = 2 ** 8
+    start = tree.slice(target_size=target, allow_outer=False)
+    notes: dict = {}
+    better = slicing.refined(start, target, "flops", float("inf"), False, notes, seed=1)
+    assert better.contraction_cost() < start.contraction_cost()
+    assert better.max_size() <= target and set(better.sliced_inds) <= set(start.sliced_inds)
+    assert notes["refined"]["madds_refined"] == better.contraction_cost() and notes["refined"]["rounds"] >= 2
+    psi = state_vector(circ)
+    for b in random_bitstrings(rng, circ.num_qubits, 2):
+        got = contract_scalar(better, tensor_arrays(s, circ, b))
+        assert abs(got - psi[int(b, 2)]) <= 1e-10 * abs(psi[int(b, 2)])
+    untouched: dict = {}
+    assert slicing.refined(start, target, "flops", 0.0, False, untouched) is start and untouched == {}
+    # sliced to a quarter of the target, then the slices the target does not need restored
+    over = better.slice(target_size=target // 4, allow_outer=False)
+    back = slicing.restored(over, target)
+    assert over.nslices > better.nslices and back.nslices < over.nslices
+    assert back.max_size() <= target and back.contraction_cost() < over.contraction_cost()
+    got = contract_scalar(back, tensor_arrays(s, circ, "0" * circ.num_qubits))
+    assert abs(got - psi[0]) <= 1e-10 * abs(psi[0])
 
 
 def test_predictions_carry_the_requests_fixed_cost():

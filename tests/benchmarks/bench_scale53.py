@@ -80,10 +80,13 @@ def part_plan(cycles: int, budget: float, cap_log2: int, baseline: bool = True,
             "slicing_overhead": round(plan.slicing_overhead, 3), "slices": plan.nslices,
             "width_log2": plan.width, "trials": plan.options.get("trials"),
             "tensors_after_simplify": plan.options.get("tensors_after_simplify")}
-    for stage in ("resliced", "resliced_fused"):   # the final stages: the tree as it was and sliced anew
+    def log10s(v):
+        return [log10s(x) for x in v] if isinstance(v, list) else (round(math.log10(v), 3) if v else v)
+
+    # the final stages: the tree sliced anew, the other kept trees sliced anew, the forest refinement
+    for stage in ("resliced", "candidates", "refined", "resliced_fused"):
         if plan.options.get(stage):
-            ours[stage] = {k: (round(math.log10(v), 3) if k.startswith("madds") and v else v)
-                           for k, v in plan.options[stage].items()}
+            ours[stage] = {k: (log10s(v) if k.startswith("madds") else v) for k, v in plan.options[stage].items()}
     if not baseline:
         return {"part": "p_plan", "qubits": circ.num_qubits, "cycles": cycles, "budget_s": budget,
                 "cap_elements_log2": cap_log2, "target_intermediate_log2": math.log2(target), "veramp": ours,
