@@ -91,3 +91,19 @@ def test_a_kept_mapping_serves_one_arena_at_a_time(monkeypatch):
     assert not np.may_share_memory(c._bytes, b._bytes)
     d = arena_module.Arena(plan)                                      # nothing idle: a new one
     assert not np.may_share_memory(d._bytes, c._bytes) and not np.may_share_memory(d._bytes, b._bytes)
+
+
+@pytest.mark.parametrize("rows,cols,cycles,cap", [(4, 5, 10, 2 ** 8), (5, 5, 12, 2 ** 12), (4, 6, 10, None)])
+def test_a_plans_peak_covers_what_the_executor_holds(rows, cols, cycles, cap):
+    """The peak a plan records (and the memory cap is checked against) counts what the executor holds
+    at once — inputs, live intermediates, a step's output and its rearranged copies — so it is never
+    below the arena's busiest step nor below cotengra's own peak of the live intermediates."""
+    from contraction.planning.search import executor_peak_elements, plan_from_tree
+
+    circuit = random_instance(grid_architecture(rows, cols, cycles), 3, gates="discrete")
+    s = build_structure(circuit)
+    tree = find_plan(s, PlannerOptions(budget_seconds=1.0, max_elements=cap, parallel=False)).tree(s)
+    peak = executor_peak_elements(tree)
+    assert plan_from_tree(tree, s, {}).peak_elements == peak
+    arena = plan_arena(program_for(tree), set(), 16, min_bytes=0)
+    assert peak * 16 >= arena.live_peak_bytes and peak >= tree.peak_size()

@@ -197,6 +197,24 @@ def _checksum(doc: dict) -> str:
     return hashlib.sha256(blob).hexdigest()
 
 
+def executor_peak_elements(tree) -> float:
+    """Elements held at once while one slice of ``tree`` is contracted, as the executor runs it: the
+    input tensors throughout, the live intermediates, and at each step its output plus a rearranged
+    copy of each operand (at most; cotengra's peak counts no copies). On three 53-qubit plans this
+    equalled the executor's arena to within the inputs (3.0, 6.0 and 8.0 GiB against cotengra's 2.0,
+    4.0 and 6.0): an 8 GiB cap passed by the latter peaked at 8.71 GB resident."""
+    if tree.N < 2:
+        return float(tree.peak_size()) if tree.N else 0.0
+    size = tree.get_size
+    live = float(sum(size(tree.input_to_node(i)) for i in range(tree.N)))
+    peak = live
+    for p, l, r in tree.traverse():
+        sl, sr, so = size(l), size(r), size(p)
+        peak = max(peak, live + so + sl + sr)
+        live += so - (0 if tree.is_leaf(l) else sl) - (0 if tree.is_leaf(r) else sr)
+    return max(peak, float(tree.peak_size()))
+
+
 def plan_from_tree(tree, structure: NetworkStructure, options: dict) -> Plan:
     """The :class:`Plan` of a cotengra tree for ``structure`` (costs measured on the tree, sliced and unsliced)."""
     canon = structure.canonical
@@ -214,7 +232,7 @@ def plan_from_tree(tree, structure: NetworkStructure, options: dict) -> Plan:
         madds=float(tree.contraction_cost()),
         madds_unsliced=madds_unsliced,
         width=float(tree.contraction_width()) if structure.num_tensors > 1 else 0.0,
-        peak_elements=float(tree.peak_size()),
+        peak_elements=executor_peak_elements(tree),
         nslices=int(tree.nslices),
         options=options,
         writes=float(tree.total_write()),
