@@ -445,3 +445,21 @@ def test_a_plan_used_again_reuses_its_checked_tree():
         dataclasses.replace(plan, madds=plan.madds * 1.5).tree(s)
     value = contract_scalar(plan.tree(s), tensor_arrays(s, circ, "0" * 12))
     assert value == pytest.approx(complex(state_vector(circ)[0]), abs=1e-12)
+
+
+def test_a_stored_plan_whose_real_peak_exceeds_the_cap_is_not_used():
+    """A plan recorded with a peak below what the executor holds (as plans stored before copies were
+    counted are) is checked again when read from the store: over the cap it is not used."""
+    from contraction.errors import NoStoredPlan
+    from contraction.planning.engine_choice import PLAN_SHARE_OF_CAP
+    from contraction.planning.search import executor_peak_elements
+
+    s = build_structure(random_instance(grid_architecture(4, 5, 10), 1, gates="discrete"))
+    plan = find_plan(s, PlannerOptions(budget_seconds=1.0, max_elements=2 ** 10, parallel=False))
+    real = executor_peak_elements(plan.tree(s))
+    store = MemoryPlanStore()
+    store.put(dataclasses.replace(plan, peak_elements=1.0))
+    under = real * 16 / PLAN_SHARE_OF_CAP            # the cap (complex128 bytes) the real peak just fits
+    assert network_plan(s, store, None, memory_bytes=1.01 * under).from_store
+    with pytest.raises(NoStoredPlan):
+        network_plan(s, store, None, memory_bytes=0.99 * under)

@@ -27,7 +27,8 @@ from contraction.circuits.model import Circuit
 from contraction.errors import MemoryLimitError, NoStoredPlan, PlanError, VerampError
 from contraction.network.builder import NetworkStructure, build_structure
 from contraction.planning.rates import NOMINAL_RATE, MachineRate
-from contraction.planning.search import Plan, PlannerOptions, find_plan, planning_seconds, retarget_plan
+from contraction.planning.search import (Plan, PlannerOptions, executor_peak_elements, find_plan, planning_seconds,
+                                         retarget_plan)
 from contraction.planning.slice_reuse import reuse_budget, reuse_plan_for
 from contraction.planning.store import PlanStore
 
@@ -87,7 +88,11 @@ def network_plan(structure: NetworkStructure, store: PlanStore | None, options: 
         plan = store.get(structure.key, fit_elements)
         if plan is not None:
             try:
-                return Contraction(structure, plan, plan.tree(structure), True)
+                tree = plan.tree(structure)
+                # a plan stored before its peak counted rearranged copies records less than it holds
+                if executor_peak_elements(tree) <= fit_elements:
+                    return Contraction(structure, plan, tree, True)
+                log.warning("stored plan needs more than the memory cap with its copies counted, planning again")
             except PlanError as exc:
                 log.warning("stored plan rejected, planning again: %s", exc)
     if options is None:
