@@ -433,15 +433,23 @@ def _search(inputs, output, sizes, options: PlannerOptions, methods, deadline: f
         slicing_reconf = dict(target_size=target, allow_outer=False, reconf_opts=dict(maxiter=64))
         if "kahypar" in methods:
             methods = ["kahypar"]
-    workers = 0 if isinstance(options.parallel, bool) else int(options.parallel)
-    pool = cf.ProcessPoolExecutor(workers) if workers > 1 else None
-    try:
+    with _worker_pool(options) as pool:
         opt = _keeping_optimizer(
             methods=methods, minimize=options.minimize, max_repeats=options.max_repeats, max_time=1.0,
             parallel=pool if pool is not None else options.parallel, reconf_opts=None, slicing_opts=None,
             slicing_reconf_opts=slicing_reconf, progbar=False, on_trial_error="ignore",
         )
         return _run_search(opt, inputs, output, sizes, deadline, pool, grace, t0, options.budget_seconds)
+
+
+@contextlib.contextmanager
+def _worker_pool(options: "PlannerOptions", wanted: bool = True) -> Iterator[cf.ProcessPoolExecutor | None]:
+    """A pool of ``options.parallel`` worker processes (None for one process, or unless ``wanted``),
+    ended on leaving without waiting for work still running."""
+    workers = 0 if isinstance(options.parallel, bool) else int(options.parallel)
+    pool = cf.ProcessPoolExecutor(workers) if wanted and workers > 1 else None
+    try:
+        yield pool
     finally:
         if pool is not None:
             pool.shutdown(wait=False, cancel_futures=True)
@@ -647,14 +655,9 @@ def _refined(tree, target, options: PlannerOptions, deadline: float, notes: dict
     """``tree`` after :func:`contraction.planning.slicing.refined` until ``deadline``."""
     if deadline - time.perf_counter() < RESLICE_MIN_SECONDS or tree.N < 3:
         return tree
-    workers = 0 if isinstance(options.parallel, bool) else int(options.parallel)
-    pool = cf.ProcessPoolExecutor(workers) if workers > 1 and tree.N >= REFINE_POOL_MIN_LEAVES else None
-    try:
+    with _worker_pool(options, wanted=tree.N >= REFINE_POOL_MIN_LEAVES) as pool:
         return refined(tree, target, options.minimize, deadline, pool if pool is not None else False, notes,
                        options.seed)
-    finally:
-        if pool is not None:
-            pool.shutdown(wait=False, cancel_futures=True)
 
 
 def _record(options: PlannerOptions, methods, trials: int, reduced_tensors: int, t0: float) -> dict:
