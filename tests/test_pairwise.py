@@ -74,3 +74,28 @@ def test_a_copy_split_over_threads_equals_numpys(threads):
         dst = np.empty(moved.shape, moved.dtype)
         copy_into(dst, moved, threads, min_bytes=0)
         assert np.array_equal(dst, moved)
+
+
+@pytest.mark.parametrize("threads", [1, 2])
+def test_a_copy_from_far_apart_source_elements_goes_by_tiles_and_equals_numpys(threads, monkeypatch):
+    # reference: numpy's own copy of the same transposed view; the destination's consecutive elements
+    # lie at least a page apart in the source, so the copy goes tile by tile (spied on)
+    import contraction.execution.pairwise as pairwise
+
+    tiled = []
+    real = pairwise._tiled_copy
+    monkeypatch.setattr(pairwise, "_tiled_copy", lambda d, s, t: (tiled.append(d.shape), real(d, s, t)))
+    monkeypatch.setattr(pairwise, "TILE_ELEMENTS", 64)
+    rng = np.random.default_rng(7 + threads)
+    cases = [((2,) * 16, None), ((3, 5, 600, 7), (3, 1, 2, 0)), ((4, 300, 9), (1, 2, 0)), ((1, 513, 1, 16), (3, 2, 1, 0))]
+    for shape, perm in cases:
+        x = rng.normal(size=shape) + 1j * rng.normal(size=shape)
+        if perm is None:                                  # a scramble whose last axis is the first one
+            rest = list(rng.permutation(range(1, len(shape))))
+            perm = tuple(rest[:5] + [rest[5]] + rest[6:] + [0])
+        moved = x.transpose(perm)
+        assert abs(moved.strides[-1]) >= pairwise.TILED_MIN_STRIDE_BYTES
+        dst = np.empty(moved.shape, moved.dtype)
+        copy_into(dst, moved, threads, min_bytes=0)
+        assert np.array_equal(dst, moved)
+    assert len(tiled) == len(cases)

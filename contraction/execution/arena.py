@@ -115,7 +115,26 @@ def _mapping(nbytes: int) -> np.ndarray:
         if _idle and _idle[0].nbytes >= nbytes:
             return _idle.pop()
         _idle.clear()
-    return np.frombuffer(mmap.mmap(-1, nbytes), np.uint8)
+    return np.frombuffer(_private_mapping(nbytes), np.uint8)
+
+
+def _private_mapping(nbytes: int) -> mmap.mmap:
+    """Anonymous memory of this process only, in huge pages where the kernel grants them on request.
+
+    Rearranging copies move small blocks between far-apart addresses; on 4 KiB pages each block can
+    be a translation miss. A 2^27-element complex64 copy moving a block of three axes past two others
+    took 0.119 s in a plain mapping and 0.061 s in one advised to use huge pages (0.075 s in numpy's
+    own arrays, which numpy advises likewise; measured on the machine whose kernel grants huge pages
+    on advice only). A shared anonymous mapping (Python's default) never gets them."""
+    flags = getattr(mmap, "MAP_PRIVATE", 0) | getattr(mmap, "MAP_ANONYMOUS", 0)
+    m = mmap.mmap(-1, nbytes, flags=flags) if flags else mmap.mmap(-1, nbytes)
+    advice = getattr(mmap, "MADV_HUGEPAGE", None)
+    if advice is not None:
+        try:
+            m.madvise(advice)
+        except OSError:                      # a kernel without transparent huge pages
+            pass
+    return m
 
 
 def _give_back(mapping: np.ndarray) -> None:

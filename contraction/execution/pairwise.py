@@ -206,7 +206,13 @@ def copy_into(dst: np.ndarray, src: np.ndarray, threads: int = 1, min_bytes: int
     """``dst[...] = src`` (same shapes); a large copy is split over ``threads`` threads along its leading
     axes (numpy copies without holding the interpreter lock). A rearranging copy of a 2^27-element
     complex64 tensor took 0.96-1.05 s on one thread and 0.50-0.60 s on two (measured)."""
-    if threads < 2 or dst.ndim == 0 or dst.nbytes < min_bytes:
+    if dst.ndim == 0 or dst.nbytes < min_bytes:
+        np.copyto(dst, src)
+        return
+    if dst.ndim >= 2 and abs(src.strides[-1]) >= TILED_MIN_STRIDE_BYTES and dst.flags.c_contiguous:
+        _tiled_copy(dst, src, threads)
+        return
+    if threads < 2:
         np.copyto(dst, src)
         return
     # leading axes whose index combinations are fewer than the threads, then the next axis cut into
@@ -228,6 +234,62 @@ def copy_into(dst: np.ndarray, src: np.ndarray, threads: int = 1, min_bytes: int
             np.copyto(dst[ix], src[ix])
 
     list(_copier(threads).map(run, [blocks[t::threads] for t in range(threads)]))
+
+
+#: a copy whose consecutive destination elements lie at least this many bytes apart in the source
+#: (one page) goes tile by tile (see :func:`_tiled_copy`)
+TILED_MIN_STRIDE_BYTES = 4096
+
+#: elements of one tile: 128 KiB of complex64, within a core's second-level cache (common practice)
+TILE_ELEMENTS = 1 << 14
+
+
+def _tile_axes(dst: np.ndarray, src: np.ndarray, elements: int) -> set:
+    """Axes of a tile of about ``elements`` elements: the destination's last axes and the source's
+    densest axes in turn, so a tile reads and writes whole cache lines."""
+    nd = dst.ndim
+    by_src = sorted(range(nd), key=lambda a: abs(src.strides[a]))
+    by_dst = list(range(nd - 1, -1, -1))
+    chosen, size, pos, turn = set(), 1, [0, 0], 0
+    while size < elements and len(chosen) < nd:
+        seq = (by_dst, by_src)[turn]
+        k = pos[turn]
+        while k < nd and seq[k] in chosen:
+            k += 1
+        if k < nd:
+            chosen.add(seq[k])
+            size *= dst.shape[seq[k]]
+            k += 1
+        pos[turn] = k
+        turn ^= 1
+    return chosen
+
+
+def _tiled_copy(dst: np.ndarray, src: np.ndarray, threads: int) -> None:
+    """``dst[...] = src`` one tile at a time (tiles shared among ``threads`` threads).
+
+    numpy copies in the destination's order; when its consecutive elements lie pages apart in the
+    source, every element is a cache and translation miss. The last step of a 53-qubit 12-cycle slice
+    (both operands 2^27 elements, 24 axes contracted) rearranged a 2^27-element operand so: 12.5 ns an
+    element against 0.5-1.4 ns for the 63 other large copies of the slice, 1.83 ns tile by tile
+    (measured, tiles of 2^14 elements; tiling the other copies made them slower, 0.7-1.5 ns)."""
+    tile = _tile_axes(dst, src, TILE_ELEMENTS)
+    outer = [a for a in range(dst.ndim) if a not in tile]
+    idxs = list(np.ndindex(*[dst.shape[a] for a in outer]))
+    nd = dst.ndim
+
+    def run(part: list) -> None:
+        sl = [slice(None)] * nd
+        for idx in part:
+            for a, v in zip(outer, idx):
+                sl[a] = v
+            t = tuple(sl)
+            np.copyto(dst[t], src[t])
+
+    if threads < 2 or len(idxs) < 2:
+        run(idxs)
+    else:
+        list(_copier(threads).map(run, [idxs[t::threads] for t in range(threads)]))
 
 
 _programs: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
