@@ -10,7 +10,6 @@ from __future__ import annotations
 import concurrent.futures as cf
 import json
 import logging
-import multiprocessing as mp
 import threading
 import time
 import uuid
@@ -18,6 +17,7 @@ import uuid
 from sqlalchemy import func, or_, select, update
 
 from contraction.errors import Busy, Cancelled, VerampError
+from contraction.execution.slices import worker_context
 from contraction.planning.rates import read_rate
 from contraction.planning.search import PlannerOptions, SearchProgress, observe_searches
 
@@ -160,7 +160,7 @@ class JobManager:
         self._closing = False                   # set by shutdown(): dying workers are not failures then
         self._stop = threading.Event()          # ends the sweeper
         self.pool = cf.ProcessPoolExecutor(max_workers=max(1, settings.workers),
-                                           mp_context=mp.get_context("forkserver"), initializer=_init_worker)
+                                           mp_context=worker_context(), initializer=_init_worker)
 
     @property
     def depth(self) -> int:
@@ -205,7 +205,7 @@ class JobManager:
             with self._lock:
                 if getattr(self.pool, "_broken", False):
                     self.pool = cf.ProcessPoolExecutor(max_workers=max(1, self.settings.workers),
-                                                       mp_context=mp.get_context("forkserver"),
+                                                       mp_context=worker_context(),
                                                        initializer=_init_worker)
             return
         if self.on_finish is not None and not fut.cancelled():

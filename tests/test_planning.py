@@ -463,3 +463,20 @@ def test_a_stored_plan_whose_real_peak_exceeds_the_cap_is_not_used():
     assert network_plan(s, store, None, memory_bytes=1.01 * under).from_store
     with pytest.raises(NoStoredPlan):
         network_plan(s, store, None, memory_bytes=0.99 * under)
+
+
+def test_worker_processes_start_with_the_contraction_modules_loaded():
+    """The forkserver that starts contraction workers loads the engine's modules once (so a request on a
+    fresh pool does not import them in every worker): a worker of that context has them in Python's
+    module table before it imports anything for its task (the task is the built-in ``eval``, whose
+    unpickling imports nothing)."""
+    import concurrent.futures as cf
+
+    from contraction.execution import slices
+
+    ctx = slices.worker_context()
+    assert ctx.get_start_method() == "forkserver"
+    names = list(slices.WORKER_PRELOAD)
+    with cf.ProcessPoolExecutor(1, mp_context=ctx) as pool:
+        loaded = pool.submit(eval, f"[m in __import__('sys').modules for m in {names!r}]").result(timeout=120)
+    assert loaded == [True] * len(names)

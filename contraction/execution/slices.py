@@ -124,6 +124,20 @@ def _run_in_worker(task: Task) -> SliceResults:
     return run_task(_worker_state["tree"], task)
 
 
+#: modules the forkserver loads once, so each worker process it starts has them already (measured: a
+#: request for one 20-qubit amplitude on two fresh workers took 0.61-0.70 s, 0.20 s with these loaded)
+WORKER_PRELOAD = ("numpy", "cotengra", "contraction.execution.slices")
+
+
+def worker_context():
+    """The start method of contraction worker processes: forkserver (no state inherited from the
+    parent), its server loading the main module (Python's default) and :data:`WORKER_PRELOAD` when it
+    starts (a module that fails to load is skipped by the server and loaded by the worker as usual)."""
+    ctx = mp.get_context("forkserver")
+    ctx.set_forkserver_preload(["__main__", *WORKER_PRELOAD])
+    return ctx
+
+
 class ProcessRunner:
     """Local worker processes (forkserver: no state inherited from the parent)."""
 
@@ -133,7 +147,7 @@ class ProcessRunner:
     def run(self, contraction: Contraction, tasks: Sequence[Task], done: TaskDone,
             cancelled: CancelCheck | None = None) -> None:
         """Run the tasks on a fresh pool of worker processes (one BLAS thread each); cancelled tasks are dropped."""
-        ctx = mp.get_context("forkserver")
+        ctx = worker_context()
         # the tree travels to each worker once (pickled between our own processes), not rebuilt there
         pool = cf.ProcessPoolExecutor(max_workers=self.workers, mp_context=ctx, initializer=_init_worker,
                                       initargs=(contraction.tree,))
