@@ -229,13 +229,21 @@ def copy_into(dst: np.ndarray, src: np.ndarray, threads: int = 1, min_bytes: int
         return
     pieces = min(dst.shape[lead], -(-threads // count))
     edges = [dst.shape[lead] * k // pieces for k in range(pieces + 1)]
-    blocks = [ix + (slice(a, b),) for ix in np.ndindex(*dst.shape[:lead]) for a, b in zip(edges, edges[1:])]
+    _copy_blocks(dst, src, [ix + (slice(a, b),) for ix in np.ndindex(*dst.shape[:lead])
+                            for a, b in zip(edges, edges[1:])], threads)
+
+
+def _copy_blocks(dst: np.ndarray, src: np.ndarray, blocks: list, threads: int) -> None:
+    """``dst[ix] = src[ix]`` for every index tuple ``ix`` of ``blocks``, shared among ``threads`` threads."""
 
     def run(share: list) -> None:
         for ix in share:
             np.copyto(dst[ix], src[ix])
 
-    list(_copier(threads).map(run, [blocks[t::threads] for t in range(threads)]))
+    if threads < 2 or len(blocks) < 2:
+        run(blocks)
+    else:
+        list(_copier(threads).map(run, [blocks[t::threads] for t in range(threads)]))
 
 
 #: a copy whose consecutive destination elements lie at least this many bytes apart in the source
@@ -277,21 +285,13 @@ def _tiled_copy(dst: np.ndarray, src: np.ndarray, threads: int) -> None:
     (measured, tiles of 2^14 elements; tiling the other copies made them slower, 0.7-1.5 ns)."""
     tile = _tile_axes(dst, src, TILE_ELEMENTS)
     outer = [a for a in range(dst.ndim) if a not in tile]
-    idxs = list(np.ndindex(*[dst.shape[a] for a in outer]))
-    nd = dst.ndim
-
-    def run(part: list) -> None:
-        sl = [slice(None)] * nd
-        for idx in part:
-            for a, v in zip(outer, idx):
-                sl[a] = v
-            t = tuple(sl)
-            np.copyto(dst[t], src[t])
-
-    if threads < 2 or len(idxs) < 2:
-        run(idxs)
-    else:
-        list(_copier(threads).map(run, [idxs[t::threads] for t in range(threads)]))
+    blocks = []
+    for idx in np.ndindex(*[dst.shape[a] for a in outer]):
+        sl = [slice(None)] * dst.ndim
+        for a, v in zip(outer, idx):
+            sl[a] = v
+        blocks.append(tuple(sl))
+    _copy_blocks(dst, src, blocks, threads)
 
 
 _programs: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()

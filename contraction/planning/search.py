@@ -18,6 +18,7 @@ import math
 import random
 import threading
 import time
+import weakref
 from collections import OrderedDict
 from dataclasses import asdict, dataclass, field
 from typing import Callable, Iterator
@@ -197,7 +198,21 @@ def _checksum(doc: dict) -> str:
     return hashlib.sha256(blob).hexdigest()
 
 
+_peaks: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
+
+
 def executor_peak_elements(tree) -> float:
+    """:func:`_executor_peak` of ``tree``, worked out once per tree object (a stored plan's tree is kept
+    between requests, and its peak is checked on every read; worked out again if the tree was changed
+    in place since, as slicing does)."""
+    shape = (tree.nslices, float(tree.contraction_cost()) if tree.N > 1 else 0.0)
+    kept = _peaks.get(tree)
+    if kept is None or kept[0] != shape:
+        kept = _peaks[tree] = (shape, _executor_peak(tree))
+    return kept[1]
+
+
+def _executor_peak(tree) -> float:
     """Elements held at once while one slice of ``tree`` is contracted, as the executor runs it: the
     input tensors throughout, the live intermediates, and at each step its output plus a rearranged
     copy of each operand (at most; cotengra's peak counts no copies). On three 53-qubit plans this
