@@ -99,3 +99,24 @@ def test_a_copy_from_far_apart_source_elements_goes_by_tiles_and_equals_numpys(t
         copy_into(dst, moved, threads, min_bytes=0)
         assert np.array_equal(dst, moved)
     assert len(tiled) == len(cases)
+
+
+def test_blas_threads_follows_limits_set_after_its_first_call():
+    # reference: threadpoolctl's own report of the BLAS libraries loaded (a general-purpose library);
+    # the libraries are found once, the count must still follow limits set later
+    from threadpoolctl import threadpool_info, threadpool_limits
+
+    from contraction.execution.pairwise import blas_threads
+
+    def reported():
+        counts = [int(d["num_threads"]) for d in threadpool_info() if d.get("user_api") == "blas"]
+        return max(1, min(counts)) if counts else 1
+
+    assert blas_threads() == reported()
+    if reported() == 1 and not [d for d in threadpool_info() if d.get("user_api") == "blas"]:
+        pytest.skip("no BLAS library threadpoolctl can see")
+    with threadpool_limits(1):
+        assert blas_threads() == reported() == 1
+    with threadpool_limits(2):
+        assert blas_threads() == reported()
+    assert blas_threads() == reported()
