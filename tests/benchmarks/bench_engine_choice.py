@@ -87,8 +87,8 @@ def main() -> None:
     ap.add_argument("--memory-gib", type=float, default=8.0)
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--reuse-forced", action="store_true",
-                    help="when auto picks exactly what a forced run did, report that run's time instead of "
-                         "running it again (for the long cases; the row says so)")
+                    help="when auto picks exactly what a forced run of --short seconds or more did, report that "
+                         "run's time instead of running it again (for the long cases; the row says so)")
     ap.add_argument("--repeats", type=int, default=5,
                     help="runs of each engine (median) when one run takes under --short seconds")
     ap.add_argument("--short", type=float, default=5.0)
@@ -143,7 +143,8 @@ def main() -> None:
             picked = choose(circ, len(bits), engine="auto", dtype="complex128", rate=rate, store=store,
                             planner=opts, memory_bytes=cap, workers=args.workers)
             same = [e for e in times if e == picked.engine and (e == "statevector" or
-                                                                   forced_schedule.get(e) == picked.chosen.schedule)]
+                                                                   forced_schedule.get(e) == picked.chosen.schedule)
+                    and times[e] >= args.short and f"{e}_timed_on" not in row]   # short runs: auto is timed
         if same:
             # auto picked exactly what a forced run did (same engine, same chunks, same stored plans):
             # that run's time stands for it, marked as such
