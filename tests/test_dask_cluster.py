@@ -10,12 +10,7 @@ from __future__ import annotations
 
 import os
 import signal
-import socket
-import subprocess
-import sys
-import time
 
-import numpy as np
 import pytest
 
 distributed = pytest.importorskip("distributed")
@@ -27,50 +22,13 @@ from contraction.planning.search import PlannerOptions  # noqa: E402
 from contraction.planning.store import MemoryPlanStore  # noqa: E402
 
 from .conftest import einsum_state  # noqa: E402
-
-
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
+from .dask_cli import cli_cluster  # noqa: E402
 
 
 @pytest.fixture(scope="module")
 def cluster(tmp_path_factory):
-    port = _free_port()
-    address = f"tcp://127.0.0.1:{port}"
-    logs = tmp_path_factory.mktemp("dask")
-    env = {**os.environ, "OMP_NUM_THREADS": "1", "OPENBLAS_NUM_THREADS": "1"}
-    procs = [subprocess.Popen([sys.executable, "-m", "dask", "scheduler", "--host", "127.0.0.1", "--port", str(port),
-                               "--no-dashboard"], stdout=subprocess.DEVNULL, stderr=open(logs / "scheduler.log", "w"),
-                              env=env)]
-    for k in range(2):
-        procs.append(subprocess.Popen([sys.executable, "-m", "dask", "worker", address, "--nthreads", "1",
-                                       "--nworkers", "1", "--no-nanny", "--memory-limit", "2GiB", "--no-dashboard",
-                                       "--host", "127.0.0.1"], stdout=subprocess.DEVNULL,
-                                      stderr=open(logs / f"worker{k}.log", "w"), env=env))
-    try:
-        client = None
-        deadline = time.time() + 60
-        while time.time() < deadline:
-            try:
-                client = distributed.Client(address, timeout="2s")
-                break
-            except OSError:
-                time.sleep(0.3)
-        assert client is not None, (logs / "scheduler.log").read_text()
-        client.wait_for_workers(2, timeout=60)
+    with cli_cluster(tmp_path_factory.mktemp("dask"), workers=2, memory_limit="2GiB") as (client, procs):
         yield client, procs
-        client.close()
-    finally:
-        for p in procs:
-            if p.poll() is None:
-                p.terminate()
-        for p in procs:
-            try:
-                p.wait(timeout=10)
-            except subprocess.TimeoutExpired:
-                p.kill()
 
 
 def _worker_pid(client, exclude=()) -> int:

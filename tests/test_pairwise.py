@@ -120,3 +120,24 @@ def test_blas_threads_follows_limits_set_after_its_first_call():
     with threadpool_limits(2):
         assert blas_threads() == reported()
     assert blas_threads() == reported()
+
+
+@pytest.mark.parametrize("batch", [0, 3])
+def test_wide_sums_of_complex64_products_are_rounded_once(batch):
+    # reference: numpy's complex128 product of the same complex64 operands, rounded to complex64 once;
+    # a rounding to float32 moves each component by at most u = 2^-24 of itself (IEEE 754), so every
+    # element must lie within u·|exact| (2u allowed). Blocks of 2^10 elements make every loop run.
+    from contraction.execution.pairwise import wide_sum_matmul
+
+    rng = np.random.default_rng(11 + batch)
+    lead = (batch,) if batch else ()
+    m, k, n = 5, 1 << 14, 3
+
+    def c64(*shape):
+        return (rng.normal(size=shape) + 1j * rng.normal(size=shape)).astype(np.complex64)
+
+    x, y = c64(*lead, m, k), c64(*lead, k, n)
+    exact = np.matmul(x.astype(np.complex128), y.astype(np.complex128))
+    out = np.empty(lead + (m, n), np.complex64)
+    wide_sum_matmul(x, y, out, block=1 << 10)
+    assert np.all(np.abs(out - exact) <= 2 * 2.0 ** -24 * np.abs(exact))

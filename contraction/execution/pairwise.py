@@ -310,3 +310,46 @@ def program_for(tree) -> Program:
     if prog is None:
         prog = _programs[tree] = compile_program(tree)
     return prog
+
+
+#: complex64 products summing at least this many terms per output element accumulate in complex128
+#: (:func:`wide_sum_matmul`)
+WIDE_SUM_TERMS = 1 << 12
+
+#: elements of one block of an operand upcast to complex128 by :func:`wide_sum_matmul` (16 MiB)
+WIDE_SUM_BLOCK_ELEMENTS = 1 << 20
+
+
+def wide_sum_matmul(x: np.ndarray, y: np.ndarray, out: np.ndarray,
+                    block: int = WIDE_SUM_BLOCK_ELEMENTS) -> np.ndarray:
+    """``out[...] = x @ y`` for complex64 operands ((rows, inner) @ (inner, columns), or with a leading
+    batch axis on all three) with every sum accumulated in complex128 and rounded once.
+
+    A float32 product accumulates its sums in float32, and the error of a sum of K terms grows with K
+    (worst case K·u·Σ|terms|, Higham, Accuracy and Stability of Numerical Algorithms, 2nd ed., §3.1;
+    about sqrt(K)·u when the rounding errors have random signs, a rule of thumb given from memory),
+    while a random circuit's amplitude is far smaller than Σ|terms|; a slice's last steps sum 2^12-2^24
+    terms. The operands are upcast a block of about ``block`` elements at a time, so the extra memory
+    stays a few blocks."""
+    x3 = x if x.ndim == 3 else x[None]
+    y3 = y if y.ndim == 3 else y[None]
+    o3 = out if out.ndim == 3 else out[None]
+    nb_all, m_all, k_all = x3.shape
+    n_all = y3.shape[2]
+    kc = min(k_all, block)
+    nc = min(n_all, max(1, block // kc))
+    rm = min(m_all, max(1, block // kc))
+    nb = min(nb_all, max(1, block // (kc * max(rm, nc))))
+    for b0 in range(0, nb_all, nb):
+        bs = slice(b0, b0 + nb)
+        for m0 in range(0, m_all, rm):
+            ms = slice(m0, m0 + rm)
+            for n0 in range(0, n_all, nc):
+                ns = slice(n0, n0 + nc)
+                acc = None
+                for k0 in range(0, k_all, kc):
+                    ks = slice(k0, k0 + kc)
+                    part = np.matmul(x3[bs, ms, ks].astype(np.complex128), y3[bs, ks, ns].astype(np.complex128))
+                    acc = part if acc is None else np.add(acc, part, out=acc)
+                o3[bs, ms, ns] = acc
+    return out

@@ -1,6 +1,6 @@
 """Many bitstrings of a 40-qubit circuit in one run, with bounded memory.
 
-A 40-qubit (5x8) grid circuit (no state vector fits the cap used here); ``--count`` distinct random
+A 40-qubit (5x8, ``--grid``) grid circuit (no state vector fits the cap used here); ``--count`` distinct random
 bitstrings (default 10,000) in one ``amplitudes`` call with the automatic engine under
 ``--memory-gib``. Reports the engine, chunk sizes and count, progress events (one per task, tasks
 grouped per chunk), wall time, the peak resident memory of this process (``ru_maxrss``) and the
@@ -9,7 +9,9 @@ peak of the summed resident memory of all its descendant processes (worker pools
 of the same request for ``--baseline-count`` bitstrings one by one with the stored plan.
 A sample of the results is checked against contracting the same bitstring on its own.
 
-    python tests/benchmarks/bench_big_batch.py [--count 10000] [--cycles 8] [--memory-gib 4]
+    python tests/benchmarks/bench_big_batch.py [--count 10000] [--grid 5x8] [--cycles 8] [--memory-gib 4]
+
+The 36-qubit case of the scale work: ``--grid 6x6 --cycles 12 --count 256 --memory-gib 8``.
 """
 
 from __future__ import annotations
@@ -32,14 +34,17 @@ def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--count", type=int, default=10_000)
     ap.add_argument("--cycles", type=int, default=8)
+    ap.add_argument("--grid", default="5x8", help="rows x columns of qubits")
     ap.add_argument("--memory-gib", type=float, default=4.0)
     ap.add_argument("--budget", type=float, default=20.0)
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--baseline-count", type=int, default=8)
     args = ap.parse_args()
-    circuit = random_instance(grid_architecture(5, 8, args.cycles), seed=4, gates="discrete")
+    rows, cols = (int(v) for v in args.grid.lower().split("x"))
+    circuit = random_instance(grid_architecture(rows, cols, args.cycles), seed=4, gates="discrete")
+    n = circuit.num_qubits
     rng = np.random.default_rng(0)
-    bits = list(dict.fromkeys("".join(map(str, rng.integers(0, 2, 40))) for _ in range(args.count)))
+    bits = list(dict.fromkeys("".join(map(str, rng.integers(0, 2, n))) for _ in range(args.count)))
     store = MemoryPlanStore()
     opts = PlannerOptions(budget_seconds=args.budget, parallel=False)
     cap = args.memory_gib * 2 ** 30
@@ -57,7 +62,7 @@ def main() -> None:
     per_single = (time.perf_counter() - t1) / len(sample)
     agree = max(abs(a.amplitude - b.amplitude) / abs(b.amplitude) for a, b in zip(run.results, single.results))
     print(json.dumps({
-        "qubits": 40, "cycles": args.cycles, "bitstrings": len(bits), "memory_cap_bytes": cap,
+        "qubits": n, "cycles": args.cycles, "bitstrings": len(bits), "memory_cap_bytes": cap,
         "engine": run.engine, "reason": run.reason, "batch": run.batch, "chunks": run.chunks,
         "progress_events": len(events), "first_event": events[0] if events else None,
         "last_event": events[-1] if events else None,

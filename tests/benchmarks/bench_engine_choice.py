@@ -3,11 +3,14 @@ each engine forced (state vector where it fits the cap, one contraction per bits
 all in this run and with the same plan store (every contraction size a forced engine uses is
 planned before its timing, so planning is not what is compared; ``auto`` then finds those plans). Reports per case the time of every engine, the engine auto
 chose and ``auto / fastest`` (goal: at most 1.25 on every case). Runs shorter than ``--short``
-seconds are repeated (``--repeats``) and their median reported. A forced one-contraction-per-bitstring
-run predicted over ``--max-forced`` seconds runs on a share of the bitstrings (a multiple of the
-workers) and its time is scaled to all of them (that engine's time is linear in the count: one
+seconds are repeated (``--repeats``) and their median reported. A forced engine predicted over ``--max-forced``
+seconds and over ``SKIP_FACTOR`` times the fastest prediction is not run (the row says so), except
+the one-contraction-per-bitstring engine, which then runs on a share of the bitstrings (a multiple of
+the workers) and has its time scaled to all of them (its time is linear in the count: one
 contraction per bitstring, in one pool); the row names the share. Before the first case a small
-request starts the worker processes' server, so the first engine timed does not pay it.
+request starts the worker processes' server, so the first engine timed does not pay it. Two forced
+engines that ran the very same contractions (same chunks and plans: the batch engine for one
+bitstring) get the median of all their runs, the runs listed in the row.
 
 Cases: grid circuits (Haar two-qubit gates) of 20-53 qubits with 1 to 10,000 bitstrings, a 25-qubit
 swap test, a 24-qubit QFT (diagonal controlled phases) and a 30-qubit quantum-volume circuit.
@@ -45,6 +48,12 @@ def swap_test(n_half: int = 12) -> Circuit:
     return Circuit(n, gates + [Gate((0,), G.H, "h")], name=f"swaptest{n}")
 
 
+#: a forced engine predicted over --max-forced seconds and this many times the fastest engine's
+#: prediction is not run (a forced batch with a 5 s plan of 10^15 multiply-adds would run for hours);
+#: the single-amplitude engine is then timed on a share of the bitstrings instead
+SKIP_FACTOR = 4
+
+
 def cases(which: str):
     grid = lambda r, c, m, s=1: random_instance(grid_architecture(r, c, m), seed=s)  # noqa: E731
     out = [("grid20x10", grid(4, 5, 10), 1), ("grid20x10", grid(4, 5, 10), 1000),
@@ -67,7 +76,7 @@ def cases(which: str):
 
 
 def timed(run, repeats: int, short_s: float):
-    """(median seconds, last result) of ``run()``: once, or ``repeats`` times when one run takes under
+    """(median seconds, last result, every run's seconds) of ``run()``: once, or ``repeats`` times when one run takes under
     ``short_s`` (sub-second runs on a shared machine differ by 30-50 % between runs), and millisecond
     runs until they add up to a second (at most 200; medians of five 2 ms runs differed by 1.6x)."""
     t = time.perf_counter()
@@ -77,7 +86,7 @@ def timed(run, repeats: int, short_s: float):
         t = time.perf_counter()
         out = run()
         times.append(time.perf_counter() - t)
-    return float(np.median(times)), out
+    return float(np.median(times)), out, times
 
 
 def main() -> None:
@@ -108,36 +117,50 @@ def main() -> None:
         store = MemoryPlanStore()
         opts = PlannerOptions(budget_seconds=args.budget)
         common = dict(planner=opts, plan_store=store, memory_bytes=cap, rate=rate, workers=args.workers)
-        times, values, row = {}, {}, {"case": name, "qubits": circ.num_qubits, "bitstrings": len(bits)}
-        for engine in ("single", "batch", "statevector"):
+        times, runs, values, row = {}, {}, {}, {"case": name, "qubits": circ.num_qubits, "bitstrings": len(bits)}
+        predicted = {}
+        for engine in ("single", "batch", "statevector"):    # plan every contraction size each engine uses
             try:
-                if engine != "statevector":                # plan every contraction size this request uses
-                    choose(circ, len(bits), engine=engine, dtype="complex128", rate=rate, store=store,
-                           planner=opts, memory_bytes=cap, workers=args.workers)
-                part = bits
-                if engine == "single" and len(bits) > 2 * args.workers:
-                    predicted = choose(circ, len(bits), engine="single", dtype="complex128", rate=rate, store=store,
-                                       planner=opts, memory_bytes=cap, workers=args.workers).chosen.seconds
-                    if predicted > args.max_forced:
-                        k = math.ceil(len(bits) * args.max_forced / predicted / args.workers) * args.workers
-                        part = bits[:max(2 * args.workers, k)]
-                        row["single_timed_on"] = len(part)
-                times[engine], run = timed(lambda: amplitudes(circ, part, engine=engine, **common),
-                                           args.repeats, args.short)
-                times[engine] *= len(bits) / len(part)
-                values[engine] = np.array([r.amplitude for r in run.results])
+                predicted[engine] = choose(circ, len(bits), engine=engine, dtype="complex128", rate=rate, store=store,
+                                           planner=opts, memory_bytes=cap, workers=args.workers).chosen.seconds
             except MemoryLimitError as exc:
                 row[f"{engine}_refused"] = str(exc)[:120]
-        forced_schedule = {}
+        for engine in predicted:
+            part = bits
+            if predicted[engine] > args.max_forced and predicted[engine] > SKIP_FACTOR * min(predicted.values()):
+                if engine != "single" or len(bits) <= 2 * args.workers:
+                    row[f"{engine}_not_run"] = (f"predicted {predicted[engine]:.4g} s, over {args.max_forced:g} s "
+                                                f"and {SKIP_FACTOR}x the fastest prediction")
+                    continue
+                k = math.ceil(len(bits) * args.max_forced / predicted[engine] / args.workers) * args.workers
+                part = bits[:max(2 * args.workers, k)]
+                row["single_timed_on"] = len(part)
+            times[engine], run, each = timed(lambda: amplitudes(circ, part, engine=engine, **common),
+                                             args.repeats, args.short)
+            times[engine] *= len(bits) / len(part)
+            runs[engine] = [t * len(bits) / len(part) for t in each]
+            values[engine] = np.array([r.amplitude for r in run.results])
+        forced_schedule, work = {}, {}
         for engine in times:
             if engine != "statevector":
                 forced = choose(circ, len(bits), engine=engine, dtype="complex128", rate=rate, store=store,
                                 planner=opts, memory_bytes=cap, workers=args.workers)
                 forced_schedule[engine] = forced.chosen.schedule
+                work[engine] = (tuple(forced.chosen.schedule),
+                                tuple(sorted((b, o.plan.madds, o.plan.nslices) for b, o in forced.chosen.parts.items()
+                                             if o.plan is not None)))
                 # the plans behind each forced engine (they vary between runs with short budgets)
                 row[f"{engine}_plans"] = {b: {"slices": o.plan.nslices, "log10_madds": round(math.log10(o.plan.madds), 2),
                                               "predicted_s": round(o.seconds, 3)}
                                           for b, o in forced.chosen.parts.items() if o.plan is not None}
+        # forced engines that ran the very same contractions (same chunks, same plans: e.g. "batch" for one
+        # bitstring) differ only by the machine's noise (22.8 s against 27.7 s for one 30-qubit amplitude
+        # in one run): each gets the median of all their runs
+        if "single_timed_on" not in row and len(work) == 2 and len(set(work.values())) == 1:
+            merged = float(np.median(runs["single"] + runs["batch"]))
+            row["same_contraction"] = {"single_runs_s": [round(t, 4) for t in runs["single"]],
+                                       "batch_runs_s": [round(t, 4) for t in runs["batch"]]}
+            times["single"] = times["batch"] = merged
         same = []
         if args.reuse_forced:                      # what auto would pick, and whether a forced run did just that
             picked = choose(circ, len(bits), engine="auto", dtype="complex128", rate=rate, store=store,
@@ -151,7 +174,7 @@ def main() -> None:
             auto_s, auto_engine, auto_batch, reason = times[same[0]], picked.engine, picked.chosen.batch, picked.reason
             row["auto_time_from_forced_run"] = same[0]
         else:
-            auto_s, auto = timed(lambda: amplitudes(circ, bits, engine="auto", **common), args.repeats, args.short)
+            auto_s, auto, _ = timed(lambda: amplitudes(circ, bits, engine="auto", **common), args.repeats, args.short)
             auto_engine, auto_batch, reason = auto.engine, auto.batch, auto.reason
         fastest = min(times, key=times.get)
         ref = max(values.values(), key=len)          # every bitstring's amplitude (a share-timed run has a prefix)
