@@ -102,13 +102,14 @@ def main() -> None:
                     help="runs of each engine (median) when one run takes under --short seconds")
     ap.add_argument("--short", type=float, default=5.0)
     ap.add_argument("--max-forced", type=float, default=120.0,
-                    help="forced single-amplitude runs predicted longer than this run on a share of the "
-                         "bitstrings, their time scaled to all")
+                    help="forced engines predicted longer than this and SKIP_FACTOR times the fastest "
+                         "prediction are not run (single amplitudes: run on a share of the bitstrings, "
+                         "their time scaled to all)")
     args = ap.parse_args()
     rate = load_or_measure(None)
     cap = args.memory_gib * 2 ** 30
     warm = random_instance(grid_architecture(3, 4, 4), seed=1)        # starts the workers' server
-    amplitudes(warm, ["0" * 12] * 1, engine="single", memory_bytes=cap, rate=rate, workers=args.workers,
+    amplitudes(warm, ["0" * 12], engine="single", memory_bytes=cap, rate=rate, workers=args.workers,
                runner=ProcessRunner(args.workers))
     rows = []
     for name, circ, count in cases(args.cases):
