@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import sys
 import time
 
 import numpy as np
@@ -28,6 +29,13 @@ from contraction.planning.search import PlannerOptions
 from contraction.planning.store import MemoryPlanStore
 
 from rss import PeakRss
+
+
+def announce(choice) -> None:
+    """The engine chosen and its prediction, on stderr before the run (a long run shows what it is doing)."""
+    print(json.dumps({"engine": choice.engine, "batch": choice.chosen.batch, "chunks": choice.chosen.chunks,
+                      "predicted_seconds": round(choice.chosen.seconds, 2), "reason": choice.reason}),
+          file=sys.stderr, flush=True)
 
 
 def main() -> None:
@@ -52,7 +60,8 @@ def main() -> None:
     t0 = time.perf_counter()
     with PeakRss() as memory:
         run = amplitudes(circuit, bits, planner=opts, plan_store=store, memory_bytes=cap, workers=args.workers,
-                         progress=lambda p: events.append((p.done, p.total, round(p.elapsed, 2))))
+                         progress=lambda p: events.append((p.done, p.total, round(p.elapsed, 2))),
+                         on_choice=announce)
     wall = time.perf_counter() - t0
     # baseline in the same run: the same bitstrings one by one (stored single plan), on a sample
     sample = bits[:args.baseline_count]
