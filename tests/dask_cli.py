@@ -5,18 +5,13 @@
 from __future__ import annotations
 
 import os
-import socket
 import subprocess
 import sys
 import time
 from contextlib import contextmanager
 from pathlib import Path
 
-
-def free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
+from .loopback import free_port
 
 
 @contextmanager

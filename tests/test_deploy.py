@@ -12,13 +12,14 @@ from __future__ import annotations
 import json
 import os
 import shutil
-import socket
 import subprocess
 import sys
 import time
 from pathlib import Path
 
 import pytest
+
+from .loopback import free_port
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -32,12 +33,6 @@ def _instruction(name: str) -> list[str]:
     if name == "HEALTHCHECK":
         body = body[body.index("CMD") + 3:].strip()
     return json.loads(body)
-
-
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
 
 
 def _bin(cmd: list[str]) -> list[str]:
@@ -55,7 +50,7 @@ def test_image_entrypoint_serves_and_healthcheck_reports(tmp_path):
     data = tmp_path / "data"
     data.mkdir()
     (data / "calibration.json").write_text(json.dumps(MachineRate(1e10, 0.5, 1e-8, 2e-5, 2e-8, 1, 0.0).to_dict()))
-    port = _free_port()
+    port = free_port()
     env = dict(os.environ, VERAMP_DATA_DIR=str(data), VERAMP_HOST="127.0.0.1", VERAMP_PORT=str(port),
                VERAMP_WORKERS="1")
     server = subprocess.Popen(_bin(command), env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)

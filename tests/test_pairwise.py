@@ -122,16 +122,16 @@ def test_blas_threads_follows_limits_set_after_its_first_call():
     assert blas_threads() == reported()
 
 
-@pytest.mark.parametrize("batch", [0, 3])
-def test_wide_sums_of_complex64_products_are_rounded_once(batch):
+@pytest.mark.parametrize("batch, m, k, n", [(0, 5, 1 << 14, 3), (3, 5, 1 << 14, 3), (2, 7, 5000, 70)])
+def test_wide_sums_of_complex64_products_are_rounded_once(batch, m, k, n):
     # reference: numpy's complex128 product of the same complex64 operands, rounded to complex64 once;
     # a rounding to float32 moves each component by at most u = 2^-24 of itself (IEEE 754), so every
-    # element must lie within u·|exact| (2u allowed). Blocks of 2^10 elements make every loop run.
+    # element must lie within u·|exact| (2u allowed). Blocks of 2^10 elements make every loop run (the
+    # last case with short last blocks of the sum and of the columns).
     from contraction.execution.pairwise import wide_sum_matmul
 
     rng = np.random.default_rng(11 + batch)
     lead = (batch,) if batch else ()
-    m, k, n = 5, 1 << 14, 3
 
     def c64(*shape):
         return (rng.normal(size=shape) + 1j * rng.normal(size=shape)).astype(np.complex64)

@@ -12,7 +12,6 @@ import glob
 import math
 import os
 import shutil
-import socket
 import subprocess
 import time
 
@@ -26,6 +25,7 @@ from sqlalchemy import create_engine, func, select  # noqa: E402
 from service.app import create_app  # noqa: E402
 from service.db import PlanRow, ResultRow  # noqa: E402
 
+from .loopback import free_port  # noqa: E402
 from .test_service import GHZ, make_settings, wait_job  # noqa: E402
 
 
@@ -35,12 +35,6 @@ def _pg_bin() -> str | None:
         return os.path.dirname(found[-1])
     exe = shutil.which("initdb")
     return os.path.dirname(exe) if exe else None
-
-
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
 
 
 @pytest.fixture(scope="module")
@@ -62,7 +56,7 @@ def postgres_url():
         user = pwd.getpwnam("postgres")
         os.chown(data, user.pw_uid, user.pw_gid)
     pgdata = data / "data"
-    port = _free_port()
+    port = free_port()
     run = lambda *cmd: subprocess.run(prefix + list(cmd), check=True, capture_output=True, text=True)  # noqa: E731
     run(f"{bindir}/initdb", "-D", str(pgdata), "-A", "trust", "-U", "veramp", "--no-sync")
     run(f"{bindir}/pg_ctl", "-D", str(pgdata), "-l", str(data / "log"), "-w", "-o",

@@ -4,7 +4,6 @@ mid-job, and the Python client. Values are checked against the numpy state vecto
 import json
 import os
 import signal
-import socket
 import subprocess
 import sys
 import time
@@ -17,13 +16,8 @@ from contraction.circuits.random_instances import grid_architecture, random_inst
 from contraction.execution.statevector import state_vector
 from service.client import Client
 
+from .loopback import free_port
 from .test_service import RATE
-
-
-def free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
 
 
 def start(data_dir, port, *extra: str):

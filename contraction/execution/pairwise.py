@@ -16,6 +16,7 @@ permutations and shapes) and run for every slice by :class:`contraction.executio
 
 from __future__ import annotations
 
+import functools
 import math
 import os
 import threading
@@ -187,18 +188,19 @@ _copiers_lock = threading.Lock()
 os.register_at_fork(after_in_child=_copiers.clear)  # a forked child has none of its parent's threads
 
 
-_blas_controller: list = []                      # this process's threadpool controller, made on first use
+@functools.cache
+def _blas_controller():
+    """This process's threadpool controller: finding the libraries reads the process's memory map
+    (1.5-2 ms, a third of a 5 ms one-amplitude request), so it is done once."""
+    from threadpoolctl import ThreadpoolController
+
+    return ThreadpoolController()
 
 
 def blas_threads() -> int:
-    """Threads the BLAS library runs on in this process now (1 when it cannot be told). The libraries
-    are found once per process (finding them reads the process's memory map: 1.5-2 ms, a third of a
-    5 ms one-amplitude request); their thread counts are read on every call."""
-    if not _blas_controller:
-        from threadpoolctl import ThreadpoolController
-
-        _blas_controller.append(ThreadpoolController())
-    counts = [int(d.get("num_threads") or 1) for d in _blas_controller[0].select(user_api="blas").info()]
+    """Threads the BLAS library runs on in this process now (1 when it cannot be told); the counts are
+    read on every call, so limits set later are seen."""
+    counts = [int(d.get("num_threads") or 1) for d in _blas_controller().select(user_api="blas").info()]
     return max(1, min(counts)) if counts else 1
 
 
@@ -336,20 +338,34 @@ def wide_sum_matmul(x: np.ndarray, y: np.ndarray, out: np.ndarray,
     o3 = out if out.ndim == 3 else out[None]
     nb_all, m_all, k_all = x3.shape
     n_all = y3.shape[2]
-    kc = min(k_all, block)
+    # a block of the sum leaves room for 64 rows and 64 columns, so a thin product (8 x 2^24 @ 2^24 x 8
+    # at 53 qubits) reads each operand once instead of once per row or column of the other
+    kc = min(k_all, max(1, block // 64))
     nc = min(n_all, max(1, block // kc))
     rm = min(m_all, max(1, block // kc))
     nb = min(nb_all, max(1, block // (kc * max(rm, nc))))
+    # upcast blocks go to buffers made once and reused (a fresh array per block paid its page faults:
+    # 8 x 2^24 @ 2^24 x 8 took 2.5-3.0 s that way, most of it in allocation)
+    xbuf = np.empty((nb, rm, kc), np.complex128)
+    ybuf = np.empty((nb, kc, nc), np.complex128)
+    pbuf = np.empty((nb, rm, nc), np.complex128)
+    acc = np.empty((nb, rm, nc), np.complex128)
     for b0 in range(0, nb_all, nb):
-        bs = slice(b0, b0 + nb)
+        b1 = min(b0 + nb, nb_all)
         for m0 in range(0, m_all, rm):
-            ms = slice(m0, m0 + rm)
+            m1 = min(m0 + rm, m_all)
             for n0 in range(0, n_all, nc):
-                ns = slice(n0, n0 + nc)
-                acc = None
+                n1 = min(n0 + nc, n_all)
+                a = acc[:b1 - b0, :m1 - m0, :n1 - n0]
+                a[...] = 0
                 for k0 in range(0, k_all, kc):
-                    ks = slice(k0, k0 + kc)
-                    part = np.matmul(x3[bs, ms, ks].astype(np.complex128), y3[bs, ks, ns].astype(np.complex128))
-                    acc = part if acc is None else np.add(acc, part, out=acc)
-                o3[bs, ms, ns] = acc
+                    k1 = min(k0 + kc, k_all)
+                    xb = xbuf[:b1 - b0, :m1 - m0, :k1 - k0]
+                    yb = ybuf[:b1 - b0, :k1 - k0, :n1 - n0]
+                    np.copyto(xb, x3[b0:b1, m0:m1, k0:k1])
+                    np.copyto(yb, y3[b0:b1, k0:k1, n0:n1])
+                    part = pbuf[:b1 - b0, :m1 - m0, :n1 - n0]
+                    np.matmul(xb, yb, out=part)
+                    a += part
+                o3[b0:b1, m0:m1, n0:n1] = a
     return out
