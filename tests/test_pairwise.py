@@ -122,22 +122,33 @@ def test_blas_threads_follows_limits_set_after_its_first_call():
     assert blas_threads() == reported()
 
 
-@pytest.mark.parametrize("batch, m, k, n", [(0, 5, 1 << 14, 3), (3, 5, 1 << 14, 3), (2, 7, 5000, 70)])
-def test_wide_sums_of_complex64_products_are_rounded_once(batch, m, k, n):
-    # reference: numpy's complex128 product of the same complex64 operands, rounded to complex64 once;
-    # a rounding to float32 moves each component by at most u = 2^-24 of itself (IEEE 754), so every
-    # element must lie within u·|exact| (2u allowed). Blocks of 2^10 elements make every loop run (the
-    # last case with short last blocks of the sum and of the columns).
+@pytest.mark.parametrize("batch, m, k, n, chunk", [(0, 5, 1 << 14, 3, 16), (3, 5, 1 << 14, 3, 256),
+                                                    (2, 7, 5000, 70, 16), (0, 300, 4100, 2, 64)])
+def test_wide_sums_of_complex64_products_are_chunked_float32_sums_added_in_float64(batch, m, k, n, chunk):
+    # references: numpy's complex128 product of the same complex64 operands (the exact value to float64
+    # accuracy) and Higham, Accuracy and Stability of Numerical Algorithms, 2nd ed.: a computed inner
+    # product of c terms is within γ_c·Σ|x_i||y_i| of the exact one (§3.1, γ_c = c·u/(1 - c·u), u = 2^-24
+    # for float32), with γ_{c+2} in complex arithmetic (§3.6); the float64 sum of the chunks adds a few
+    # float64 roundings and the final rounding to complex64 u·|exact| per component (IEEE 754).
+    # Blocks of 2^10 elements make every loop run (short last chunks, tiles and columns included).
     from contraction.execution.pairwise import wide_sum_matmul
 
-    rng = np.random.default_rng(11 + batch)
+    rng = np.random.default_rng(11 + batch + chunk)
     lead = (batch,) if batch else ()
 
     def c64(*shape):
         return (rng.normal(size=shape) + 1j * rng.normal(size=shape)).astype(np.complex64)
 
     x, y = c64(*lead, m, k), c64(*lead, k, n)
-    exact = np.matmul(x.astype(np.complex128), y.astype(np.complex128))
     out = np.empty(lead + (m, n), np.complex64)
-    wide_sum_matmul(x, y, out, block=1 << 10)
-    assert np.all(np.abs(out - exact) <= 2 * 2.0 ** -24 * np.abs(exact))
+    wide_sum_matmul(x, y, out, chunk=chunk, block=1 << 10)
+    exact = np.matmul(x.astype(np.complex128), y.astype(np.complex128))
+    magnitude = np.matmul(np.abs(x).astype(np.float64), np.abs(y).astype(np.float64))
+    u = 2.0 ** -24
+    gamma = (chunk + 2) * u / (1 - (chunk + 2) * u)
+    assert np.all(np.abs(out - exact) <= gamma * magnitude + 2 * u * np.abs(exact))
+    # the structure itself: float32 products of consecutive chunks of the sum (numpy's complex64 product
+    # of the same views), added in complex128 and rounded once
+    parts = [np.matmul(x[..., j:j + chunk], y[..., j:j + chunk, :]) for j in range(0, k, chunk)]
+    whole = sum(pt.astype(np.complex128) for pt in parts)
+    assert np.all(np.abs(out - whole) <= 2 * u * np.abs(whole) + 1e-12 * magnitude)
