@@ -75,18 +75,29 @@ def cases(which: str):
                          f"not {which!r}") from None
 
 
-def timed(run, repeats: int, short_s: float):
-    """(median seconds, last result, every run's seconds) of ``run()``: once, or ``repeats`` times when one run takes under
-    ``short_s`` (sub-second runs on a shared machine differ by 30-50 % between runs), and millisecond
-    runs until they add up to a second (at most 200; medians of five 2 ms runs differed by 1.6x)."""
-    t = time.perf_counter()
-    out = run()
-    times = [time.perf_counter() - t]
-    while times[0] < short_s and (len(times) < repeats or (sum(times) < 1.0 and len(times) < 200)):
+def timed(runs: dict, repeats: int, short_s: float) -> dict:
+    """name -> (median seconds, last result, every run's seconds) of each ``runs[name]()``: each runs once;
+    those whose first run took under ``short_s`` then run again, ``repeats`` times in all, and
+    millisecond runs until they add up to a second (at most 200; medians of five 2 ms runs differed by
+    1.6x). Repeats go in rounds, one run of each in turn, so the machine's slower and faster spells fall
+    on all of them alike (run one after the other, two engines doing the very same 0.3 s contraction
+    differed by 1.8x)."""
+    out, times = {}, {}
+    for name, run in runs.items():
         t = time.perf_counter()
-        out = run()
-        times.append(time.perf_counter() - t)
-    return float(np.median(times)), out, times
+        out[name] = run()
+        times[name] = [time.perf_counter() - t]
+
+    def more(ts):
+        return ts[0] < short_s and (len(ts) < repeats or (sum(ts) < 1.0 and len(ts) < 200))
+
+    while any(more(times[name]) for name in runs):
+        for name, run in runs.items():
+            if more(times[name]):
+                t = time.perf_counter()
+                out[name] = run()
+                times[name].append(time.perf_counter() - t)
+    return {name: (float(np.median(times[name])), out[name], times[name]) for name in runs}
 
 
 def main() -> None:
@@ -126,6 +137,7 @@ def main() -> None:
                                            planner=opts, memory_bytes=cap, workers=args.workers).chosen.seconds
             except MemoryLimitError as exc:
                 row[f"{engine}_refused"] = str(exc)[:120]
+        parts = {}
         for engine in predicted:
             part = bits
             if predicted[engine] > args.max_forced and predicted[engine] > SKIP_FACTOR * min(predicted.values()):
@@ -136,13 +148,13 @@ def main() -> None:
                 k = math.ceil(len(bits) * args.max_forced / predicted[engine] / args.workers) * args.workers
                 part = bits[:max(2 * args.workers, k)]
                 row["single_timed_on"] = len(part)
-            times[engine], run, each = timed(lambda: amplitudes(circ, part, engine=engine, **common),
-                                             args.repeats, args.short)
-            times[engine] *= len(bits) / len(part)
-            runs[engine] = [t * len(bits) / len(part) for t in each]
-            values[engine] = np.array([r.amplitude for r in run.results])
+            parts[engine] = part
+        # every engine once; those under --short seconds then run in rounds (that lone first run not
+        # counted), auto in the same rounds, unless it picked exactly what a forced run of --short
+        # seconds or more did (--reuse-forced)
+        firsts = timed({e: (lambda e=e: amplitudes(circ, parts[e], engine=e, **common)) for e in parts}, 1, 0.0)
         forced_schedule, work = {}, {}
-        for engine in times:
+        for engine in parts:
             if engine != "statevector":
                 forced = choose(circ, len(bits), engine=engine, dtype="complex128", rate=rate, store=store,
                                 planner=opts, memory_bytes=cap, workers=args.workers)
@@ -154,6 +166,23 @@ def main() -> None:
                 row[f"{engine}_plans"] = {b: {"slices": o.plan.nslices, "log10_madds": round(math.log10(o.plan.madds), 2),
                                               "predicted_s": round(o.seconds, 3)}
                                           for b, o in forced.chosen.parts.items() if o.plan is not None}
+        quick = {e: (lambda e=e: amplitudes(circ, parts[e], engine=e, **common)) for e in parts
+                 if firsts[e][0] < args.short}
+        same = []
+        if args.reuse_forced:                      # what auto would pick, and whether a forced run did just that
+            picked = choose(circ, len(bits), engine="auto", dtype="complex128", rate=rate, store=store,
+                            planner=opts, memory_bytes=cap, workers=args.workers)
+            same = [e for e in parts if e == picked.engine and (e == "statevector" or
+                                                                   forced_schedule.get(e) == picked.chosen.schedule)
+                    and firsts[e][0] >= args.short and f"{e}_timed_on" not in row]   # short runs: auto is timed
+        if not same:
+            quick["auto"] = lambda: amplitudes(circ, bits, engine="auto", **common)
+        rounds = {**firsts, **timed(quick, args.repeats, args.short)}
+        for engine in parts:
+            seconds, run, each = rounds[engine]
+            scale = len(bits) / len(parts[engine])
+            times[engine], runs[engine] = seconds * scale, [t * scale for t in each]
+            values[engine] = np.array([r.amplitude for r in run.results])
         # forced engines that ran the very same contractions (same chunks, same plans: e.g. "batch" for one
         # bitstring) differ only by the machine's noise (22.8 s against 27.7 s for one 30-qubit amplitude
         # in one run): each gets the median of all their runs
@@ -162,20 +191,13 @@ def main() -> None:
             row["same_contraction"] = {"single_runs_s": [round(t, 4) for t in runs["single"]],
                                        "batch_runs_s": [round(t, 4) for t in runs["batch"]]}
             times["single"] = times["batch"] = merged
-        same = []
-        if args.reuse_forced:                      # what auto would pick, and whether a forced run did just that
-            picked = choose(circ, len(bits), engine="auto", dtype="complex128", rate=rate, store=store,
-                            planner=opts, memory_bytes=cap, workers=args.workers)
-            same = [e for e in times if e == picked.engine and (e == "statevector" or
-                                                                   forced_schedule.get(e) == picked.chosen.schedule)
-                    and times[e] >= args.short and f"{e}_timed_on" not in row]   # short runs: auto is timed
         if same:
             # auto picked exactly what a forced run did (same engine, same chunks, same stored plans):
             # that run's time stands for it, marked as such
             auto_s, auto_engine, auto_batch, reason = times[same[0]], picked.engine, picked.chosen.batch, picked.reason
             row["auto_time_from_forced_run"] = same[0]
         else:
-            auto_s, auto, _ = timed(lambda: amplitudes(circ, bits, engine="auto", **common), args.repeats, args.short)
+            auto_s, auto, _ = rounds["auto"]
             auto_engine, auto_batch, reason = auto.engine, auto.batch, auto.reason
         fastest = min(times, key=times.get)
         ref = max(values.values(), key=len)          # every bitstring's amplitude (a share-timed run has a prefix)
