@@ -3,7 +3,8 @@ each engine forced (state vector where it fits the cap, one contraction per bits
 all in this run and with the same plan store (every contraction size a forced engine uses is
 planned before its timing, so planning is not what is compared; ``auto`` then finds those plans). Reports per case the time of every engine, the engine auto
 chose and ``auto / fastest`` (goal: at most 1.25 on every case). Runs shorter than ``--short``
-seconds are repeated (``--repeats``) and their median reported. A forced engine predicted over ``--max-forced``
+seconds are repeated (``--repeats``), auto and the forced engines in alternating rounds, and their
+median reported. A forced engine predicted over ``--max-forced``
 seconds and over ``SKIP_FACTOR`` times the fastest prediction is not run (the row says so), except
 the one-contraction-per-bitstring engine, which then runs on a share of the bitstrings (a multiple of
 the workers) and has its time scaled to all of them (its time is linear in the count: one
