@@ -159,6 +159,20 @@ def test_predicted_wall_time_shares_tasks_among_workers():
     assert scheduled("batch", 48, {16: batch}, workers=2).seconds == 12.0
 
 
+def test_the_state_vector_is_taken_within_its_margin_of_the_fastest_network():
+    # the rule itself (no outside source: a design choice, its measured reason beside STATEVECTOR_MARGIN):
+    # the lowest prediction wins unless the state vector is within the margin of it
+    from contraction.planning.engine_choice import STATEVECTOR_MARGIN, pick_fastest
+
+    sv, batch, single = Option("statevector", 0.90, 1.0), Option("batch", 0.82, 1.0, 4096), Option("single", 30.0, 1.0)
+    best, note = pick_fastest([single, batch, sv])
+    assert best is sv and "within" in note
+    far = Option("statevector", 0.82 * STATEVECTOR_MARGIN * 1.01, 1.0)
+    assert pick_fastest([single, batch, far]) == (batch, "")
+    assert pick_fastest([single, batch]) == (batch, "")
+    assert pick_fastest([Option("statevector", 0.5, 1.0), batch])[1] == ""     # fastest anyway: no note
+
+
 def test_engine_choice_reasons(medium, small):
     store = MemoryPlanStore()
     c = choose(small, 50, memory_bytes=8 * 2 ** 30)

@@ -24,6 +24,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import sys
 import time
 
 import numpy as np
@@ -138,6 +139,7 @@ def main() -> None:
                                            planner=opts, memory_bytes=cap, workers=args.workers).chosen.seconds
             except MemoryLimitError as exc:
                 row[f"{engine}_refused"] = str(exc)[:120]
+        print(json.dumps({"case": name, "bitstrings": len(bits), "predicted_s": predicted}), file=sys.stderr, flush=True)
         parts = {}
         for engine in predicted:
             part = bits
