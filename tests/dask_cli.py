@@ -23,14 +23,14 @@ def cli_cluster(logs: Path, workers: int = 2, memory_limit: str = "2GiB", start_
     port = free_port()
     address = f"tcp://127.0.0.1:{port}"
     env = {**os.environ, "OMP_NUM_THREADS": "1", "OPENBLAS_NUM_THREADS": "1"}
+    log_files = [open(logs / "scheduler.log", "w")] + [open(logs / f"worker{k}.log", "w") for k in range(workers)]
     procs = [subprocess.Popen([sys.executable, "-m", "dask", "scheduler", "--host", "127.0.0.1", "--port", str(port),
-                               "--no-dashboard"], stdout=subprocess.DEVNULL, stderr=open(logs / "scheduler.log", "w"),
-                              env=env)]
+                               "--no-dashboard"], stdout=subprocess.DEVNULL, stderr=log_files[0], env=env)]
     for k in range(workers):
         procs.append(subprocess.Popen([sys.executable, "-m", "dask", "worker", address, "--nthreads", "1",
                                        "--nworkers", "1", "--no-nanny", "--memory-limit", memory_limit,
                                        "--no-dashboard", "--host", "127.0.0.1"], stdout=subprocess.DEVNULL,
-                                      stderr=open(logs / f"worker{k}.log", "w"), env=env))
+                                      stderr=log_files[k + 1], env=env))
     client = None
     try:
         deadline = time.time() + start_timeout
@@ -55,3 +55,5 @@ def cli_cluster(logs: Path, workers: int = 2, memory_limit: str = "2GiB", start_
                 p.wait(timeout=10)
             except subprocess.TimeoutExpired:
                 p.kill()
+        for f in log_files:
+            f.close()

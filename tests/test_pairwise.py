@@ -148,7 +148,9 @@ def test_wide_sums_of_complex64_products_are_chunked_float32_sums_added_in_float
     gamma = (chunk + 2) * u / (1 - (chunk + 2) * u)
     assert np.all(np.abs(out - exact) <= gamma * magnitude + 2 * u * np.abs(exact))
     # the structure itself: float32 products of consecutive chunks of the sum (numpy's complex64 product
-    # of the same views), added in complex128 and rounded once
+    # of the same views), added in complex128 and rounded once; 1e-12 of the magnitudes allows for the
+    # float64 additions taken in another order (a common-practice margin, far above their 2^-53 roundings
+    # and far below the float32 rounding u = 6e-8 the check is about)
     parts = [np.matmul(x[..., j:j + chunk], y[..., j:j + chunk, :]) for j in range(0, k, chunk)]
     whole = sum(pt.astype(np.complex128) for pt in parts)
     assert np.all(np.abs(out - whole) <= 2 * u * np.abs(whole) + 1e-12 * magnitude)

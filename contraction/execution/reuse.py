@@ -103,7 +103,7 @@ class SliceContractor:
             else:
                 out = self.arena.array(k, OUT, x.shape[:-1] + y.shape[-1:], dtype)
                 if dtype == np.complex64 and x.shape[-1] >= WIDE_SUM_TERMS:
-                    wide_sum_matmul(x, y, out)           # long float32 sums lose accuracy: summed in float64
+                    wide_sum_matmul(x, y, out)           # long float32 sums lose accuracy: summed in chunks
                 else:
                     np.matmul(x, y, out=out)
             out = out.reshape(st.out_shape)
