@@ -36,11 +36,6 @@ log = logging.getLogger(__name__)
 
 ENGINES = ("auto", "statevector", "batch", "single")
 
-#: the automatic choice uses the state vector without planning anything up to this many qubits
-#: largest batch index tried
-
-
-
 #: a small circuit's state vector predicted below this (seconds) is used without looking at the network
 #: engines (predicting those costs a structure and a greedy pass, tens of milliseconds); above it a
 #: stored or cheap network plan can be faster even below ``defaults.STATEVECTOR_AUTO_QUBITS`` qubits

@@ -9,9 +9,9 @@ seconds and over ``SKIP_FACTOR`` times the fastest prediction is not run (the ro
 the one-contraction-per-bitstring engine, which then runs on a share of the bitstrings (a multiple of
 the workers) and has its time scaled to all of them (its time is linear in the count: one
 contraction per bitstring, in one pool); the row names the share. Before the first case a small
-request starts the worker processes' server, so the first engine timed does not pay it. Two forced
-engines that ran the very same contractions (same chunks and plans: the batch engine for one
-bitstring) get the median of all their runs, the runs listed in the row.
+request starts the worker processes' server, so the first engine timed does not pay it. A forced
+engine that would run the very same contractions as another (same chunks and plans: the batch engine
+for one bitstring) is not run; it gets the other's time, and the row says so.
 
 Cases: grid circuits (Haar two-qubit gates) of 20-53 qubits with 1 to 10,000 bitstrings, a 25-qubit
 swap test, a 24-qubit QFT (diagonal controlled phases) and a 30-qubit quantum-volume circuit.
@@ -152,10 +152,6 @@ def main() -> None:
                 part = bits[:max(2 * args.workers, k)]
                 row["single_timed_on"] = len(part)
             parts[engine] = part
-        # every engine once; those under --short seconds then run in rounds (that lone first run not
-        # counted), auto in the same rounds, unless it picked exactly what a forced run of --short
-        # seconds or more did (--reuse-forced)
-        firsts = timed({e: (lambda e=e: amplitudes(circ, parts[e], engine=e, **common)) for e in parts}, 1, 0.0)
         forced_schedule, work = {}, {}
         for engine in parts:
             if engine != "statevector":
@@ -169,31 +165,36 @@ def main() -> None:
                 row[f"{engine}_plans"] = {b: {"slices": o.plan.nslices, "log10_madds": round(math.log10(o.plan.madds), 2),
                                               "predicted_s": round(o.seconds, 3)}
                                           for b, o in forced.chosen.parts.items() if o.plan is not None}
-        quick = {e: (lambda e=e: amplitudes(circ, parts[e], engine=e, **common)) for e in parts
+        # a forced engine that would run the very same contractions as another (same chunks, same plans:
+        # the batch engine for one bitstring) is not run again: it differs only by the machine's noise
+        # (22.8 s against 27.7 s for one 30-qubit amplitude in one run) and doubled the long cases
+        twin = "batch" if ("single_timed_on" not in row and "batch" in parts and len(work) == 2
+                           and len(set(work.values())) == 1) else None
+        ran = [e for e in parts if e != twin]
+        # every engine once; those under --short seconds then run in rounds (that lone first run not
+        # counted), auto in the same rounds, unless it picked exactly what a forced run of --short
+        # seconds or more did (--reuse-forced)
+        firsts = timed({e: (lambda e=e: amplitudes(circ, parts[e], engine=e, **common)) for e in ran}, 1, 0.0)
+        quick = {e: (lambda e=e: amplitudes(circ, parts[e], engine=e, **common)) for e in ran
                  if firsts[e][0] < args.short}
         same = []
         if args.reuse_forced:                      # what auto would pick, and whether a forced run did just that
             picked = choose(circ, len(bits), engine="auto", dtype="complex128", rate=rate, store=store,
                             planner=opts, memory_bytes=cap, workers=args.workers)
-            same = [e for e in parts if e == picked.engine and (e == "statevector" or
+            same = [e for e in ran if e == picked.engine and (e == "statevector" or
                                                                    forced_schedule.get(e) == picked.chosen.schedule)
                     and firsts[e][0] >= args.short and f"{e}_timed_on" not in row]   # short runs: auto is timed
         if not same:
             quick["auto"] = lambda: amplitudes(circ, bits, engine="auto", **common)
         rounds = {**firsts, **timed(quick, args.repeats, args.short)}
-        for engine in parts:
+        for engine in ran:
             seconds, run, each = rounds[engine]
             scale = len(bits) / len(parts[engine])
             times[engine], runs[engine] = seconds * scale, [t * scale for t in each]
             values[engine] = np.array([r.amplitude for r in run.results])
-        # forced engines that ran the very same contractions (same chunks, same plans: e.g. "batch" for one
-        # bitstring) differ only by the machine's noise (22.8 s against 27.7 s for one 30-qubit amplitude
-        # in one run): each gets the median of all their runs
-        if "single_timed_on" not in row and len(work) == 2 and len(set(work.values())) == 1:
-            merged = float(np.median(runs["single"] + runs["batch"]))
-            row["same_contraction"] = {"single_runs_s": [round(t, 4) for t in runs["single"]],
-                                       "batch_runs_s": [round(t, 4) for t in runs["batch"]]}
-            times["single"] = times["batch"] = merged
+        if twin:
+            times[twin] = times["single"]
+            row["same_contraction"] = f"{twin} not run: the same chunks and plans as single"
         if same:
             # auto picked exactly what a forced run did (same engine, same chunks, same stored plans):
             # that run's time stands for it, marked as such
