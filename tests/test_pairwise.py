@@ -131,7 +131,7 @@ def test_wide_sums_of_complex64_products_are_chunked_float32_sums_added_in_float
     # for float32), with γ_{c+2} in complex arithmetic (§3.6); the float64 sum of the chunks adds a few
     # float64 roundings and the final rounding to complex64 u·|exact| per component (IEEE 754).
     # Blocks of 2^10 elements make every loop run (short last chunks, tiles and columns included).
-    from contraction.execution.pairwise import wide_sum_matmul
+    from contraction.execution.products import wide_sum_matmul
 
     rng = np.random.default_rng(11 + batch + chunk)
     lead = (batch,) if batch else ()
@@ -154,3 +154,37 @@ def test_wide_sums_of_complex64_products_are_chunked_float32_sums_added_in_float
     parts = [np.matmul(x[..., j:j + chunk], y[..., j:j + chunk, :]) for j in range(0, k, chunk)]
     whole = sum(pt.astype(np.complex128) for pt in parts)
     assert np.all(np.abs(out - whole) <= 2 * u * np.abs(whole) + 1e-12 * magnitude)
+
+
+@pytest.mark.parametrize("batch, m, k, n", [(0, 5000, 4, 4), (3, 4100, 1, 8), (1, 8192, 16, 32), (2, 4096, 8, 2)])
+def test_thin_complex64_products_on_real_views_match_the_complex_product(batch, m, k, n):
+    # reference: numpy's complex128 product of the same complex64 operands, and Higham, Accuracy and
+    # Stability of Numerical Algorithms, 2nd ed., §3.1/§3.6: a computed complex inner product of k terms
+    # is within γ_{k+2}·Σ|x_i||y_i| of the exact one (u = 2^-24 for float32). The real view makes the
+    # same real products (a + ib times c + id: ac - bd, ad + bc), so the same bound holds.
+    from contraction.execution.products import _real_view_pays, product, real_view_matmul
+
+    rng = np.random.default_rng(batch * 100 + k)
+
+    def c64(*shape):
+        return (rng.normal(size=shape) + 1j * rng.normal(size=shape)).astype(np.complex64)
+
+    lead = (batch,) if batch else ()                    # 2-d operands, or with a batch axis
+    x, y = c64(*lead, m, k), c64(*lead, k, n)
+    out = np.empty(lead + (m, n), np.complex64)
+    assert _real_view_pays(x, y, out)                   # these shapes take the real-view path
+    real_view_matmul(x, y, out)
+    exact = np.matmul(x.astype(np.complex128), y.astype(np.complex128))
+    magnitude = np.matmul(np.abs(x).astype(np.float64), np.abs(y).astype(np.float64))
+    u = 2.0 ** -24
+    gamma = (k + 2) * u / (1 - (k + 2) * u)
+    assert np.all(np.abs(out - exact) <= gamma * magnitude + 2 * u * np.abs(exact))
+    # through the dispatcher, and a left factor whose rows are not contiguous (a strided view) takes
+    # numpy's complex product with the same result
+    again = np.empty_like(out)
+    product(x, y, again)
+    assert np.array_equal(again, out)
+    strided = c64(*lead, m, 2 * k)[..., ::2]
+    assert not _real_view_pays(strided, y, out)
+    product(strided, y, again)
+    assert np.allclose(again, np.matmul(strided, y), rtol=0, atol=1e-5)

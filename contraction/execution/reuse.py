@@ -15,8 +15,8 @@ from typing import Sequence
 import numpy as np
 
 from contraction.execution.arena import ARENA_MIN_BYTES, LEFT, OUT, RIGHT, Arena, plan_arena
-from contraction.execution.pairwise import (WIDE_SUM_TERMS, arrange_operand, blas_threads, copy_into, program_for,
-                                            wide_sum_matmul)
+from contraction.execution.pairwise import arrange_operand, blas_threads, copy_into, program_for
+from contraction.execution.products import product
 from contraction.planning.slice_reuse import ReusePlan
 
 
@@ -101,11 +101,7 @@ class SliceContractor:
             if dtype != self.dtype:                      # mixed precisions: not what the arena was laid out for
                 out = np.matmul(x, y)
             else:
-                out = self.arena.array(k, OUT, x.shape[:-1] + y.shape[-1:], dtype)
-                if dtype == np.complex64 and x.shape[-1] >= WIDE_SUM_TERMS:
-                    wide_sum_matmul(x, y, out)           # long float32 sums lose accuracy: summed in chunks
-                else:
-                    np.matmul(x, y, out=out)
+                out = product(x, y, self.arena.array(k, OUT, x.shape[:-1] + y.shape[-1:], dtype))
             out = out.reshape(st.out_shape)
             del x, y
             if k in self.plan.kept:
