@@ -15,7 +15,7 @@ Part a: one amplitude in complex64 with the stored plan, the whole run within th
 on the machine's BLAS threads (default) or ``--amp-workers`` processes on one thread each sharing
 it (the plan's target is then a quarter of a share); wall time and peak RSS of this process and of
 its workers (measured, not estimated), against the time at the matrix-multiply rate measured in the
-same run.
+same run; at 12 cycles also its error against the complex128 amplitude in ``COMPLEX128_REFERENCE``.
 Part b: a batch of ``--batch`` uncorrelated bitstrings (|0...0> and random ones) sharing one
 contraction (a batch index on the projectors): its plan, searched with the same budget and target as
 part p's, against part p's plan (ratio of multiply-adds); with ``--run-batch`` it is contracted in
@@ -117,6 +117,12 @@ def part_plan(cycles: int, budget: float, cap_log2: int, baseline: bool = True,
     return doc, plan
 
 
+#: <0...0|C|0...0> of ``w53(cycles)`` in complex128, by this project's engine (not an outside value: a
+#: reference for the complex64 runs of part a): 12 cycles, one plan of 64 slices (10^12.754
+#: multiply-adds, sliced indices 64, 73, 80, 89, 96, 118), slice by slice, 2026-12-04
+COMPLEX128_REFERENCE = {12: complex(-3.3490153439103946e-09, 5.091312222326599e-09)}
+
+
 def part_amplitude(cycles: int, plan, cap_log2: int, workers: int = 1) -> dict:
     from contraction.execution.amplitudes import amplitudes
     from contraction.execution.calibration import matmul_rate
@@ -151,6 +157,10 @@ def part_amplitude(cycles: int, plan, cap_log2: int, workers: int = 1) -> dict:
                amplitude=[run.results[0].amplitude.real, run.results[0].amplitude.imag],
                madds_per_s=plan.madds / dt, fraction_of_matmul=round(plan.madds / dt / rate, 3),
                goal={"seconds": 600, "peak_rss_bytes": 8 * 2 ** 30})
+    if cycles in COMPLEX128_REFERENCE:
+        ref = COMPLEX128_REFERENCE[cycles]
+        diff = abs(run.results[0].amplitude - ref) / abs(ref)
+        out["complex128_reference"] = {"relative_difference": diff, "tolerance": 1e-5, "agree": diff <= 1e-5}
     return out
 
 
