@@ -131,7 +131,7 @@ def main() -> None:
         store = MemoryPlanStore()
         opts = PlannerOptions(budget_seconds=args.budget)
         common = dict(planner=opts, plan_store=store, memory_bytes=cap, rate=rate, workers=args.workers)
-        times, runs, values, row = {}, {}, {}, {"case": name, "qubits": circ.num_qubits, "bitstrings": len(bits)}
+        times, values, row = {}, {}, {"case": name, "qubits": circ.num_qubits, "bitstrings": len(bits)}
         predicted = {}
         for engine in ("single", "batch", "statevector"):    # plan every contraction size each engine uses
             try:
@@ -188,9 +188,8 @@ def main() -> None:
             quick["auto"] = lambda: amplitudes(circ, bits, engine="auto", **common)
         rounds = {**firsts, **timed(quick, args.repeats, args.short)}
         for engine in ran:
-            seconds, run, each = rounds[engine]
-            scale = len(bits) / len(parts[engine])
-            times[engine], runs[engine] = seconds * scale, [t * scale for t in each]
+            seconds, run, _ = rounds[engine]
+            times[engine] = seconds * len(bits) / len(parts[engine])
             values[engine] = np.array([r.amplitude for r in run.results])
         if twin:
             times[twin] = times["single"]
