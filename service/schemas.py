@@ -7,7 +7,8 @@ from typing import Any, Literal
 from pydantic import BaseModel, ConfigDict, Field
 
 Dtype = Literal["complex128", "complex64"]
-Engine = Literal["auto", "statevector", "batch", "single"]
+Engine = Literal["auto", "statevector", "batch", "single", "stacked"]
+BlockEngine = Literal["auto", "statevector", "batch", "single"]        # a block is one group: nothing to stack
 
 GHZ_EXAMPLE = 'OPENQASM 2.0;\ninclude "qelib1.inc";\nqreg q[3];\nh q[0];\ncx q[0],q[1];\ncx q[1],q[2];\n'
 
@@ -153,7 +154,7 @@ class BlockIn(CircuitRef):
     qubits: list[int] = Field(..., min_length=1, max_length=20, description="the k open qubits, in output order")
     fixed: str = Field(..., description="n-bit string giving the other qubits' values (open positions ignored)")
     dtype: Dtype = "complex128"
-    engine: Engine = "auto"
+    engine: BlockEngine = "auto"
 
 
 class BlockOut(BaseModel):

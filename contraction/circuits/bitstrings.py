@@ -8,6 +8,8 @@ from __future__ import annotations
 
 from typing import Iterable
 
+import numpy as np
+
 from contraction.errors import BitstringError
 
 _ALLOWED = frozenset("01")
@@ -41,3 +43,10 @@ def read_bitstrings(text: str) -> list[str]:
 
 def _short(b: str) -> str:
     return b if len(b) <= 24 else b[:21] + "..."
+
+
+def bit_table(bitstrings: Iterable[str]) -> np.ndarray:
+    """Bitstrings (qubit 0 first, already checked) as a (count, qubits) array of 0/1."""
+    bits = list(bitstrings)
+    width = len(bits[0]) if bits else 0
+    return np.array([[c == "1" for c in b] for b in bits], dtype=np.uint8).reshape(len(bits), width)

@@ -1,7 +1,8 @@
 """Exact amplitudes <x|C|0...0> of a circuit for a list of bitstrings.
 
 The request is answered by the engine :mod:`contraction.planning.engine_choice` picks (state vector,
-batched network contractions or one contraction per bitstring) or the one the caller forces.
+batched network contractions, one contraction per bitstring, or chunks of bitstrings through the single
+amplitude's tree with stacked intermediates) or the one the caller forces.
 Repeated bitstrings are computed once; results come back in input order; ``on_results`` receives
 each chunk's amplitudes as soon as the chunk is finished (the service stores them right away) and
 ``progress`` counts finished tasks (a task is one chunk, or a run of one chunk's slices).
@@ -20,16 +21,18 @@ from typing import Callable, Iterable, Sequence
 import numpy as np
 
 from contraction import defaults
-from contraction.circuits.bitstrings import check_bitstrings
+from contraction.circuits.bitstrings import bit_table, check_bitstrings
 from contraction.circuits.model import Circuit
 from contraction.execution.executor import CancelCheck, Progress, ProgressCallback, combine_scaled
 from contraction.execution.slices import ProcessRunner, Runner, Task, make_runner, split_slices
+from contraction.execution.stacked import batch_inputs
 from contraction.execution.statevector import state_vector
 from contraction.network.builder import resolve_dtype, tensor_arrays
 from contraction.planning.engine_choice import Choice, Option, choose, tasks_per_chunk
 from contraction.planning.rates import MachineRate
 from contraction.planning.search import Plan, PlannerOptions
 from contraction.planning.slice_reuse import reuse_budget
+from contraction.planning.stacked_cost import projected_qubits
 from contraction.planning.store import PlanStore
 
 log = logging.getLogger(__name__)
@@ -100,7 +103,8 @@ def amplitudes(circuit: Circuit, bitstrings: Iterable[str], *, dtype: str = "com
     local = runner.workers if isinstance(runner, ProcessRunner) else (workers if runner is None else 1)
     if choice is None or choice.count != len(groups):
         choice = choose(circuit, len(groups), engine=engine, dtype=dtype, rate=rate, store=plan_store,
-                        planner=planner, memory_bytes=memory_bytes, open_qubits=open_qubits, workers=local)
+                        planner=planner, memory_bytes=memory_bytes, open_qubits=open_qubits, workers=local,
+                        bitstrings=None if open_qubits else list(groups))
     if on_choice is not None:
         on_choice(choice)
     found: dict[str, complex] = {}
@@ -121,8 +125,11 @@ def amplitudes(circuit: Circuit, bitstrings: Iterable[str], *, dtype: str = "com
             # the plan was made for one worker's share of the cap, so it fits)
             inline = choice.chosen.seconds * (local - 1) < POOL_START_SECONDS
             runner = make_runner(1 if inline else workers)
-        _run_network(circuit, choice.chosen, groups, open_qubits, dt, runner,
-                     emit, progress, cancelled, memory_bytes / max(1, local))
+        if choice.engine == "stacked":
+            _run_stacked(circuit, choice.chosen, list(groups), dt, runner, emit, progress, cancelled)
+        else:
+            _run_network(circuit, choice.chosen, groups, open_qubits, dt, runner,
+                         emit, progress, cancelled, memory_bytes / max(1, local))
     o = choice.chosen
     return AmplitudeRun([Amplitude(b, found[b]) for b in bits], choice.engine, choice.reason, dtype,
                         time.perf_counter() - t0, o.plan, o.plan_cached, o.batch, max(1, o.chunks), o.madds,
@@ -174,24 +181,67 @@ def _run_network(circuit: Circuit, option: Option, groups: dict[str, list[str]],
                 owner.append(number)
         plans.append((sub, items, tasks, owner, len(pieces)))
         total_tasks += len(tasks)
-    done_tasks = 0
-    t0 = time.perf_counter()
+    tally = _Tally(total_tasks, progress)
     for sub, items, tasks, owner, per_chunk in plans:
-        parts_of: dict[int, list] = {}
         members = dict(items)
+        batched = bool(sub.contraction.structure.batch)
 
-        def done(k: int, results, sub=sub, owner=owner, members=members, parts_of=parts_of, per_chunk=per_chunk):
-            nonlocal done_tasks
+        def finish(number: int, value, members=members, batched=batched) -> None:
+            emit(_pick(value * phase, members[number], groups, open_qubits, batched))
+
+        runner.run(sub.contraction, tasks, tally.collector(owner, per_chunk, finish), cancelled)
+
+
+class _Tally:
+    """Counts finished tasks over a whole request (for ``progress``) and sums each chunk's parts."""
+
+    def __init__(self, total: int, progress: ProgressCallback | None):
+        self.total, self.progress, self.done = total, progress, 0
+        self.t0 = time.perf_counter()
+
+    def collector(self, owner: list[int], per_chunk: int, finish: Callable[[int, np.ndarray], None]):
+        """A runner's ``done`` callback for tasks belonging to chunks ``owner[k]``, each chunk split into
+        ``per_chunk`` tasks: ``finish(chunk, value)`` once all of a chunk's reduced parts are in."""
+        parts_of: dict[int, list] = {}
+
+        def done(k: int, results) -> None:
             number = owner[k]
             parts_of.setdefault(number, []).extend(results)
-            done_tasks += 1
+            self.done += 1
             if len(parts_of[number]) == per_chunk:        # every task of the chunk has sent its reduced part
-                value = combine_scaled(parts_of.pop(number)) * phase
-                emit(_pick(value, members[number], groups, open_qubits, bool(sub.contraction.structure.batch)))
-            if progress is not None:
-                progress(Progress(done_tasks, total_tasks, time.perf_counter() - t0))
+                finish(number, combine_scaled(parts_of.pop(number)))
+            if self.progress is not None:
+                self.progress(Progress(self.done, self.total, time.perf_counter() - self.t0))
 
-        runner.run(sub.contraction, tasks, done, cancelled)
+        return done
+
+
+def _run_stacked(circuit: Circuit, option: Option, keys: list[str], dt, runner: Runner, emit,
+                 progress: ProgressCallback | None, cancelled: CancelCheck | None) -> None:
+    """Run the stacked engine's chunks (``option.schedule``: bitstrings per chunk, in order) through the
+    single amplitude's contraction, each chunk's slices split into tasks as a single amplitude's are."""
+    phase = np.exp(1j * circuit.global_phase)
+    c = option.contraction
+    s = c.structure
+    projected = projected_qubits(s)
+    pieces = split_slices(c.plan.nslices, tasks_per_chunk(c.plan.nslices, runner.workers))
+    first = tensor_arrays(s, circuit, keys[0], dt)            # gate tensors computed once, shared by every chunk
+    tasks, owner, members = [], [], {}
+    pos = 0
+    for number, size in enumerate(option.schedule):
+        part = keys[pos:pos + size]
+        pos += size
+        table = bit_table(part)
+        arrays = batch_inputs(s, circuit, table, dt, reuse=first)
+        members[number] = part
+        for piece in pieces:
+            tasks.append(Task(arrays, piece, 0.0, (projected, table)))
+            owner.append(number)
+
+    def finish(number: int, value) -> None:
+        emit({b: complex(v) for b, v in zip(members[number], value * phase)})
+
+    runner.run(c, tasks, _Tally(len(tasks), progress).collector(owner, len(pieces), finish), cancelled)
 
 
 def _pick(value: np.ndarray, part: list[str], groups: dict[str, list[str]], open_qubits: tuple[int, ...],

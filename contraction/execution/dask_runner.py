@@ -21,12 +21,13 @@ from contraction.planning.engine_choice import Contraction
 from contraction.planning.slice_reuse import reuse_budget
 
 
-def _task_on_worker(tree, arrays: list, slices: list[int], reuse_elements: float = 0.0) -> SliceResults:
+def _task_on_worker(tree, arrays: list, slices: list[int], reuse_elements: float = 0.0,
+                    stacked: tuple | None = None) -> SliceResults:
     from threadpoolctl import threadpool_limits
 
     keep_freed_memory()
     with threadpool_limits(1):
-        return run_task(tree, Task(arrays, slices, reuse_elements))
+        return run_task(tree, Task(arrays, slices, reuse_elements, stacked))
 
 
 class DaskRunner:
@@ -72,7 +73,8 @@ class DaskRunner:
             if self.memory_limit is not None:       # within what the smallest worker allows above the peak
                 reuse = min(reuse, reuse_budget(self.memory_limit / task.arrays[0].dtype.itemsize, plan.peak_elements,
                                                  plan.width))
-            return self.client.submit(_task_on_worker, blob, shared[key], task.slices, reuse, pure=False)
+            return self.client.submit(_task_on_worker, blob, shared[key], task.slices, reuse, task.stacked,
+                                      pure=False)
 
         def wait(fs, timeout, return_when):
             try:

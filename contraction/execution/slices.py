@@ -21,7 +21,9 @@ import numpy as np
 from contraction.errors import Cancelled
 from contraction.execution.arena import keep_idle_mapping
 from contraction.execution.executor import CancelCheck, contract_slice_scaled, sum_scaled
+from contraction.execution.pairwise import program_for
 from contraction.execution.reuse import SliceContractor
+from contraction.execution.stacked import contract_stacked, row_maps
 from contraction.planning.engine_choice import Contraction
 from contraction.planning.slice_reuse import reuse_plan_for
 
@@ -35,6 +37,9 @@ class Task:
     arrays: list[np.ndarray]
     slices: list[int]
     reuse_elements: float = 0.0     # memory (elements) for intermediates kept between its slices
+    # a batch through a single-amplitude tree (:mod:`contraction.execution.stacked`): the projected
+    # qubit of each input (-1: none) and the bit table of the batch; ``arrays`` are then stacked inputs
+    stacked: tuple[tuple[int, ...], np.ndarray] | None = None
 
 
 TaskDone = Callable[[int, SliceResults], None]
@@ -54,6 +59,10 @@ class Runner(Protocol):
 def run_task(tree, task: Task) -> SliceResults:
     """Contract the task's slices with ``tree`` and sum them where they were computed: one
     (mantissa, log10 scale) pair per task, so only one output travels back per task."""
+    if task.stacked is not None:
+        projected, table = task.stacked
+        maps = row_maps(program_for(tree), projected, table)
+        return [contract_stacked(tree, task.arrays, maps, task.slices)]
     contractor = SliceContractor(tree, task.arrays, reuse_plan_for(tree, task.reuse_elements))
     return [sum_scaled([contract_slice_scaled(tree, task.arrays, i, contractor) for i in task.slices])]
 

@@ -1,13 +1,17 @@
 """Which engine answers a request, from predicted time and memory.
 
-Three ways to get N amplitudes of an n-qubit circuit:
+Four ways to get N amplitudes of an n-qubit circuit:
 
 * ``statevector``: build C|0...0> once and read any number of amplitudes (memory: see
   :func:`statevector_peak_elements`);
 * ``batch``: contract the network with a batch index of size B on the projectors, so one
   contraction gives B amplitudes; the chunk size B is chosen from the cost model among a few powers
   of two (each one planned, or its plan read from the store);
-* ``single``: one (sliced) contraction per bitstring.
+* ``single``: one (sliced) contraction per bitstring;
+* ``stacked``: the single amplitude's tree for a chunk of bitstrings at once, every intermediate
+  stacked over the distinct restrictions of the chunk to the qubits whose projectors it holds
+  (:mod:`contraction.planning.stacked_cost`): never more multiply-adds than the single amplitudes,
+  and no plan of its own; the chunk size is the largest whose peak fits the cap for any bitstrings.
 
 :func:`choose` predicts each feasible option with the machine's measured rates and picks the
 fastest; ``engine=`` forces one. The result says what was predicted for every option considered.
@@ -23,6 +27,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from contraction import defaults
+from contraction.circuits.bitstrings import bit_table
 from contraction.circuits.model import Circuit
 from contraction.errors import MemoryLimitError, NoStoredPlan, PlanError, VerampError
 from contraction.network.builder import NetworkStructure, build_structure
@@ -30,11 +35,12 @@ from contraction.planning.rates import NOMINAL_RATE, MachineRate
 from contraction.planning.search import (Plan, PlannerOptions, executor_peak_elements, find_plan, planning_seconds,
                                          retarget_plan)
 from contraction.planning.slice_reuse import reuse_budget, reuse_plan_for
+from contraction.planning.stacked_cost import projected_qubits, stacked_chunks
 from contraction.planning.store import PlanStore
 
 log = logging.getLogger(__name__)
 
-ENGINES = ("auto", "statevector", "batch", "single")
+ENGINES = ("auto", "statevector", "batch", "single", "stacked")
 
 #: a small circuit's state vector predicted below this (seconds) is used without looking at the network
 #: engines (predicting those costs a structure and a greedy pass, tens of milliseconds); above it a
@@ -190,7 +196,7 @@ def _statevector_choice(reason: str, sv: Option, rate: MachineRate, count: int) 
 
 
 def _label(o: Option) -> str:
-    return f"batch{o.batch}" if o.engine == "batch" else o.engine
+    return f"{o.engine}{o.batch}" if o.engine in ("batch", "stacked") else o.engine
 
 
 def _planning_seconds(s: NetworkStructure, store: PlanStore | None, planner: PlannerOptions, memory_bytes: float,
@@ -285,6 +291,43 @@ def scheduled(engine: str, count: int, parts: dict[int, Option], workers: int = 
                   sum(parts[b].madds for b in schedule), schedule, used)
 
 
+#: a stacked chunk's peak is kept below this many bytes (or twice the single amplitude's peak, if more)
+#: even when the cap allows more: memory a process touches for the first time cost 1.0-1.3 s per GiB on
+#: the 2-core test machine (measured, 2 GiB filled afresh against 0.13-0.20 s filled again), and
+#: uncorrelated bitstrings share little however large the chunk (see :data:`STACKED_MIN_SAVING`)
+STACKED_WORKING_BYTES = 1 << 30
+
+#: the automatic choice considers the stacked engine only when it saves at least this share of the
+#: single amplitudes' multiply-adds: it then runs at their rate or better (measured, one thread,
+#: complex128, uncorrelated bitstrings: 40 qubits x 2,000 at 0.974 of their multiply-adds, 1.14x
+#: faster; 36 qubits x 64 at 0.987, 1.04x), but a chunk's first run pays for its fresh memory
+STACKED_MIN_SAVING = 0.1
+
+
+def stacked_option(single: Option, table: np.ndarray, rate: MachineRate, dtype: str, memory_bytes: float,
+                   workers: int = 1) -> Option | None:
+    """The stacked engine for the bitstrings of ``table`` (a bit table) through the single amplitude's
+    contraction, in chunks whose peak for any bitstrings fits ``memory_bytes`` and
+    :data:`STACKED_WORKING_BYTES` (:func:`stacked_chunks`), at most a worker's share of the bitstrings
+    each when the plan has fewer slices than workers. Predicted as the single amplitude's contraction
+    (without slice reuse) times each chunk's multiply-adds over one bitstring's. None when not even two
+    bitstrings fit."""
+    c = single.contraction
+    count = table.shape[0]
+    itemsize = np.dtype(dtype).itemsize
+    fit = min(memory_bytes * PLAN_SHARE_OF_CAP, max(STACKED_WORKING_BYTES, 2 * c.plan.peak_bytes(dtype))) / itemsize
+    top = min(count, defaults.MAX_BATCH, -(-count // workers) if c.plan.nslices < workers else count)
+    chunks = stacked_chunks(c.tree, projected_qubits(c.structure), table, fit, top)
+    if chunks is None:
+        return None
+    one = network_seconds(c.plan, c.structure, rate, dtype)
+    seconds = [one * r for r in chunks.ratios]
+    longest = max(seconds) / tasks_per_chunk(c.plan.nslices, workers)
+    wall = max(sum(seconds) * chunks.share / max(1, workers), longest)
+    return Option("stacked", wall, chunks.peak_elements * itemsize, chunks.size, c, single.plan_cached,
+                  chunks.madds, list(chunks.schedule), {chunks.size: single})
+
+
 #: share of the planning budget spent trying each batch size's contraction order on the other sizes
 SHARE_ORDERS_FRACTION = 0.2
 
@@ -323,15 +366,20 @@ def _share_batch_orders(circuit: Circuit, sizes: list[int], planned: dict[int, O
 def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "complex128",
            rate: MachineRate | None = None, store: PlanStore | None = None,
            planner: PlannerOptions | None = None, memory_bytes: float,
-           open_qubits: tuple[int, ...] = (), search: bool = True, workers: int = 1) -> Choice | None:
+           open_qubits: tuple[int, ...] = (), search: bool = True, workers: int = 1,
+           bitstrings: list[str] | None = None) -> Choice | None:
     """The fastest feasible way to get ``count`` distinct amplitudes, or ``count`` groups of
     bitstrings that share their bits outside ``open_qubits`` (or the forced way).
 
     With ``search=False`` nothing is planned: only stored plans are considered, and None is
     returned when the network engines have none and the state vector is not an option. ``workers``:
-    local processes that will contract slices at once; the cap is shared among them."""
+    local processes that will contract slices at once; the cap is shared among them. ``bitstrings``:
+    the ``count`` distinct bitstrings, for the stacked engine's cost (without them it is predicted for
+    uncorrelated random bitstrings)."""
     if engine not in ENGINES:
         raise VerampError(f"unknown engine {engine!r}; choose one of {', '.join(ENGINES)}")
+    if engine == "stacked" and open_qubits:
+        raise VerampError("the stacked engine computes single bitstrings; with open qubits choose another engine")
     rate = rate or NOMINAL_RATE
     planner = (planner or PlannerOptions()) if search else None
     n = circuit.num_qubits
@@ -360,9 +408,10 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
         if sv.seconds <= planning:
             return _statevector_choice(f"state vector predicted {sv.seconds:.3g} s, less than planning the network "
                                        f"engines would take (~{planning:.3g} s)", sv, rate, count)
-    errors = []
+    errors: list[str] = []
+    notes: list[str] = []
     planned: dict[int, Option] = {}
-    sizes = ([1] if engine in ("auto", "single") or count < 2 else []) + \
+    sizes = ([1] if engine in ("auto", "single", "stacked") or count < 2 else []) + \
         (batch_candidates(count) if engine in ("auto", "batch") else [])
     # the planning budget is for the whole request: shared by every contraction size planned, and
     # with two batch sizes or more a share of it for trying each one's order on the others. Each size
@@ -389,7 +438,18 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
     if sharing and any(b not in planned or not planned[b].plan_cached for b in batch_sizes):
         _share_batch_orders(circuit, batch_sizes, planned, store, planner, per_worker, dtype, rate, open_qubits,
                             max(0.0, deadline - time.perf_counter()))
-    if 1 in planned:
+    stacked = None
+    if 1 in planned and count >= 2 and not open_qubits and engine in ("auto", "stacked"):
+        table = bit_table(bitstrings) if bitstrings is not None and len(bitstrings) == count else \
+            np.random.default_rng(0).integers(0, 2, (count, n), dtype=np.uint8)
+        stacked = stacked_option(planned[1], table, rate, dtype, per_worker, workers)
+        saving = 1.0 - stacked.madds / (planned[1].madds * count) if stacked is not None else 0.0
+        if stacked is not None and (engine == "stacked" or saving >= STACKED_MIN_SAVING):
+            options.append(stacked)
+        elif stacked is not None:
+            notes.append(f"stacked chunks would save {saving:.1%} of the multiply-adds (< {STACKED_MIN_SAVING:.0%})")
+            stacked = None
+    if 1 in planned and not (engine == "stacked" and stacked is not None):
         options.append(scheduled("single", count, {1: planned[1]}, workers))
     if any(b > 1 for b in planned):
         batched = scheduled("batch", count, planned, workers)
@@ -401,7 +461,9 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
         raise MemoryLimitError("no engine fits the memory cap: " + "; ".join(errors))
     options = [_with_overhead(o, rate) for o in options]
     best, margin = pick_fastest(options)
-    if engine != "auto":
+    if engine == "stacked" and best.engine != "stacked":
+        reason = "requested the stacked engine; one bitstring, or two do not fit the memory cap: single amplitudes"
+    elif engine != "auto":
         reason = "requested"
     else:
         others = ", ".join(f"{_label(o)} {o.seconds:.3g} s" for o in options if o is not best)
@@ -411,4 +473,5 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
             reason += f"; batches of {'/'.join(map(str, sorted(slower)))} predicted slower per bitstring"
         if not sv_fits:
             reason += f"; a state vector needs {sv.peak_bytes:.3g} bytes, over the cap"
+        reason += "".join("; " + x for x in notes)
     return Choice(best.engine, reason, best, options, planned, count=count)

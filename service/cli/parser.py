@@ -54,7 +54,7 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("--bitstring", "-b", action="append", metavar="B", help="a bitstring (repeatable)")
     a.add_argument("--bitstrings", metavar="FILE", help="file with one bitstring per line")
     _dtype(a)
-    a.add_argument("--engine", choices=["auto", "statevector", "batch", "single"], default="auto")
+    a.add_argument("--engine", choices=["auto", "statevector", "batch", "single", "stacked"], default="auto")
     a.add_argument("--format", choices=["table", "json", "csv"], default="table")
     a.add_argument("--budget", type=float, metavar="SECONDS",
                    help="time budget for finding a contraction order (default: VERAMP_PLAN_BUDGET_SECONDS, "
@@ -133,7 +133,7 @@ def build_parser() -> argparse.ArgumentParser:
     _circuit(e)
     e.add_argument("--count", type=int, default=1, metavar="K", help="number of distinct amplitudes wanted")
     _dtype(e)
-    e.add_argument("--engine", choices=["auto", "statevector", "batch", "single"], default="auto")
+    e.add_argument("--engine", choices=["auto", "statevector", "batch", "single", "stacked"], default="auto")
     _memory(e)
     e.add_argument("--budget", type=float, metavar="SECONDS", help="planning budget")
     e.add_argument("--format", choices=["table", "json"], default="table")

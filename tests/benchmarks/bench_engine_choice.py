@@ -1,5 +1,6 @@
 """Is the automatic engine choice the fastest? Every case runs with ``engine="auto"`` and with
-each engine forced (state vector where it fits the cap, one contraction per bitstring, batched),
+each engine forced (state vector where it fits the cap, one contraction per bitstring, batched,
+stacked),
 all in this run and with the same plan store (every contraction size a forced engine uses is
 planned before its timing, so planning is not what is compared; ``auto`` then finds those plans). Reports per case the time of every engine, the engine auto
 chose and ``auto / fastest`` (goal: at most 1.25 on every case). Runs shorter than ``--short``
@@ -10,8 +11,8 @@ the one-contraction-per-bitstring engine, which then runs on a share of the bits
 the workers) and has its time scaled to all of them (its time is linear in the count: one
 contraction per bitstring, in one pool); the row names the share. Before the first case a small
 request starts the worker processes' server, so the first engine timed does not pay it. A forced
-engine that would run the very same contractions as another (same chunks and plans: the batch engine
-for one bitstring) is not run; it gets the other's time, and the row says so.
+engine that would run the very same contractions as the single engine (same chunks and plans: the batch
+or stacked engine for one bitstring) is not run; it gets the single engine's time, and the row says so.
 
 Cases: grid circuits (Haar two-qubit gates) of 20-53 qubits with 1 to 10,000 bitstrings, a 25-qubit
 swap test, a 24-qubit QFT (diagonal controlled phases) and a 30-qubit quantum-volume circuit.
@@ -133,7 +134,7 @@ def main() -> None:
         common = dict(planner=opts, plan_store=store, memory_bytes=cap, rate=rate, workers=args.workers)
         times, values, row = {}, {}, {"case": name, "qubits": circ.num_qubits, "bitstrings": len(bits)}
         predicted = {}
-        for engine in ("single", "batch", "statevector"):    # plan every contraction size each engine uses
+        for engine in ("single", "batch", "stacked", "statevector"):    # plan every contraction size each engine uses
             try:
                 predicted[engine] = choose(circ, len(bits), engine=engine, dtype="complex128", rate=rate, store=store,
                                            planner=opts, memory_bytes=cap, workers=args.workers).chosen.seconds
@@ -158,19 +159,20 @@ def main() -> None:
                 forced = choose(circ, len(bits), engine=engine, dtype="complex128", rate=rate, store=store,
                                 planner=opts, memory_bytes=cap, workers=args.workers)
                 forced_schedule[engine] = forced.chosen.schedule
-                work[engine] = (tuple(forced.chosen.schedule),
+                work[engine] = (forced.engine, tuple(forced.chosen.schedule),
                                 tuple(sorted((b, o.plan.madds, o.plan.nslices) for b, o in forced.chosen.parts.items()
                                              if o.plan is not None)))
                 # the plans behind each forced engine (they vary between runs with short budgets)
                 row[f"{engine}_plans"] = {b: {"slices": o.plan.nslices, "log10_madds": round(math.log10(o.plan.madds), 2),
                                               "predicted_s": round(o.seconds, 3)}
                                           for b, o in forced.chosen.parts.items() if o.plan is not None}
-        # a forced engine that would run the very same contractions as another (same chunks, same plans:
-        # the batch engine for one bitstring) is not run again: it differs only by the machine's noise
-        # (22.8 s against 27.7 s for one 30-qubit amplitude in one run) and doubled the long cases
-        twin = "batch" if ("single_timed_on" not in row and "batch" in parts and len(work) == 2
-                           and len(set(work.values())) == 1) else None
-        ran = [e for e in parts if e != twin]
+        # a forced engine that would run the very same contractions as the single engine (same engine
+        # chosen, chunks and plans: the batch or stacked engine for one bitstring) is not run again: it
+        # differs only by the machine's noise (22.8 s against 27.7 s for one 30-qubit amplitude in one
+        # run) and doubled the long cases
+        twins = [e for e in work if e != "single" and "single" in work and "single_timed_on" not in row
+                 and work[e] == work["single"]]
+        ran = [e for e in parts if e not in twins]
         # every engine once; those under --short seconds then run in rounds (that lone first run not
         # counted), auto in the same rounds, unless it picked exactly what a forced run of --short
         # seconds or more did (--reuse-forced)
@@ -191,9 +193,9 @@ def main() -> None:
             seconds, run, _ = rounds[engine]
             times[engine] = seconds * len(bits) / len(parts[engine])
             values[engine] = np.array([r.amplitude for r in run.results])
-        if twin:
+        for twin in twins:
             times[twin] = times["single"]
-            row["same_contraction"] = f"{twin} not run: the same chunks and plans as single"
+            row["same_contraction"] = f"{'/'.join(twins)} not run: the same chunks and plans as single"
         if same:
             # auto picked exactly what a forced run did (same engine, same chunks, same stored plans):
             # that run's time stands for it, marked as such

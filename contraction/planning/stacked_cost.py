@@ -1,0 +1,123 @@
+"""What a batch costs through a single-amplitude tree with stacked intermediates.
+
+The executor (:mod:`contraction.execution.stacked`) stacks every intermediate over the distinct
+restrictions of the batch's bitstrings to the qubits whose output projectors it holds (sparse output
+state, Pan, Chen & Zhang, Phys. Rev. Lett. 129, 090502 (2022)). Here the same row counts are worked
+out on the tree alone, for the engine choice: the multiply-adds of a batch (each step's count times its
+rows) and its peak memory, either for actual bitstrings or as a bound that holds for any bitstrings
+(a node holding the projectors of p qubits has at most min(batch, 2^p) rows).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+
+def projected_qubits(structure) -> tuple[int, ...]:
+    """For each input tensor of ``structure``: the qubit whose output projector it is, or -1."""
+    return tuple(int(src[1]) if src[0] == "proj" else -1 for src in structure.sources)
+
+
+@dataclass(frozen=True)
+class StackedCost:
+    """One batch through a tree: complex multiply-adds of all slices, peak elements of one slice, and
+    the same multiply-adds for one bitstring (the tree's own)."""
+
+    madds: float
+    peak_elements: float
+    single_madds: float
+
+    @property
+    def ratio(self) -> float:
+        """Multiply-adds of the batch over one bitstring's."""
+        return self.madds / self.single_madds if self.single_madds else 1.0
+
+
+def _node_rows(tree, projected, table: np.ndarray | None, batch: int) -> dict:
+    """Rows of every node: from ``table`` (distinct restrictions), or the bound min(batch, 2^p)."""
+    rows, inv, held = {}, {}, {}
+    count = table.shape[0] if table is not None else batch
+    for i in range(tree.N):
+        node, q = tree.input_to_node(i), projected[i]
+        held[node] = 0 if q < 0 else 1
+        if table is None:
+            rows[node] = min(count, 2 ** held[node])
+        elif q < 0:
+            rows[node], inv[node] = 1, np.zeros(count, np.intp)
+        else:
+            values, inverse = np.unique(table[:, q], return_inverse=True)
+            rows[node], inv[node] = len(values), inverse.reshape(-1).astype(np.intp)
+    for p, l, r in tree.traverse():
+        held[p] = held[l] + held[r]
+        if table is None:
+            rows[p] = min(count, 2 ** min(held[p], 62))
+        else:
+            _, first, inverse = np.unique(inv[l] * rows[r] + inv[r], return_index=True, return_inverse=True)
+            rows[p], inv[p] = len(first), inverse.reshape(-1).astype(np.intp)
+    return rows
+
+
+def stacked_cost(tree, projected, table: np.ndarray | None = None, batch: int = 0) -> StackedCost:
+    """:class:`StackedCost` of the bitstrings in ``table`` (a bit table) through ``tree``, or with
+    ``table=None`` the bound for any ``batch`` bitstrings. The peak counts, as the executor runs a slice,
+    the inputs throughout, the live intermediates, and at each step its output plus two copies of each
+    operand (gathered to the output's rows, then rearranged)."""
+    rows = _node_rows(tree, projected, table, batch)
+    size = tree.get_size
+    if tree.N < 2:
+        return StackedCost(0.0, float(sum(size(tree.input_to_node(i)) for i in range(tree.N))), 0.0)
+    live = float(sum(size(tree.input_to_node(i)) * rows[tree.input_to_node(i)] for i in range(tree.N)))
+    peak, per_slice, single = live, 0.0, 0.0
+    for p, l, r in tree.traverse():
+        # the output, and each operand gathered to the output's rows and rearranged: two copies at most
+        # while the second operand is laid out (the first one's copy is alive by then)
+        so = float(size(p)) * rows[p]
+        sl, sr = 2.0 * float(size(l)) * rows[p], 2.0 * float(size(r)) * rows[p]
+        peak = max(peak, live + so + sl + sr)
+        live += so - (0 if tree.is_leaf(l) else float(size(l)) * rows[l]) \
+            - (0 if tree.is_leaf(r) else float(size(r)) * rows[r])
+        flops = float(tree.get_flops(p))
+        per_slice += flops * rows[p]
+        single += flops
+    return StackedCost(per_slice * tree.nslices, peak, single * tree.nslices)
+
+
+#: chunks of a stacked request whose multiply-adds are counted one by one; with more, an evenly spread
+#: sample of this many stands for the rest (counting costs a pass over the tree per chunk)
+STACKED_SAMPLE_CHUNKS = 16
+
+
+@dataclass(frozen=True)
+class StackedChunks:
+    """A request cut into chunks for the stacked engine: the chunk size, the peak of one slice of a chunk
+    (a bound for any bitstrings), the multiply-adds of the whole request, each counted chunk's
+    multiply-adds over one bitstring's, how many chunks each counted one stands for, and the bitstrings
+    of every chunk in order."""
+
+    size: int
+    peak_elements: float
+    madds: float
+    ratios: tuple[float, ...]
+    share: float
+    schedule: tuple[int, ...]
+
+
+def stacked_chunks(tree, projected, table: np.ndarray, fit_elements: float, top: int) -> StackedChunks | None:
+    """Chunks of the bitstrings in ``table`` of the largest size up to ``top`` (halving) whose bound
+    peak fits ``fit_elements``; None when not even two do."""
+    count = table.shape[0]
+    size = max(1, min(top, count))
+    while size >= 2 and stacked_cost(tree, projected, None, size).peak_elements > fit_elements:
+        size //= 2
+    if size < 2:
+        return None
+    peak = stacked_cost(tree, projected, None, size).peak_elements
+    starts = list(range(0, count, size))
+    picks = starts if len(starts) <= STACKED_SAMPLE_CHUNKS else \
+        [starts[int(k)] for k in np.linspace(0, len(starts) - 1, STACKED_SAMPLE_CHUNKS)]
+    counted = [stacked_cost(tree, projected, table[a:a + size]) for a in picks]
+    share = len(starts) / len(picks)
+    return StackedChunks(size, peak, sum(x.madds for x in counted) * share, tuple(x.ratio for x in counted), share,
+                         tuple(min(size, count - a) for a in starts))
