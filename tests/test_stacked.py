@@ -24,7 +24,7 @@ from contraction.execution.pairwise import program_for
 from contraction.execution.stacked import (batch_inputs, contract_stacked, row_maps, stacked_madds,
                                            stacked_program)
 from contraction.network.builder import build_structure
-from contraction.planning.engine_choice import STACKED_MIN_SAVING, choose
+from contraction.planning.engine_choice import choose
 from contraction.planning.search import PlannerOptions, find_plan
 from contraction.planning.stacked_cost import projected_qubits, stacked_cost
 from contraction.planning.store import MemoryPlanStore
@@ -112,27 +112,20 @@ def test_cost_model_counts_what_the_executor_runs(small, rng):
     assert same.madds == pytest.approx(single)                   # one bitstring repeated costs one
 
 
-def test_automatic_choice_takes_stacked_chunks_only_when_they_save_enough(rng):
-    # 36 qubits: no state vector under the cap, and a batch index would join every projector
+def test_automatic_choice_weighs_stacked_chunks_by_what_the_bitstrings_share(rng):
+    # 36 qubits: no state vector under the cap
     c = random_instance(grid_architecture(6, 6, 4), seed=3)
     store = MemoryPlanStore()
     opts = PlannerOptions(budget_seconds=1.0, max_repeats=16)
     base = random_bitstrings(rng, 36, 1)[0]
-    # 256 bitstrings agreeing on 28 qubits share most of their intermediates
-    near = [base[:28] + format(k, "08b") for k in range(256)]
+    near = [base[:28] + format(k, "08b") for k in range(256)]        # agreeing on 28 qubits
     far = random_bitstrings(rng, 36, 256)
-    cn = choose(c, 256, engine="auto", store=store, planner=opts, memory_bytes=2 ** 30, bitstrings=near)
-    options = {o.engine: o for o in cn.options}
-    saving = 1 - options["stacked"].madds / (options["single"].madds)
-    assert saving >= STACKED_MIN_SAVING and cn.engine in ("stacked", "batch")
-    # uncorrelated bitstrings: offered exactly when the counted saving reaches the threshold
-    cf = choose(c, 256, engine="auto", store=store, planner=opts, memory_bytes=2 ** 30, bitstrings=far)
-    s = build_structure(c)
-    tree = cf.planned[1].contraction.tree
-    far_saving = 1 - stacked_cost(tree, projected_qubits(s), bit_table(far)).ratio / 256
-    offered = any(o.engine == "stacked" for o in cf.options)
-    assert offered == (far_saving >= STACKED_MIN_SAVING)
-    assert offered or "stacked chunks would save" in cf.reason
+    for bits, most in ((near, 0.5), (far, 1.0)):
+        choice = choose(c, 256, engine="auto", store=store, planner=opts, memory_bytes=2 ** 30, bitstrings=bits)
+        options = {o.engine: o for o in choice.options}
+        # never more multiply-adds than one by one; bitstrings sharing 28 of 36 qubits share most of them
+        assert options["stacked"].madds <= most * options["single"].madds
+        assert choice.chosen is min(choice.options, key=lambda o: o.seconds)
     run = amplitudes(c, near[:64], engine="stacked", planner=opts, plan_store=store)
     assert run.engine == "stacked"
     # the same amplitudes one by one (a different code path: one contraction per bitstring)

@@ -223,10 +223,12 @@ def statevector_option(circuit: Circuit, count: int, dtype: str, rate: MachineRa
     return Option("statevector", seconds, statevector_peak_elements(n) * itemsize, madds=madds)
 
 
-def network_seconds(plan: Plan, structure: NetworkStructure, rate: MachineRate, dtype: str = "complex128") -> float:
-    """Predicted seconds of one contraction with ``plan`` (all slices)."""
+def network_seconds(plan: Plan, structure: NetworkStructure, rate: MachineRate, dtype: str = "complex128",
+                    scale: float = 1.0) -> float:
+    """Predicted seconds of one contraction with ``plan`` (all slices); ``scale``: its multiply-adds and
+    writes times this, its steps as they are (a stacked chunk runs each step once for all its rows)."""
     steps = max(0, structure.num_tensors - 1) * plan.nslices
-    per = rate.contraction_seconds(plan.madds, plan.writes, steps)
+    per = rate.contraction_seconds(plan.madds * scale, plan.writes * scale, steps)
     if structure.batch:
         per *= rate.batch_factor
     elif structure.open_qubits:
@@ -294,15 +296,8 @@ def scheduled(engine: str, count: int, parts: dict[int, Option], workers: int = 
 #: a stacked chunk's peak is kept below this many bytes (or twice the single amplitude's peak, if more)
 #: even when the cap allows more: memory a process touches for the first time cost 1.0-1.3 s per GiB on
 #: the 2-core test machine (measured, 2 GiB filled afresh against 0.13-0.20 s filled again), and
-#: uncorrelated bitstrings share little however large the chunk (see :data:`STACKED_MIN_SAVING`)
+#: uncorrelated bitstrings share little however large the chunk
 STACKED_WORKING_BYTES = 1 << 30
-
-#: the automatic choice considers the stacked engine only when it saves at least this share of the
-#: single amplitudes' multiply-adds: it then runs at their rate or better (measured, one thread,
-#: complex128, uncorrelated bitstrings: 40 qubits x 2,000 at 0.974 of their multiply-adds, 1.14x
-#: faster; 36 qubits x 64 at 0.987, 1.04x), but a chunk's first run pays for its fresh memory
-STACKED_MIN_SAVING = 0.1
-
 
 def stacked_option(single: Option, table: np.ndarray, rate: MachineRate, dtype: str, memory_bytes: float,
                    workers: int = 1) -> Option | None:
@@ -310,8 +305,8 @@ def stacked_option(single: Option, table: np.ndarray, rate: MachineRate, dtype: 
     contraction, in chunks whose peak for any bitstrings fits ``memory_bytes`` and
     :data:`STACKED_WORKING_BYTES` (:func:`stacked_chunks`), at most a worker's share of the bitstrings
     each when the plan has fewer slices than workers. Predicted as the single amplitude's contraction
-    (without slice reuse) times each chunk's multiply-adds over one bitstring's. None when not even two
-    bitstrings fit."""
+    (without slice reuse) with each chunk's multiply-adds and writes (its steps run once per slice for
+    all rows). None when not even two bitstrings fit."""
     c = single.contraction
     count = table.shape[0]
     itemsize = np.dtype(dtype).itemsize
@@ -320,8 +315,7 @@ def stacked_option(single: Option, table: np.ndarray, rate: MachineRate, dtype: 
     chunks = stacked_chunks(c.tree, projected_qubits(c.structure), table, fit, top)
     if chunks is None:
         return None
-    one = network_seconds(c.plan, c.structure, rate, dtype)
-    seconds = [one * r for r in chunks.ratios]
+    seconds = [network_seconds(c.plan, c.structure, rate, dtype, r) for r in chunks.ratios]
     longest = max(seconds) / tasks_per_chunk(c.plan.nslices, workers)
     wall = max(sum(seconds) * chunks.share / max(1, workers), longest)
     return Option("stacked", wall, chunks.peak_elements * itemsize, chunks.size, c, single.plan_cached,
@@ -409,7 +403,6 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
             return _statevector_choice(f"state vector predicted {sv.seconds:.3g} s, less than planning the network "
                                        f"engines would take (~{planning:.3g} s)", sv, rate, count)
     errors: list[str] = []
-    notes: list[str] = []
     planned: dict[int, Option] = {}
     sizes = ([1] if engine in ("auto", "single", "stacked") or count < 2 else []) + \
         (batch_candidates(count) if engine in ("auto", "batch") else [])
@@ -443,12 +436,8 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
         table = bit_table(bitstrings) if bitstrings is not None and len(bitstrings) == count else \
             np.random.default_rng(0).integers(0, 2, (count, n), dtype=np.uint8)
         stacked = stacked_option(planned[1], table, rate, dtype, per_worker, workers)
-        saving = 1.0 - stacked.madds / (planned[1].madds * count) if stacked is not None else 0.0
-        if stacked is not None and (engine == "stacked" or saving >= STACKED_MIN_SAVING):
+        if stacked is not None:
             options.append(stacked)
-        elif stacked is not None:
-            notes.append(f"stacked chunks would save {saving:.1%} of the multiply-adds (< {STACKED_MIN_SAVING:.0%})")
-            stacked = None
     if 1 in planned and not (engine == "stacked" and stacked is not None):
         options.append(scheduled("single", count, {1: planned[1]}, workers))
     if any(b > 1 for b in planned):
@@ -473,5 +462,4 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
             reason += f"; batches of {'/'.join(map(str, sorted(slower)))} predicted slower per bitstring"
         if not sv_fits:
             reason += f"; a state vector needs {sv.peak_bytes:.3g} bytes, over the cap"
-        reason += "".join("; " + x for x in notes)
     return Choice(best.engine, reason, best, options, planned, count=count)

@@ -92,7 +92,7 @@ STACKED_SAMPLE_CHUNKS = 16
 @dataclass(frozen=True)
 class StackedChunks:
     """A request cut into chunks for the stacked engine: the chunk size, the peak of one slice of a chunk
-    (a bound for any bitstrings), the multiply-adds of the whole request, each counted chunk's
+    (the largest of the chunks', or a bound for any bitstrings), the multiply-adds of the whole request, each counted chunk's
     multiply-adds over one bitstring's, how many chunks each counted one stands for, and the bitstrings
     of every chunk in order."""
 
@@ -105,19 +105,27 @@ class StackedChunks:
 
 
 def stacked_chunks(tree, projected, table: np.ndarray, fit_elements: float, top: int) -> StackedChunks | None:
-    """Chunks of the bitstrings in ``table`` of the largest size up to ``top`` (halving) whose bound
-    peak fits ``fit_elements``; None when not even two do."""
+    """Chunks of the bitstrings in ``table`` of the largest size up to ``top`` (halving) whose peak fits
+    ``fit_elements``: the actual peak of every chunk when there are at most
+    :data:`STACKED_SAMPLE_CHUNKS` of them (bitstrings sharing many qubits need far fewer rows than the
+    bound), else the bound for any bitstrings. None when not even two fit."""
     count = table.shape[0]
+
+    def peak(size: int) -> float:
+        starts = range(0, count, size)
+        if len(starts) <= STACKED_SAMPLE_CHUNKS:
+            return max(stacked_cost(tree, projected, table[a:a + size]).peak_elements for a in starts)
+        return stacked_cost(tree, projected, None, size).peak_elements
+
     size = max(1, min(top, count))
-    while size >= 2 and stacked_cost(tree, projected, None, size).peak_elements > fit_elements:
+    while size >= 2 and peak(size) > fit_elements:
         size //= 2
     if size < 2:
         return None
-    peak = stacked_cost(tree, projected, None, size).peak_elements
     starts = list(range(0, count, size))
     picks = starts if len(starts) <= STACKED_SAMPLE_CHUNKS else \
         [starts[int(k)] for k in np.linspace(0, len(starts) - 1, STACKED_SAMPLE_CHUNKS)]
     counted = [stacked_cost(tree, projected, table[a:a + size]) for a in picks]
     share = len(starts) / len(picks)
-    return StackedChunks(size, peak, sum(x.madds for x in counted) * share, tuple(x.ratio for x in counted), share,
-                         tuple(min(size, count - a) for a in starts))
+    return StackedChunks(size, peak(size), sum(x.madds for x in counted) * share, tuple(x.ratio for x in counted),
+                         share, tuple(min(size, count - a) for a in starts))
