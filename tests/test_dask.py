@@ -57,6 +57,17 @@ def test_sliced_and_batched_on_the_cluster_match_the_state_vector(runner, circui
         assert abs(r.amplitude - ref) <= 1e-10 * abs(ref)
 
 
+def test_stacked_chunks_on_the_cluster_match_the_state_vector(runner, circuit, rng):
+    psi = state_vector(circuit)
+    bits = random_bitstrings(rng, 16, 24)
+    run = amplitudes(circuit, bits, engine="stacked", runner=runner,
+                     planner=PlannerOptions(budget_seconds=0.3, max_repeats=4, max_elements=2 ** 6))
+    assert run.engine == "stacked" and run.batch > 1
+    for r in run.results:
+        ref = psi[int(r.bitstring, 2)]
+        assert abs(r.amplitude - ref) <= 1e-10 * abs(ref)
+
+
 def test_cancellation_stops_the_cluster_run(runner, circuit):
     calls = []
 
@@ -108,3 +119,19 @@ def test_service_jobs_run_on_the_cluster(cluster, tmp_path, circuit):
     for x in page:
         ref = psi[int(x["bitstring"], 2)]
         assert abs(complex(*x["amplitude"]) - ref) <= 1e-10 * abs(ref)
+
+
+def test_stacked_chunks_over_the_worker_memory_limit_are_refused(cluster, circuit, rng):
+    from contraction.planning.engine_choice import choose
+    from contraction.planning.store import MemoryPlanStore
+
+    bits = random_bitstrings(rng, 16, 64)
+    opts = PlannerOptions(budget_seconds=0.3, max_repeats=4)
+    store = MemoryPlanStore()
+    choice = choose(circuit, 64, engine="stacked", store=store, planner=opts, memory_bytes=2 ** 30, bitstrings=bits)
+    assert choice.engine == "stacked"
+    with distributed.Client(cluster.scheduler_address) as client:
+        runner = DaskRunner(client)
+        runner.memory_limit = 2 * choice.chosen.plan.peak_bytes("complex128")   # one bitstring fits, a chunk not
+        with pytest.raises(MemoryLimitError, match="Dask worker"):
+            amplitudes(circuit, bits, engine="stacked", runner=runner, planner=opts, plan_store=store, choice=choice)

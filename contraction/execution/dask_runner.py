@@ -19,6 +19,7 @@ from contraction.execution.executor import CancelCheck
 from contraction.execution.slices import SliceResults, Task, TaskDone, keep_freed_memory, run_task, wait_all
 from contraction.planning.engine_choice import Contraction
 from contraction.planning.slice_reuse import reuse_budget
+from contraction.planning.stacked_cost import stacked_cost
 
 
 def _task_on_worker(tree, arrays: list, slices: list[int], reuse_elements: float = 0.0,
@@ -56,6 +57,10 @@ class DaskRunner:
         if tasks and self.memory_limit is not None:
             itemsize = tasks[0].arrays[0].dtype.itemsize
             peak = plan.peak_elements * itemsize
+            # stacked chunks hold rows of every intermediate: their own peak, once per distinct chunk
+            tables = {id(t.stacked[1]): t.stacked for t in tasks if t.stacked is not None}
+            for projected, table in tables.values():
+                peak = max(peak, stacked_cost(contraction.tree, projected, table).peak_elements * itemsize)
             if peak > self.memory_limit:
                 raise MemoryLimitError(f"the plan needs {peak:.4g} bytes at its peak; the smallest Dask worker "
                                        f"allows {self.memory_limit:.4g} bytes")

@@ -224,10 +224,10 @@ def statevector_option(circuit: Circuit, count: int, dtype: str, rate: MachineRa
 
 
 def network_seconds(plan: Plan, structure: NetworkStructure, rate: MachineRate, dtype: str = "complex128",
-                    scale: float = 1.0) -> float:
+                    scale: float = 1.0, steps: float | None = None) -> float:
     """Predicted seconds of one contraction with ``plan`` (all slices); ``scale``: its multiply-adds and
-    writes times this, its steps as they are (a stacked chunk runs each step once for all its rows)."""
-    steps = max(0, structure.num_tensors - 1) * plan.nslices
+    writes times this, ``steps``: its matrix products when not one per step and slice (a stacked chunk)."""
+    steps = max(0, structure.num_tensors - 1) * plan.nslices if steps is None else steps
     per = rate.contraction_seconds(plan.madds * scale, plan.writes * scale, steps)
     if structure.batch:
         per *= rate.batch_factor
@@ -305,8 +305,8 @@ def stacked_option(single: Option, table: np.ndarray, rate: MachineRate, dtype: 
     contraction, in chunks whose peak for any bitstrings fits ``memory_bytes`` and
     :data:`STACKED_WORKING_BYTES` (:func:`stacked_chunks`), at most a worker's share of the bitstrings
     each when the plan has fewer slices than workers. Predicted as the single amplitude's contraction
-    (without slice reuse) with each chunk's multiply-adds and writes (its steps run once per slice for
-    all rows). None when not even two bitstrings fit."""
+    (without slice reuse) with each chunk's multiply-adds, writes and matrix products (a step runs once
+    for all rows unless a hyper-index makes it multiply row by row). None when not even two bitstrings fit."""
     c = single.contraction
     count = table.shape[0]
     itemsize = np.dtype(dtype).itemsize
@@ -315,7 +315,7 @@ def stacked_option(single: Option, table: np.ndarray, rate: MachineRate, dtype: 
     chunks = stacked_chunks(c.tree, projected_qubits(c.structure), table, fit, top)
     if chunks is None:
         return None
-    seconds = [network_seconds(c.plan, c.structure, rate, dtype, r) for r in chunks.ratios]
+    seconds = [network_seconds(c.plan, c.structure, rate, dtype, r, k) for r, k in zip(chunks.ratios, chunks.row_steps)]
     longest = max(seconds) / tasks_per_chunk(c.plan.nslices, workers)
     wall = max(sum(seconds) * chunks.share / max(1, workers), longest)
     return Option("stacked", wall, chunks.peak_elements * itemsize, chunks.size, c, single.plan_cached,

@@ -22,12 +22,17 @@ def projected_qubits(structure) -> tuple[int, ...]:
 
 @dataclass(frozen=True)
 class StackedCost:
-    """One batch through a tree: complex multiply-adds of all slices, peak elements of one slice, and
-    the same multiply-adds for one bitstring (the tree's own)."""
+    """One batch through a tree: complex multiply-adds of all slices, peak elements of one slice, the
+    same multiply-adds for one bitstring (the tree's own), and the matrix products the executor runs."""
 
     madds: float
     peak_elements: float
     single_madds: float
+    # matrix products of all slices: one per step whose one operand has a single row (the other's rows
+    # fold into one product), else one per row — both operands stacked, or sharing an index the result
+    # keeps (a hyper-index, as diagonal gates make): those steps cost per bitstring what single
+    # amplitudes' steps do
+    row_steps: float = 0.0
 
     @property
     def ratio(self) -> float:
@@ -67,10 +72,13 @@ def stacked_cost(tree, projected, table: np.ndarray | None = None, batch: int = 
     rows = _node_rows(tree, projected, table, batch)
     size = tree.get_size
     if tree.N < 2:
-        return StackedCost(0.0, float(sum(size(tree.input_to_node(i)) for i in range(tree.N))), 0.0)
+        return StackedCost(0.0, float(sum(size(tree.input_to_node(i)) for i in range(tree.N))), 0.0, 0.0)
     live = float(sum(size(tree.input_to_node(i)) * rows[tree.input_to_node(i)] for i in range(tree.N)))
-    peak, per_slice, single = live, 0.0, 0.0
+    peak, per_slice, single, row_steps = live, 0.0, 0.0, 0.0
     for p, l, r in tree.traverse():
+        legs_l, legs_r = set(tree.get_legs(l)), set(tree.get_legs(r))
+        hyper = bool(legs_l & legs_r & set(tree.get_legs(p)))
+        row_steps += rows[p] if hyper or (rows[l] > 1 and rows[r] > 1) else 1.0
         # the output, and each operand gathered to the output's rows and rearranged: two copies at most
         # while the second operand is laid out (the first one's copy is alive by then)
         so = float(size(p)) * rows[p]
@@ -81,7 +89,7 @@ def stacked_cost(tree, projected, table: np.ndarray | None = None, batch: int = 
         flops = float(tree.get_flops(p))
         per_slice += flops * rows[p]
         single += flops
-    return StackedCost(per_slice * tree.nslices, peak, single * tree.nslices)
+    return StackedCost(per_slice * tree.nslices, peak, single * tree.nslices, row_steps * tree.nslices)
 
 
 #: chunks of a stacked request whose multiply-adds are counted one by one; with more, an evenly spread
@@ -102,6 +110,7 @@ class StackedChunks:
     ratios: tuple[float, ...]
     share: float
     schedule: tuple[int, ...]
+    row_steps: tuple[float, ...] = ()        # each counted chunk's matrix products (see StackedCost)
 
 
 def stacked_chunks(tree, projected, table: np.ndarray, fit_elements: float, top: int) -> StackedChunks | None:
@@ -128,4 +137,4 @@ def stacked_chunks(tree, projected, table: np.ndarray, fit_elements: float, top:
     counted = [stacked_cost(tree, projected, table[a:a + size]) for a in picks]
     share = len(starts) / len(picks)
     return StackedChunks(size, peak(size), sum(x.madds for x in counted) * share, tuple(x.ratio for x in counted),
-                         share, tuple(min(size, count - a) for a in starts))
+                         share, tuple(min(size, count - a) for a in starts), tuple(x.row_steps for x in counted))
