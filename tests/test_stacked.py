@@ -24,7 +24,7 @@ from contraction.execution.pairwise import program_for
 from contraction.execution.stacked import (batch_inputs, contract_stacked, row_maps, stacked_madds,
                                            stacked_program)
 from contraction.network.builder import build_structure
-from contraction.planning.engine_choice import choose
+from contraction.planning.engine_choice import STACKED_MARGIN, choose
 from contraction.planning.search import PlannerOptions, find_plan
 from contraction.planning.stacked_cost import projected_qubits, stacked_cost
 from contraction.planning.store import MemoryPlanStore
@@ -120,12 +120,17 @@ def test_automatic_choice_weighs_stacked_chunks_by_what_the_bitstrings_share(rng
     base = random_bitstrings(rng, 36, 1)[0]
     near = [base[:28] + format(k, "08b") for k in range(256)]        # agreeing on 28 qubits
     far = random_bitstrings(rng, 36, 256)
+    single = choose(c, 256, engine="single", store=store, planner=opts, memory_bytes=2 ** 30).chosen
     for bits, most in ((near, 0.5), (far, 1.0)):
-        choice = choose(c, 256, engine="auto", store=store, planner=opts, memory_bytes=2 ** 30, bitstrings=bits)
-        options = {o.engine: o for o in choice.options}
+        stacked = choose(c, 256, engine="stacked", store=store, planner=opts, memory_bytes=2 ** 30,
+                         bitstrings=bits).chosen
         # never more multiply-adds than one by one; bitstrings sharing 28 of 36 qubits share most of them
-        assert options["stacked"].madds <= most * options["single"].madds
-        assert choice.chosen is min(choice.options, key=lambda o: o.seconds)
+        assert stacked.engine == "stacked" and stacked.madds <= most * single.madds
+        auto = choose(c, 256, engine="auto", store=store, planner=opts, memory_bytes=2 ** 30, bitstrings=bits)
+        assert auto.chosen is min(auto.options, key=lambda o: o.seconds)
+        offered = any(o.engine == "stacked" for o in auto.options)
+        assert offered == (stacked.seconds <= STACKED_MARGIN * single.seconds)
+        assert offered or "stacked chunks predicted" in auto.reason
     run = amplitudes(c, near[:64], engine="stacked", planner=opts, plan_store=store)
     assert run.engine == "stacked"
     # the same amplitudes one by one (a different code path: one contraction per bitstring)

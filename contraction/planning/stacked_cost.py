@@ -58,6 +58,8 @@ def _node_rows(tree, projected, table: np.ndarray | None, batch: int) -> dict:
         held[p] = held[l] + held[r]
         if table is None:
             rows[p] = min(count, 2 ** min(held[p], 62))
+        elif rows[l] == 1 or rows[r] == 1:               # the other child's rows, as they are
+            rows[p], inv[p] = (rows[r], inv[r]) if rows[l] == 1 else (rows[l], inv[l])
         else:
             _, first, inverse = np.unique(inv[l] * rows[r] + inv[r], return_index=True, return_inverse=True)
             rows[p], inv[p] = len(first), inverse.reshape(-1).astype(np.intp)
@@ -115,16 +117,17 @@ class StackedChunks:
 
 def stacked_chunks(tree, projected, table: np.ndarray, fit_elements: float, top: int) -> StackedChunks | None:
     """Chunks of the bitstrings in ``table`` of the largest size up to ``top`` (halving) whose peak fits
-    ``fit_elements``: the actual peak of every chunk when there are at most
-    :data:`STACKED_SAMPLE_CHUNKS` of them (bitstrings sharing many qubits need far fewer rows than the
-    bound), else the bound for any bitstrings. None when not even two fit."""
+    ``fit_elements``: the bound for any bitstrings, or where that is over, the actual peak of every chunk
+    when there are at most :data:`STACKED_SAMPLE_CHUNKS` of them (bitstrings sharing many qubits need
+    far fewer rows than the bound). None when not even two fit."""
     count = table.shape[0]
 
     def peak(size: int) -> float:
+        bound = stacked_cost(tree, projected, None, size).peak_elements
         starts = range(0, count, size)
-        if len(starts) <= STACKED_SAMPLE_CHUNKS:
-            return max(stacked_cost(tree, projected, table[a:a + size]).peak_elements for a in starts)
-        return stacked_cost(tree, projected, None, size).peak_elements
+        if bound <= fit_elements or len(starts) > STACKED_SAMPLE_CHUNKS:
+            return bound                     # the bound (one pass, no bitstrings) settles it
+        return max(stacked_cost(tree, projected, table[a:a + size]).peak_elements for a in starts)
 
     size = max(1, min(top, count))
     while size >= 2 and peak(size) > fit_elements:
