@@ -25,7 +25,6 @@ from typing import Sequence
 
 import numpy as np
 
-from contraction.circuits.bitstrings import bit_table  # noqa: F401  (re-exported for callers)
 from contraction.execution.arena import LEFT, OUT, RIGHT, Arena, plan_arena
 from contraction.execution.executor import COMPLEX64_PLAIN_FLOOR, contract_slice_scaled, sum_scaled
 from contraction.execution.pairwise import Program, blas_threads, copy_into, program_for
@@ -120,6 +119,7 @@ def stacked_program(program: Program, maps: RowMaps) -> Program:
 #: when its rows hold at least this many elements; smaller ones in one gathering copy (common practice:
 #: a Python loop over rows costs microseconds a row)
 ROW_COPY_ELEMENTS = 1 << 14
+
 
 def _multiply(x: np.ndarray, y: np.ndarray, out: np.ndarray) -> np.ndarray:
     """(rows|1, b, m, k) @ (rows|1, b, k, n) -> (rows, b, m, n) through :func:`product` (complex64 long

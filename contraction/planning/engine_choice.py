@@ -11,7 +11,8 @@ Four ways to get N amplitudes of an n-qubit circuit:
 * ``stacked``: the single amplitude's tree for a chunk of bitstrings at once, every intermediate
   stacked over the distinct restrictions of the chunk to the qubits whose projectors it holds
   (:mod:`contraction.planning.stacked_cost`): never more multiply-adds than the single amplitudes,
-  and no plan of its own; the chunk size is the largest whose peak fits the cap for any bitstrings.
+  and no plan of its own; chunks as large as the cap and a working-set limit allow
+  (:func:`stacked_option`), taken by ``auto`` only when clearly faster than single amplitudes.
 
 :func:`choose` predicts each feasible option with the machine's measured rates and picks the
 fastest; ``engine=`` forces one. The result says what was predicted for every option considered.

@@ -7,9 +7,11 @@ chose and ``auto / fastest`` (goal: at most 1.25 on every case). Runs shorter th
 seconds are repeated (``--repeats``), auto and the forced engines in alternating rounds, and their
 median reported. A forced engine predicted over ``--max-forced``
 seconds and over ``SKIP_FACTOR`` times the fastest prediction is not run (the row says so), except
-the one-contraction-per-bitstring engine, which then runs on a share of the bitstrings (a multiple of
-the workers) and has its time scaled to all of them (its time is linear in the count: one
-contraction per bitstring, in one pool); the row names the share. Before the first case a small
+the single and stacked engines: predicted over ``--max-forced`` seconds they run on a share of the
+bitstrings (a multiple of the workers, times the chunk size for stacked chunks) and have their time
+scaled to all of them (linear in the count: one contraction per bitstring or per chunk, in one pool);
+the row names the share. Such a share-timed run stands for auto when auto picked that engine with the
+same chunk size (``--reuse-forced``; the row says so). Before the first case a small
 request starts the worker processes' server, so the first engine timed does not pay it. A forced
 engine that would run the very same contractions as the single engine (same chunks and plans: the batch
 or stacked engine for one bitstring) is not run; it gets the single engine's time, and the row says so.
@@ -133,25 +135,29 @@ def main() -> None:
         opts = PlannerOptions(budget_seconds=args.budget)
         common = dict(planner=opts, plan_store=store, memory_bytes=cap, rate=rate, workers=args.workers)
         times, values, row = {}, {}, {"case": name, "qubits": circ.num_qubits, "bitstrings": len(bits)}
-        predicted = {}
+        predicted, chunk = {}, {}
         for engine in ("single", "batch", "stacked", "statevector"):    # plan every contraction size each engine uses
             try:
-                predicted[engine] = choose(circ, len(bits), engine=engine, dtype="complex128", rate=rate, store=store,
-                                           planner=opts, memory_bytes=cap, workers=args.workers).chosen.seconds
+                forced = choose(circ, len(bits), engine=engine, dtype="complex128", rate=rate, store=store,
+                                planner=opts, memory_bytes=cap, workers=args.workers)
+                predicted[engine], chunk[engine] = forced.chosen.seconds, forced.chosen.batch
             except MemoryLimitError as exc:
                 row[f"{engine}_refused"] = str(exc)[:120]
         print(json.dumps({"case": name, "bitstrings": len(bits), "predicted_s": predicted}), file=sys.stderr, flush=True)
         parts = {}
         for engine in predicted:
             part = bits
-            if predicted[engine] > args.max_forced and predicted[engine] > SKIP_FACTOR * min(predicted.values()):
-                if engine != "single" or len(bits) <= 2 * args.workers:
-                    row[f"{engine}_not_run"] = (f"predicted {predicted[engine]:.4g} s, over {args.max_forced:g} s "
-                                                f"and {SKIP_FACTOR}x the fastest prediction")
-                    continue
-                k = math.ceil(len(bits) * args.max_forced / predicted[engine] / args.workers) * args.workers
-                part = bits[:max(2 * args.workers, k)]
-                row["single_timed_on"] = len(part)
+            # one contraction per bitstring, or per chunk of a fixed size: time linear in the bitstrings
+            linear = engine in ("single", "stacked")
+            step = args.workers * (chunk[engine] if engine == "stacked" else 1)
+            if linear and predicted[engine] > args.max_forced and len(bits) > 2 * step:
+                k = math.ceil(len(bits) * args.max_forced / predicted[engine] / step) * step
+                part = bits[:max(2 * step, k)]
+                row[f"{engine}_timed_on"] = len(part)
+            elif predicted[engine] > args.max_forced and predicted[engine] > SKIP_FACTOR * min(predicted.values()):
+                row[f"{engine}_not_run"] = (f"predicted {predicted[engine]:.4g} s, over {args.max_forced:g} s "
+                                            f"and {SKIP_FACTOR}x the fastest prediction")
+                continue
             parts[engine] = part
         forced_schedule, work = {}, {}
         for engine in parts:
@@ -171,7 +177,7 @@ def main() -> None:
         # differs only by the machine's noise (22.8 s against 27.7 s for one 30-qubit amplitude in one
         # run) and doubled the long cases
         twins = [e for e in work if e != "single" and "single" in work and "single_timed_on" not in row
-                 and work[e] == work["single"]]
+                 and f"{e}_timed_on" not in row and work[e] == work["single"]]
         ran = [e for e in parts if e not in twins]
         # every engine once; those under --short seconds then run in rounds (that lone first run not
         # counted), auto in the same rounds, unless it picked exactly what a forced run of --short
@@ -183,9 +189,13 @@ def main() -> None:
         if args.reuse_forced:                      # what auto would pick, and whether a forced run did just that
             picked = choose(circ, len(bits), engine="auto", dtype="complex128", rate=rate, store=store,
                             planner=opts, memory_bytes=cap, workers=args.workers)
+            # a forced run on a share of the bitstrings stands for auto when auto picked that engine with the
+            # same chunk size (its time is linear in the bitstrings; the row says so)
             same = [e for e in ran if e == picked.engine and (e == "statevector" or
-                                                                   forced_schedule.get(e) == picked.chosen.schedule)
-                    and firsts[e][0] >= args.short and f"{e}_timed_on" not in row]   # short runs: auto is timed
+                                                                   forced_schedule.get(e) == picked.chosen.schedule
+                                                                   or (f"{e}_timed_on" in row
+                                                                       and picked.chosen.batch == chunk.get(e)))
+                    and firsts[e][0] >= args.short]   # short runs: auto is timed
         if not same:
             quick["auto"] = lambda: amplitudes(circ, bits, engine="auto", **common)
         rounds = {**firsts, **timed(quick, args.repeats, args.short)}
@@ -200,7 +210,8 @@ def main() -> None:
             # auto picked exactly what a forced run did (same engine, same chunks, same stored plans):
             # that run's time stands for it, marked as such
             auto_s, auto_engine, auto_batch, reason = times[same[0]], picked.engine, picked.chosen.batch, picked.reason
-            row["auto_time_from_forced_run"] = same[0]
+            row["auto_time_from_forced_run"] = same[0] + (f" (timed on {row[same[0] + '_timed_on']}, scaled)"
+                                                          if f"{same[0]}_timed_on" in row else "")
         else:
             auto_s, auto, _ = rounds["auto"]
             auto_engine, auto_batch, reason = auto.engine, auto.batch, auto.reason
