@@ -24,7 +24,7 @@ from contraction.execution.pairwise import program_for
 from contraction.execution.stacked import (batch_inputs, contract_stacked, row_maps, stacked_madds,
                                            stacked_program)
 from contraction.network.builder import build_structure
-from contraction.planning.engine_choice import STACKED_MARGIN, choose
+from contraction.planning.engine_choice import STACKED_MARGIN, STACKED_MIN_SECONDS, choose
 from contraction.planning.search import PlannerOptions, find_plan
 from contraction.planning.stacked_cost import projected_qubits, stacked_cost
 from contraction.planning.store import MemoryPlanStore
@@ -129,8 +129,8 @@ def test_automatic_choice_weighs_stacked_chunks_by_what_the_bitstrings_share(rng
         auto = choose(c, 256, engine="auto", store=store, planner=opts, memory_bytes=2 ** 30, bitstrings=bits)
         assert auto.chosen is min(auto.options, key=lambda o: o.seconds)
         offered = any(o.engine == "stacked" for o in auto.options)
-        assert offered == (stacked.seconds <= STACKED_MARGIN * single.seconds)
-        assert offered or "stacked chunks predicted" in auto.reason
+        assert offered == (single.seconds >= STACKED_MIN_SECONDS and stacked.seconds <= STACKED_MARGIN * single.seconds)
+        assert offered or "stacked chunks" in auto.reason
     run = amplitudes(c, near[:64], engine="stacked", planner=opts, plan_store=store)
     assert run.engine == "stacked"
     # the same amplitudes one by one (a different code path: one contraction per bitstring)

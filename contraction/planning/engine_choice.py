@@ -306,6 +306,11 @@ STACKED_WORKING_BYTES = 1 << 30
 #: 0.65-2.33x with a median of 1.26 (measured; the state vector's margin above works the same way)
 STACKED_MARGIN = 0.8
 
+#: ... and only when single amplitudes are predicted to take at least this long for the whole request: on
+#: shorter requests its prediction was furthest off (2.9-4.5x its time, a 24-qubit QFT x16 and 20-qubit
+#: chunks of 125; measured) and there is little to win
+STACKED_MIN_SECONDS = 1.0
+
 
 def stacked_option(single: Option, table: np.ndarray, rate: MachineRate, dtype: str, memory_bytes: float,
                    workers: int = 1) -> Option | None:
@@ -448,11 +453,14 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
         # compared as the choice below compares them, with the request's fixed cost added to both
         single_s = scheduled("single", count, {1: planned[1]}, workers).seconds + rate.request_overhead_seconds
         stacked_s = stacked.seconds + rate.request_overhead_seconds if stacked is not None else math.inf
-        if stacked is not None and (engine == "stacked" or stacked_s <= STACKED_MARGIN * single_s):
+        if stacked is not None and (engine == "stacked" or STACKED_MIN_SECONDS <= single_s
+                                    and stacked_s <= STACKED_MARGIN * single_s):
             options.append(stacked)
         elif stacked is not None:
             notes.append(f"stacked chunks predicted {stacked_s:.3g} s, not under {STACKED_MARGIN:g}x single "
-                          f"amplitudes' {single_s:.3g} s")
+                         f"amplitudes' {single_s:.3g} s" if single_s >= STACKED_MIN_SECONDS else
+                         f"stacked chunks not considered: single amplitudes predicted {single_s:.3g} s, "
+                         f"under {STACKED_MIN_SECONDS:g} s")
             stacked = None
     if 1 in planned and not (engine == "stacked" and stacked is not None):
         options.append(scheduled("single", count, {1: planned[1]}, workers))
