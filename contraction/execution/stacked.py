@@ -29,7 +29,8 @@ from contraction.execution.arena import LEFT, OUT, RIGHT, Arena, plan_arena
 from contraction.execution.executor import COMPLEX64_PLAIN_FLOOR, contract_slice_scaled, sum_scaled
 from contraction.execution.pairwise import Program, blas_threads, copy_into, program_for
 from contraction.execution.products import WIDE_SUM_TERMS, product
-from contraction.planning.stacked_cost import projected_qubits
+from contraction.network.builder import tensor_arrays
+from contraction.planning.stacked_cost import joined_rows, leaf_rows, projected_qubits
 
 
 def stacked_inputs(arrays: Sequence[np.ndarray], projectors: dict[int, np.ndarray], projected: Sequence[int],
@@ -58,36 +59,29 @@ class RowMaps:
     inputs: tuple[np.ndarray, ...]
     final: np.ndarray
 
-    def input_rows(self, k: int) -> int:
-        """Rows of input ``k``."""
-        return int(self.inputs[k].max()) + 1 if len(self.inputs[k]) else 1
-
 
 def row_maps(program: Program, projected: Sequence[int], table: np.ndarray) -> RowMaps:
     """The :class:`RowMaps` of the bitstrings in ``table`` through ``program`` (inputs' rows as
     :func:`stacked_inputs` lays them out)."""
-    count = table.shape[0]
     inv: dict[int, np.ndarray] = {}
     rows: dict[int, int] = {}
     inputs = []
     for k in range(program.num_inputs):
-        q = projected[k]
-        if q < 0:
-            inv[k], rows[k] = np.zeros(count, np.intp), 1
-        else:
-            values, inverse = np.unique(table[:, q], return_inverse=True)
-            inv[k], rows[k] = inverse.astype(np.intp), len(values)
+        rows[k], inv[k] = leaf_rows(table, projected[k])
         inputs.append(inv[k])
     steps = []
     for st in program.steps:
         a, b = inv.pop(st.left), inv.pop(st.right)
         ra, rb = rows.pop(st.left), rows.pop(st.right)
-        _, first, inverse = np.unique(a * rb + b, return_index=True, return_inverse=True)
-        r = len(first)
-        ia, ib = a[first], b[first]
-        steps.append((None if ra == 1 or (ra == r and np.array_equal(ia, np.arange(r))) else ia,
-                      None if rb == 1 or (rb == r and np.array_equal(ib, np.arange(r))) else ib, r, ra, rb))
-        inv[st.out], rows[st.out] = inverse.astype(np.intp).reshape(-1), r
+        r, inv[st.out], first = joined_rows(a, ra, b, rb)
+        if first is None:                        # one operand has one row, the other the result's rows
+            ia = ib = None
+        else:
+            ia, ib = a[first], b[first]
+            ia = None if ra == r and np.array_equal(ia, np.arange(r)) else ia
+            ib = None if rb == r and np.array_equal(ib, np.arange(r)) else ib
+        steps.append((ia, ib, r, ra, rb))
+        rows[st.out] = r
     final = inv[program.final_slot] if program.steps else inputs[0]
     return RowMaps(tuple(steps), tuple(inputs), final)
 
@@ -231,8 +225,6 @@ def batch_inputs(structure, circuit, table: np.ndarray, dtype, reuse: list[np.nd
     """The stacked inputs (:func:`stacked_inputs`) of the bitstrings in ``table`` for ``structure`` (a
     single-amplitude network of ``circuit``). ``reuse``: one bitstring's unstacked inputs of the same
     structure, circuit and dtype, whose gate tensors are shared."""
-    from contraction.network.builder import tensor_arrays
-
     n = structure.num_qubits
     zeros = tensor_arrays(structure, circuit, "0" * n, dtype, reuse=reuse)
     ones = tensor_arrays(structure, circuit, "1" * n, dtype, reuse=zeros)

@@ -36,6 +36,7 @@ from functools import cached_property
 
 import numpy as np
 
+from contraction.circuits.bitstrings import bit_table
 from contraction.circuits.model import Circuit, Gate
 from contraction.errors import VerampError
 
@@ -256,7 +257,7 @@ def tensor_arrays(structure: NetworkStructure, circuit: Circuit, bits,
     if structure.batch:
         if isinstance(bits, str) or len(bits) != structure.batch:
             raise ValueError(f"a batch structure needs a list of {structure.batch} bitstrings")
-        table = np.array([[c == "1" for c in b] for b in bits], dtype=np.intp)  # (B, n)
+        table = bit_table(bits).astype(np.intp)  # (B, n)
     if reuse is not None and len(reuse) != len(structure.sources):
         raise ValueError("reuse must come from the same structure")
     arrays: list[np.ndarray] = []

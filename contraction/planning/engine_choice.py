@@ -446,12 +446,13 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
         _share_batch_orders(circuit, batch_sizes, planned, store, planner, per_worker, dtype, rate, open_qubits,
                             max(0.0, deadline - time.perf_counter()))
     stacked = None
-    if 1 in planned and count >= 2 and not open_qubits and engine in ("auto", "stacked"):
+    single = scheduled("single", count, {1: planned[1]}, workers) if 1 in planned else None
+    if single is not None and count >= 2 and not open_qubits and engine in ("auto", "stacked"):
         table = bit_table(bitstrings) if bitstrings is not None and len(bitstrings) == count else \
             np.random.default_rng(0).integers(0, 2, (count, n), dtype=np.uint8)
         stacked = stacked_option(planned[1], table, rate, dtype, per_worker, workers)
         # compared as the choice below compares them, with the request's fixed cost added to both
-        single_s = scheduled("single", count, {1: planned[1]}, workers).seconds + rate.request_overhead_seconds
+        single_s = single.seconds + rate.request_overhead_seconds
         stacked_s = stacked.seconds + rate.request_overhead_seconds if stacked is not None else math.inf
         if stacked is not None and (engine == "stacked" or STACKED_MIN_SECONDS <= single_s
                                     and stacked_s <= STACKED_MARGIN * single_s):
@@ -462,8 +463,8 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
                          f"stacked chunks not considered: single amplitudes predicted {single_s:.3g} s, "
                          f"under {STACKED_MIN_SECONDS:g} s")
             stacked = None
-    if 1 in planned and not (engine == "stacked" and stacked is not None):
-        options.append(scheduled("single", count, {1: planned[1]}, workers))
+    if single is not None and not (engine == "stacked" and stacked is not None):
+        options.append(single)
     if any(b > 1 for b in planned):
         batched = scheduled("batch", count, planned, workers)
         if batched.batch > 1 or 1 not in planned:         # all chunks of one: that is the single engine

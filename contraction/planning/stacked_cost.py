@@ -40,6 +40,25 @@ class StackedCost:
         return self.madds / self.single_madds if self.single_madds else 1.0
 
 
+def leaf_rows(table: np.ndarray, q: int) -> tuple[int, np.ndarray]:
+    """Rows of the projector of qubit ``q`` (its distinct bits in ``table``, ascending) and each
+    bitstring's row; one row for ``q`` < 0 (no projector)."""
+    if q < 0:
+        return 1, np.zeros(table.shape[0], np.intp)
+    values, inverse = np.unique(table[:, q], return_inverse=True)
+    return len(values), inverse.reshape(-1).astype(np.intp)
+
+
+def joined_rows(a: np.ndarray, ra: int, b: np.ndarray, rb: int) -> tuple[int, np.ndarray, np.ndarray | None]:
+    """Rows of a node from its children's (each bitstring's row, row count): the node's row count, each
+    bitstring's row, and the first bitstring of each row — None when a child has one row, the node's
+    rows then being the other child's as they are."""
+    if ra == 1 or rb == 1:
+        return (rb, b, None) if ra == 1 else (ra, a, None)
+    _, first, inverse = np.unique(a * rb + b, return_index=True, return_inverse=True)
+    return len(first), inverse.reshape(-1).astype(np.intp), first
+
+
 def _node_rows(tree, projected, table: np.ndarray | None, batch: int) -> dict:
     """Rows of every node: from ``table`` (distinct restrictions), or the bound min(batch, 2^p)."""
     rows, inv, held = {}, {}, {}
@@ -49,20 +68,14 @@ def _node_rows(tree, projected, table: np.ndarray | None, batch: int) -> dict:
         held[node] = 0 if q < 0 else 1
         if table is None:
             rows[node] = min(count, 2 ** held[node])
-        elif q < 0:
-            rows[node], inv[node] = 1, np.zeros(count, np.intp)
         else:
-            values, inverse = np.unique(table[:, q], return_inverse=True)
-            rows[node], inv[node] = len(values), inverse.reshape(-1).astype(np.intp)
+            rows[node], inv[node] = leaf_rows(table, q)
     for p, l, r in tree.traverse():
         held[p] = held[l] + held[r]
         if table is None:
             rows[p] = min(count, 2 ** min(held[p], 62))
-        elif rows[l] == 1 or rows[r] == 1:               # the other child's rows, as they are
-            rows[p], inv[p] = (rows[r], inv[r]) if rows[l] == 1 else (rows[l], inv[l])
         else:
-            _, first, inverse = np.unique(inv[l] * rows[r] + inv[r], return_index=True, return_inverse=True)
-            rows[p], inv[p] = len(first), inverse.reshape(-1).astype(np.intp)
+            rows[p], inv[p], _ = joined_rows(inv[l], rows[l], inv[r], rows[r])
     return rows
 
 
@@ -130,7 +143,7 @@ def stacked_chunks(tree, projected, table: np.ndarray, fit_elements: float, top:
         return max(stacked_cost(tree, projected, table[a:a + size]).peak_elements for a in starts)
 
     size = max(1, min(top, count))
-    while size >= 2 and peak(size) > fit_elements:
+    while size >= 2 and (held := peak(size)) > fit_elements:
         size //= 2
     if size < 2:
         return None
@@ -139,5 +152,5 @@ def stacked_chunks(tree, projected, table: np.ndarray, fit_elements: float, top:
         [starts[int(k)] for k in np.linspace(0, len(starts) - 1, STACKED_SAMPLE_CHUNKS)]
     counted = [stacked_cost(tree, projected, table[a:a + size]) for a in picks]
     share = len(starts) / len(picks)
-    return StackedChunks(size, peak(size), sum(x.madds for x in counted) * share, tuple(x.ratio for x in counted),
+    return StackedChunks(size, held, sum(x.madds for x in counted) * share, tuple(x.ratio for x in counted),
                          share, tuple(min(size, count - a) for a in starts), tuple(x.row_steps for x in counted))

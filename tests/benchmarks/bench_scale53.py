@@ -164,35 +164,30 @@ def part_amplitude(cycles: int, plan, cap_log2: int, workers: int = 1) -> dict:
     return out
 
 
-def _projected(structure) -> list[frozenset]:
-    """The projected qubit each tensor of ``structure`` holds (empty for every other tensor)."""
-    return [frozenset([src[1]]) if src[0] == "proj" else frozenset() for src in structure.sources]
-
-
-def _bit_rows(bits: list[str]) -> np.ndarray:
-    return np.array([[int(c) for c in b] for b in bits])
-
-
 def sparse_state_ratio(tree, structure, bits: list[str]) -> float:
     """Modelled multiply-adds of a batch through ``tree`` (a single-amplitude tree) when every
     intermediate is stacked over the distinct restrictions of the bitstrings to the qubits whose
     projectors it holds (the sparse-output-state idea of Pan, Chen & Zhang, Phys. Rev. Lett. 129,
-    090502 (2022)), over the single amplitude's."""
-    per_slice = sum(float(tree.get_flops(p)) for p, _, _ in tree.traverse())   # as the stacked cost counts
-    return StackedCost(_projected(structure), _bit_rows(bits)).cost(tree) / per_slice
+    090502 (2022)), over the single amplitude's: the stacked engine's own cost model."""
+    from contraction.circuits.bitstrings import bit_table
+    from contraction.planning.stacked_cost import projected_qubits, stacked_cost
+
+    return stacked_cost(tree, projected_qubits(structure), bit_table(bits)).ratio
 
 
 def _stacked_counts(structure, bits: list[str]):
     """(reduced network, the projected qubits each of its tensors holds, bit rows) for the search below."""
+    from contraction.circuits.bitstrings import bit_table
     from contraction.network.simplify import simplify_structure
+    from contraction.planning.stacked_cost import projected_qubits
 
     red = simplify_structure(structure)
-    held = dict(enumerate(_projected(structure)))
+    held = {i: frozenset([q]) if q >= 0 else frozenset() for i, q in enumerate(projected_qubits(structure))}
     nid = len(structure.inputs)
     for a, b in red.pre_path:
         held[nid] = held[a] | held[b]
         nid += 1
-    return red, [held[i] for i in red.ssa_ids], _bit_rows(bits)
+    return red, [held[i] for i in red.ssa_ids], bit_table(bits)
 
 
 class StackedCost:
