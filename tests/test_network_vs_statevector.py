@@ -139,3 +139,59 @@ def test_diagonal_gates_are_part_of_the_structure(rng, fast_planner):
         assert np.max(np.abs(np.array([r.amplitude for r in run.results])
                              - np.array([reference[int(b, 2)] for b in bits]))) < 1e-12
         assert np.max(np.abs(state_vector(c) - reference)) < 1e-12
+
+
+def test_diagonal_gates_on_wires_still_in_zero(rng, fast_planner):
+    """A diagonal gate meeting wires no gate has touched yet acts on its other wires only (its diagonal
+    with those qubits at 0) or, on |0> wires alone, is a phase: checked against the einsum reference
+    for every engine, including a ZZ rotation on |00> (phase exp(-i theta/2), not 1) and
+    three-qubit diagonals with one, two or three wires in |0>."""
+    from contraction.circuits import gates as G
+    from contraction.circuits.model import Circuit, Gate
+    from contraction.circuits.textbook import qft
+    from contraction.execution.blocks import block_amplitudes, marginal_probabilities
+
+    r = np.random.default_rng(5)
+
+    def diag(k):
+        return np.diag(np.exp(1j * r.uniform(0, 2 * np.pi, 2 ** k)))
+
+    def zz(theta):                                   # exp(-i theta/2 Z x Z)
+        return np.diag(np.exp(-0.5j * theta * np.array([1, -1, -1, 1])))
+
+    c = Circuit(7, [Gate((0, 1), zz(0.7)), Gate((2, 3, 4), diag(3)), Gate((1,), G.H), Gate((1, 2), diag(2)),
+                    Gate((2, 5, 6), diag(3)), Gate((5,), G.rx(0.3)), Gate((0, 5, 6), diag(3)),
+                    Gate((3, 4), G.CX), Gate((0, 3, 4), diag(3)), Gate((4, 6), diag(2)), Gate((0, 1), zz(0.2)), Gate((6,), G.rx(1.1)),
+                    Gate((1, 3, 5), diag(3)), Gate((2, 3), haar_like(r))])
+    s = build_structure(c)
+    # three gates met |0> wires only (phases), four became one-qubit gates waiting on a wire, one a
+    # diagonal on two of its three wires, one stayed whole
+    assert sum(len(src[2]) for src in s.sources if src[0] == "init") == 3
+    assert sum(1 for src in s.sources if src[0] == "diag") == 2
+    reference = einsum_state(c)
+    assert abs(abs(reference[0]) - 1) > 1e-3        # a circuit that does something
+    bits = [format(i, "07b") for i in range(128)]
+    for engine in ("single", "batch", "stacked", "statevector"):
+        for dtype, tol in (("complex128", 1e-12), ("complex64", 1e-6)):
+            run = amplitudes(c, bits, engine=engine, dtype=dtype, planner=fast_planner)
+            assert np.max(np.abs(np.array([x.amplitude for x in run.results]) - reference)) < tol, (engine, dtype)
+    block = block_amplitudes(c, (1, 4, 6), "0" * 7, engine="single", planner=fast_planner)
+    want = [reference[int(b, 2)] for b in ("0" + f"{i >> 2 & 1}" + "00" + f"{i >> 1 & 1}" + "0" + f"{i & 1}"
+                                          for i in range(8))]
+    assert np.max(np.abs(block.values - want)) < 1e-12
+    marginal = marginal_probabilities(c, (0, 2, 5), engine="single", planner=fast_planner)
+    p = (np.abs(reference.reshape((2,) * 7)) ** 2).sum(axis=(1, 3, 4, 6)).ravel()
+    assert np.max(np.abs(marginal.values - p)) < 1e-12
+    # the QFT of |0...0> is the uniform superposition (Nielsen & Chuang §5.1): its controlled phases all
+    # have their control still in |0> when they act, so 40 qubits cost a product of Hadamards
+    s40 = build_structure(qft(40))
+    assert not any(src[0] == "diag" for src in s40.sources)
+    run = amplitudes(qft(40), random_bitstrings(rng, 40, 4), engine="single", planner=fast_planner)
+    assert run.plan.madds < 1e4
+    assert all(abs(x.amplitude - 2.0 ** -20) < 1e-12 * 2.0 ** -20 for x in run.results)
+
+
+def haar_like(r):
+    """A random two-qubit unitary (QR of a complex Gaussian matrix; not used as a Haar sample here)."""
+    q, _ = np.linalg.qr(r.normal(size=(4, 4)) + 1j * r.normal(size=(4, 4)))
+    return q

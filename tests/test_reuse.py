@@ -72,7 +72,9 @@ def test_batch_and_open_outputs_with_reuse(rng):
 
 def test_any_split_of_the_slice_range_covers_every_slice_once():
     # tasks get contiguous runs of slice numbers; each run keeps its own intermediates
-    c = qft(12)
+    # the QFT after a Hadamard layer: its controlled phases then act on superpositions (on |0...0> alone
+    # they cost nothing), so the network needs slicing at 2^6
+    c = qft(12, hadamards_first=True)
     s = build_structure(c)
     tree = _sliced(s, 2 ** 6)
     arrays = tensor_arrays(s, c, "101100111000")

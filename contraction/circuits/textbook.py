@@ -37,17 +37,19 @@ def quantum_volume(num_qubits: int, depth: int, seed: int = 0) -> Circuit:
     return Circuit(num_qubits, out, name=f"qv{num_qubits}x{depth}-s{seed}")
 
 
-def qft(num_qubits: int) -> Circuit:
+def qft(num_qubits: int, hadamards_first: bool = False) -> Circuit:
     """The quantum Fourier transform on ``num_qubits`` qubits: Hadamards and controlled phases 2π/2^k, then the swaps
-    that reverse the qubit order (Nielsen & Chuang §5.1)."""
-    out = []
+    that reverse the qubit order (Nielsen & Chuang §5.1). On |0...0> its controlled phases act while their
+    controls are still in |0> and the network builder drops them; ``hadamards_first`` puts a Hadamard on
+    every qubit before it (the transform of the uniform superposition), where every phase counts."""
+    out = [Gate((j,), G.H, "h") for j in range(num_qubits)] if hadamards_first else []
     for j in range(num_qubits):
         out.append(Gate((j,), G.H, "h"))
         for k, c in enumerate(range(j + 1, num_qubits), start=2):
             out.append(Gate((c, j), G.controlled(G.phase_gate(2 * math.pi / 2 ** k)), "cp"))
     for j in range(num_qubits // 2):
         out.append(Gate((j, num_qubits - 1 - j), G.SWAP, "swap"))
-    return Circuit(num_qubits, out, name=f"qft{num_qubits}")
+    return Circuit(num_qubits, out, name=f"qft{num_qubits}" + ("h" if hadamards_first else ""))
 
 
 def ripple_carry_adder(bits: int) -> Circuit:

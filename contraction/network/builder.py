@@ -24,7 +24,11 @@ the network key): a multi-qubit gate whose matrix is exactly diagonal (CZ, contr
 rotations) becomes a tensor of its k wire indices, which pass through it unchanged (hyper-indices),
 instead of a tensor of 2k indices; the single-qubit gates waiting on its wires are not fused into it
 but kept as their own small tensors. A plan made for such a network serves every circuit with the
-same layout and the same diagonal gates.
+same layout and the same diagonal gates. A diagonal gate meeting wires still in |0> (no gate on them
+yet) acts on its other wires only, as its diagonal with those qubits at 0, and leaves them in |0>; the
+first diagonal entry of one on |0> wires alone is a phase carried by a |0> vector. That is structure
+too (which wires a gate meets before anything else touches them), and it makes controlled phases whose
+control is still in |0> (the quantum Fourier transform of |0...0>) cost nothing.
 """
 
 from __future__ import annotations
@@ -51,11 +55,13 @@ def _symbol(i: int) -> str:
 class NetworkStructure:
     """The layout of a network: index labels per tensor, the output and the index sizes.
 
-    ``sources[t]`` says where tensor t's values come from: ``("init", q)``;
-    ``("gate", qubits, steps)`` with steps applied in order, each ``("pre", qubits, q, ids)``
+    ``sources[t]`` says where tensor t's values come from: ``("init", q, phases)`` (|0> times the
+    first diagonal entry of each diagonal gate in ``phases``, gates met while all their wires were in
+    |0>); ``("gate", qubits, steps)`` with steps applied in order, each ``("pre", qubits, q, ids)``
     (single-qubit gates ``ids`` on wire q) or ``("gate", g)`` (circuit gate g); ``("diag", qubits, g)``
-    (the diagonal of circuit gate g, on the wires' current indices); or ``("proj", q, post)`` with the
-    single-qubit gates after the last multi-qubit gate on q.
+    (the diagonal of circuit gate g on ``qubits``, the wires' current indices, its other qubits at 0);
+    or ``("proj", q, post)`` with the single-qubit gates after the last multi-qubit gate on q. A
+    single-qubit gate id may also be ``("zero", g, q)``: diagonal gate g on wire q, its other qubits at 0.
     """
 
     num_qubits: int
@@ -147,7 +153,7 @@ def build_structure(circuit: Circuit, batch: int = 0, open_qubits: tuple[int, ..
         wire.append(_symbol(counter))
         counter += 1
         inputs.append((wire[q],))
-        sources.append(("init", q))
+        sources.append(("init", q, []))
     pending: list[list[int]] = [[] for _ in range(n)]
     tensor_qubits: dict[int, tuple[int, ...]] = {}
     for gi, gate in enumerate(circuit.gates):
@@ -156,6 +162,17 @@ def build_structure(circuit: Circuit, batch: int = 0, open_qubits: tuple[int, ..
             pending[qs[0]].append(gi)
             continue
         if gi in diagonal:
+            # wires still in |0> (no tensor and no single-qubit gate on them yet) hold the value 0: the
+            # gate acts on the others as its restriction to 0 there, and they stay in |0>
+            zero = [q for q in qs if last[q] == -1 and not pending[q]]
+            if zero:
+                qs = tuple(q for q in qs if q not in zero)
+                if not qs:                   # all in |0>: a phase, kept by the first wire's |0> vector
+                    sources[zero[0]][2].append(gi)
+                    continue
+                if len(qs) == 1:             # a one-qubit diagonal: it waits on its wire like any other
+                    pending[qs[0]].append(("zero", gi, qs[0]))
+                    continue
             for q in qs:
                 if pending[q]:               # the waiting single-qubit gates: a tensor of their own
                     o = _symbol(counter)
@@ -166,7 +183,7 @@ def build_structure(circuit: Circuit, batch: int = 0, open_qubits: tuple[int, ..
             for q in qs:
                 last[q] = len(inputs)          # nothing merges into (or across) a diagonal tensor
             inputs.append(tuple(wire[q] for q in qs))
-            sources.append(("diag", qs, gi))
+            sources.append(("diag", qs, gi))     # qs: the gate's qubits not in |0>, in its order
             continue
         steps = [("pre", qs, q, tuple(pending[q])) for q in qs if pending[q]]
         for q in qs:
@@ -206,18 +223,39 @@ def build_structure(circuit: Circuit, batch: int = 0, open_qubits: tuple[int, ..
         inputs.append((wire[q], blabel) if batch else (wire[q],))
         sources.append(("proj", q, tuple(pending[q])))
     output.extend(wire[q] for q in open_qubits)
-    frozen = tuple((s[0], s[1], tuple(s[2])) if s[0] == "gate" else s for s in sources)
+    frozen = tuple((s[0], s[1], tuple(s[2])) if s[0] in ("gate", "init") else s for s in sources)
     return NetworkStructure(n, tuple(inputs), tuple(output), frozen, batch, blabel, open_qubits)
 
 
 _ZERO = np.array([1.0, 0.0])
 
 
+def _restricted_diagonal(circuit: Circuit, gate_id: int, qubits: tuple[int, ...]) -> np.ndarray:
+    """The diagonal of diagonal gate ``gate_id`` as a tensor over ``qubits`` (some of its qubits, in
+    its order), its other qubits at 0."""
+    gate = circuit.gates[gate_id]
+    d = np.diagonal(gate.matrix).reshape((2,) * len(gate.qubits))
+    return d[tuple(slice(None) if q in qubits else 0 for q in gate.qubits)]
+
+
+def _matrix(circuit: Circuit, entry) -> np.ndarray:
+    """A waiting single-qubit gate: circuit gate ``entry``, or ``("zero", g, q)``, diagonal gate g on
+    wire q with its other qubits at 0."""
+    if isinstance(entry, tuple):
+        return np.diag(_restricted_diagonal(circuit, entry[1], (entry[2],)))
+    return circuit.gates[entry].matrix
+
+
 def _product(circuit: Circuit, gate_ids) -> np.ndarray:
-    m = circuit.gates[gate_ids[0]].matrix
+    m = _matrix(circuit, gate_ids[0])
     for g in gate_ids[1:]:
-        m = circuit.gates[g].matrix @ m
+        m = _matrix(circuit, g) @ m
     return m
+
+
+def _phase(circuit: Circuit, gate_ids) -> complex:
+    """The product of the first diagonal entries of diagonal gates ``gate_ids`` (each on wires in |0>)."""
+    return complex(np.prod([circuit.gates[g].matrix[0, 0] for g in gate_ids])) if gate_ids else 1.0
 
 
 def _embed(matrix: np.ndarray, acts_on: tuple[int, ...], order: tuple[int, ...]) -> np.ndarray:
@@ -266,13 +304,12 @@ def tensor_arrays(structure: NetworkStructure, circuit: Circuit, bits,
         if kind in ("gate", "init", "diag") and reuse is not None:
             arrays.append(reuse[k])
         elif kind == "diag":
-            d = np.diagonal(circuit.gates[src[2]].matrix)
-            arrays.append(np.asarray(d, dtype=dtype).reshape((2,) * len(src[1])))
+            arrays.append(np.asarray(_restricted_diagonal(circuit, src[2], src[1]), dtype=dtype))
         elif kind == "gate":
             m = _gate_tensor(circuit, src[1], src[2])
             arrays.append(np.asarray(m, dtype=dtype).reshape((2,) * (2 * len(src[1]))))
         elif kind == "init":
-            arrays.append(_ZERO.astype(dtype))
+            arrays.append((_ZERO * _phase(circuit, src[2])).astype(dtype))
         else:
             q, post = src[1], src[2]
             if structure.batch:
@@ -300,7 +337,9 @@ def fused_gates(circuit: Circuit) -> list:
         if src[0] == "gate":
             out.append(Gate(src[1], _gate_tensor(circuit, src[1], src[2])))
         elif src[0] == "diag":
-            out.append(circuit.gates[src[2]])
+            out.append(Gate(src[1], np.diag(_restricted_diagonal(circuit, src[2], src[1]).ravel())))
+        elif src[0] == "init" and src[2]:
+            out.append(Gate((src[1],), _phase(circuit, src[2]) * np.eye(2)))
         elif src[0] == "proj" and src[2]:
             out.append(Gate((src[1],), _product(circuit, src[2])))
     return out

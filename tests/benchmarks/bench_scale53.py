@@ -347,6 +347,7 @@ def part_estimate(budget: float) -> dict:
     rate = measure()
     rows = []
     for name, circ in [("quantum_volume_32x32", quantum_volume(32, 32, seed=1)), ("qft_63", qft(63)),
+                       ("qft_63_after_hadamards", qft(63, hadamards_first=True)),
                        ("ripple_carry_adder_45", ripple_carry_adder(22))]:
         t = time.perf_counter()
         try:
