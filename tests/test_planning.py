@@ -80,6 +80,29 @@ def test_cancellation_stops_the_contraction(circuit):
         contract_scalar(plan.tree(s), tensor_arrays(s, circuit, "0" * 16), cancelled=cancelled)
 
 
+def test_cancelling_a_pool_run_stops_the_tasks_its_workers_hold(circuit):
+    """A cancelled run on local worker processes does not leave them contracting the tasks they
+    hold (two tasks of 200,000 slices each, tens of seconds): within seconds of the cancel no worker
+    process of the run is alive."""
+    import multiprocessing as mp
+    import time
+
+    from contraction.execution.slices import ProcessRunner, Task
+
+    s = build_structure(circuit)
+    contraction = network_plan(s, None, PlannerOptions(budget_seconds=0.2, max_repeats=2))
+    arrays = tensor_arrays(s, circuit, "0" * 16)
+    tasks = [Task(arrays, [0] * 200_000) for _ in range(2)]
+    before = set(mp.active_children())
+    t0 = time.perf_counter()
+    with pytest.raises(Cancelled):
+        ProcessRunner(2).run(contraction, tasks, lambda k, r: None, cancelled=lambda: time.perf_counter() - t0 > 1.0)
+    deadline = time.perf_counter() + 5.0
+    while set(mp.active_children()) - before and time.perf_counter() < deadline:
+        time.sleep(0.1)
+    assert not set(mp.active_children()) - before
+
+
 def test_memory_cap_is_never_exceeded(circuit):
     s = build_structure(circuit)
     with pytest.raises(MemoryLimitError):

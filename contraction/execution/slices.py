@@ -164,8 +164,21 @@ class ProcessRunner:
         try:
             wait_all(lambda t: pool.submit(_run_in_worker, t), tasks, done, cancelled,
                      lambda futures: [f.cancel() for f in futures])
+        except BaseException:
+            # cancelled or failed: the tasks the workers hold would run to their end (minutes on big
+            # contractions) beside whatever runs next; nothing of theirs is wanted any more
+            _stop_workers(pool)
+            raise
         finally:
             pool.shutdown(wait=False, cancel_futures=True)
+
+
+def _stop_workers(pool: cf.ProcessPoolExecutor) -> None:
+    """Terminate the pool's worker processes (the pool is not used again). The executor has no public
+    way to do this before Python 3.14; its process table has kept this name since 3.2."""
+    for proc in list((getattr(pool, "_processes", None) or {}).values()):
+        if proc.is_alive():
+            proc.terminate()
 
 
 def wait_all(submit, tasks: Sequence[Task], done: TaskDone, cancelled: CancelCheck | None, cancel_all,

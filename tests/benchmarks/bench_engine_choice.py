@@ -10,8 +10,10 @@ seconds and over ``SKIP_FACTOR`` times the fastest prediction is not run (the ro
 the single and stacked engines: predicted over ``--max-forced`` seconds they run on a share of the
 bitstrings (a multiple of the workers, times the chunk size for stacked chunks) and have their time
 scaled to all of them (linear in the count: one contraction per bitstring or per chunk, in one pool);
-the row names the share. Such a share-timed run stands for auto when auto picked that engine with the
-same chunk size (``--reuse-forced``; the row says so). Before the first case a small
+the row names the share. Any other network engine predicted over ``--max-forced`` seconds (the batch
+engine, or one bitstring) runs until a share of its tasks (runs of slices) has finished and is then
+cancelled, its time scaled to all tasks (``<engine>_timed_on_tasks``). Such a share-timed run stands
+for auto when auto picked that engine with the same chunks (``--reuse-forced``; the row says so). Before the first case a small
 request starts the worker processes' server, so the first engine timed does not pay it. A forced
 engine that would run the very same contractions as the single engine (same chunks and plans: the batch
 or stacked engine for one bitstring) is not run; it gets the single engine's time, and the row says so.
@@ -36,7 +38,7 @@ from contraction.circuits import gates as G
 from contraction.circuits.model import Circuit, Gate
 from contraction.circuits.random_instances import grid_architecture, random_instance
 from contraction.circuits.textbook import qft, quantum_volume
-from contraction.errors import MemoryLimitError
+from contraction.errors import Cancelled, MemoryLimitError
 from contraction.execution.amplitudes import amplitudes
 from contraction.execution.calibration import load_or_measure
 from contraction.execution.slices import ProcessRunner
@@ -105,6 +107,32 @@ def timed(runs: dict, repeats: int, short_s: float) -> dict:
     return {name: (float(np.median(times[name])), out[name], times[name]) for name in runs}
 
 
+def task_share_seconds(circ, bits, engine: str, fraction: float, workers: int, common: dict):
+    """(seconds scaled to every task, None, [seconds], tasks timed, tasks) of ``engine`` on all of ``bits``,
+    timed until a multiple of ``workers`` tasks covering about ``fraction`` of them has finished, then
+    cancelled: the tasks of a request (runs of slices of its chunks) do equal work, so its time is
+    linear in them. The workers finish the tasks they hold after the cancel; the next run waits for
+    them (one task's time)."""
+    state = {"t": None, "k": None, "total": None}
+    t0 = time.perf_counter()
+
+    def progress(p):
+        if state["k"] is None:
+            state["total"] = p.total
+            state["k"] = min(p.total, max(workers, math.ceil(p.total * fraction / workers) * workers))
+        if p.done >= state["k"] and state["t"] is None:
+            state["t"] = time.perf_counter() - t0
+
+    try:
+        amplitudes(circ, bits, engine=engine, progress=progress, cancelled=lambda: state["t"] is not None, **common)
+    except Cancelled:
+        pass
+    t, k, total = state["t"] or time.perf_counter() - t0, state["k"] or 1, state["total"] or 1
+    time.sleep(t / max(1, k // workers) + 1.0)       # the tasks still running after the cancel
+    seconds = t * total / k
+    return seconds, None, [seconds], k, total
+
+
 def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--budget", type=float, default=5.0)
@@ -144,7 +172,7 @@ def main() -> None:
             except MemoryLimitError as exc:
                 row[f"{engine}_refused"] = str(exc)[:120]
         print(json.dumps({"case": name, "bitstrings": len(bits), "predicted_s": predicted}), file=sys.stderr, flush=True)
-        parts = {}
+        parts, share = {}, {}
         for engine in predicted:
             part = bits
             # one contraction per bitstring, or per chunk of a fixed size: time linear in the bitstrings
@@ -158,6 +186,8 @@ def main() -> None:
                 row[f"{engine}_not_run"] = (f"predicted {predicted[engine]:.4g} s, over {args.max_forced:g} s "
                                             f"and {SKIP_FACTOR}x the fastest prediction")
                 continue
+            elif predicted[engine] > args.max_forced and engine != "statevector":
+                share[engine] = args.max_forced / predicted[engine]      # timed on a share of its tasks
             parts[engine] = part
         forced_schedule, work = {}, {}
         for engine in parts:
@@ -182,7 +212,11 @@ def main() -> None:
         # every engine once; those under --short seconds then run in rounds (that lone first run not
         # counted), auto in the same rounds, unless it picked exactly what a forced run of --short
         # seconds or more did (--reuse-forced)
-        firsts = timed({e: (lambda e=e: amplitudes(circ, parts[e], engine=e, **common)) for e in ran}, 1, 0.0)
+        firsts = timed({e: (lambda e=e: amplitudes(circ, parts[e], engine=e, **common)) for e in ran
+                        if e not in share}, 1, 0.0)
+        for e in share:
+            firsts[e] = task_share_seconds(circ, bits, e, share[e], args.workers, common)
+            row[f"{e}_timed_on_tasks"] = "%d of %d" % firsts[e][3:5]
         quick = {e: (lambda e=e: amplitudes(circ, parts[e], engine=e, **common)) for e in ran
                  if firsts[e][0] < args.short}
         same = []
@@ -196,13 +230,19 @@ def main() -> None:
                                                                    or (f"{e}_timed_on" in row
                                                                        and picked.chosen.batch == chunk.get(e)))
                     and firsts[e][0] >= args.short]   # short runs: auto is timed
+            if picked.engine in share and picked.engine not in same:
+                # auto picked an engine timed on a share of its tasks, with other chunks or plans: auto runs
+                # in full (not bounded by --max-forced)
+                print(json.dumps({"case": name, "note": f"auto picked {picked.engine} with chunks "
+                                  f"{picked.chosen.schedule[:4]}..., run in full"}), file=sys.stderr, flush=True)
         if not same:
             quick["auto"] = lambda: amplitudes(circ, bits, engine="auto", **common)
         rounds = {**firsts, **timed(quick, args.repeats, args.short)}
         for engine in ran:
-            seconds, run, _ = rounds[engine]
+            seconds, run = rounds[engine][:2]
             times[engine] = seconds * len(bits) / len(parts[engine])
-            values[engine] = np.array([r.amplitude for r in run.results])
+            if run is not None:                       # not a share of the tasks
+                values[engine] = np.array([r.amplitude for r in run.results])
         for twin in twins:
             times[twin] = times["single"]
             row["same_contraction"] = f"{'/'.join(twins)} not run: the same chunks and plans as single"
@@ -210,8 +250,8 @@ def main() -> None:
             # auto picked exactly what a forced run did (same engine, same chunks, same stored plans):
             # that run's time stands for it, marked as such
             auto_s, auto_engine, auto_batch, reason = times[same[0]], picked.engine, picked.chosen.batch, picked.reason
-            row["auto_time_from_forced_run"] = same[0] + (f" (timed on {row[same[0] + '_timed_on']}, scaled)"
-                                                          if f"{same[0]}_timed_on" in row else "")
+            on = row.get(f"{same[0]}_timed_on", row.get(f"{same[0]}_timed_on_tasks"))
+            row["auto_time_from_forced_run"] = same[0] + (f" (timed on {on}, scaled)" if on else "")
         else:
             auto_s, auto, _ = rounds["auto"]
             auto_engine, auto_batch, reason = auto.engine, auto.batch, auto.reason
