@@ -111,8 +111,8 @@ def task_share_seconds(circ, bits, engine: str, fraction: float, workers: int, c
     """(seconds scaled to every task, None, [seconds], tasks timed, tasks) of ``engine`` on all of ``bits``,
     timed until a multiple of ``workers`` tasks covering about ``fraction`` of them has finished, then
     cancelled: the tasks of a request (runs of slices of its chunks) do equal work, so its time is
-    linear in them. The workers finish the tasks they hold after the cancel; the next run waits for
-    them (one task's time)."""
+    linear in them. The cancel terminates the workers (``ProcessRunner``); the next run starts a second
+    later."""
     state = {"t": None, "k": None, "total": None}
     t0 = time.perf_counter()
 
@@ -128,7 +128,7 @@ def task_share_seconds(circ, bits, engine: str, fraction: float, workers: int, c
     except Cancelled:
         pass
     t, k, total = state["t"] or time.perf_counter() - t0, state["k"] or 1, state["total"] or 1
-    time.sleep(t / max(1, k // workers) + 1.0)       # the tasks still running after the cancel
+    time.sleep(1.0)
     seconds = t * total / k
     return seconds, None, [seconds], k, total
 
