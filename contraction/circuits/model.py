@@ -116,6 +116,14 @@ class Circuit:
             h.update((np.ascontiguousarray(g.matrix, dtype=np.complex128) + 0.0).tobytes())
         return h.hexdigest()
 
+    @cached_property
+    def diagonal_gates(self) -> frozenset[int]:
+        """Indices of the multi-qubit gates whose matrices are exactly diagonal (off-diagonal entries all
+        zero, as in CZ, controlled phases and ZZ rotations). Kept with the circuit: every network built
+        from it asks (five networks for one engine choice)."""
+        return frozenset(i for i, g in enumerate(self.gates)
+                         if len(g.qubits) > 1 and np.count_nonzero(g.matrix) == np.count_nonzero(np.diagonal(g.matrix)))
+
     def with_gates(self, gates: Sequence[Gate], **kw) -> "Circuit":
         """A circuit on the same qubits with other gates (``global_phase``, ``name``, ``validate`` may be given)."""
         return Circuit(self.num_qubits, gates, kw.get("global_phase", self.global_phase),

@@ -122,13 +122,7 @@ class NetworkStructure:
 def diagonal_gates(circuit: Circuit) -> frozenset[int]:
     """Indices of the multi-qubit gates whose matrices are exactly diagonal (off-diagonal entries all
     zero, as in CZ, controlled phases and ZZ rotations)."""
-    out = []
-    for i, g in enumerate(circuit.gates):
-        if len(g.qubits) > 1:
-            m = g.matrix
-            if not np.any(m - np.diag(np.diagonal(m))):
-                out.append(i)
-    return frozenset(out)
+    return circuit.diagonal_gates
 
 
 def build_structure(circuit: Circuit, batch: int = 0, open_qubits: tuple[int, ...] = (),

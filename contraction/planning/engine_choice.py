@@ -306,9 +306,10 @@ STACKED_WORKING_BYTES = 1 << 30
 #: 0.65-2.33x with a median of 1.26 (measured; the state vector's margin above works the same way)
 STACKED_MARGIN = 0.8
 
-#: ... and only when single amplitudes are predicted to take at least this long for the whole request: on
-#: shorter requests its prediction was furthest off (2.9-4.5x its time, a 24-qubit QFT x16 and 20-qubit
-#: chunks of 125; measured) and there is little to win
+#: ... and only when single amplitudes and batches are predicted to take at least this long for the whole
+#: request: on shorter requests its prediction was furthest off (2.9-4.5x its time, a 24-qubit QFT x16 and
+#: 20-qubit chunks of 125; measured), there is little to win, and counting its rows costs a share of the
+#: request
 STACKED_MIN_SECONDS = 1.0
 
 
@@ -447,28 +448,33 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
                             max(0.0, deadline - time.perf_counter()))
     stacked = None
     single = scheduled("single", count, {1: planned[1]}, workers) if 1 in planned else None
+    batched = scheduled("batch", count, planned, workers) if any(b > 1 for b in planned) else None
+    if batched is not None and batched.batch == 1 and 1 in planned:
+        batched = None                                     # all chunks of one: that is the single engine
     if single is not None and count >= 2 and not open_qubits and engine in ("auto", "stacked"):
-        table = bit_table(bitstrings) if bitstrings is not None and len(bitstrings) == count else \
-            np.random.default_rng(0).integers(0, 2, (count, n), dtype=np.uint8)
-        stacked = stacked_option(planned[1], table, rate, dtype, per_worker, workers)
         # compared as the choice below compares them, with the request's fixed cost added to both
         single_s = single.seconds + rate.request_overhead_seconds
+        # the fastest other network engine: a request it answers in under STACKED_MIN_SECONDS is not worth
+        # the row counting (30 ms of a 0.3 s batch request of 1,000 bitstrings, measured)
+        others_s = min(single_s, batched.seconds + rate.request_overhead_seconds if batched else math.inf)
+        if engine == "stacked" or others_s >= STACKED_MIN_SECONDS:
+            table = bit_table(bitstrings) if bitstrings is not None and len(bitstrings) == count else \
+                np.random.default_rng(0).integers(0, 2, (count, n), dtype=np.uint8)
+            stacked = stacked_option(planned[1], table, rate, dtype, per_worker, workers)
         stacked_s = stacked.seconds + rate.request_overhead_seconds if stacked is not None else math.inf
-        if stacked is not None and (engine == "stacked" or STACKED_MIN_SECONDS <= single_s
-                                    and stacked_s <= STACKED_MARGIN * single_s):
+        if stacked is not None and (engine == "stacked" or stacked_s <= STACKED_MARGIN * single_s):
             options.append(stacked)
         elif stacked is not None:
             notes.append(f"stacked chunks predicted {stacked_s:.3g} s, not under {STACKED_MARGIN:g}x single "
-                         f"amplitudes' {single_s:.3g} s" if single_s >= STACKED_MIN_SECONDS else
-                         f"stacked chunks not considered: single amplitudes predicted {single_s:.3g} s, "
-                         f"under {STACKED_MIN_SECONDS:g} s")
+                         f"amplitudes' {single_s:.3g} s")
             stacked = None
+        else:
+            notes.append(f"stacked chunks not considered: the other network engines predicted {others_s:.3g} s, "
+                         f"under {STACKED_MIN_SECONDS:g} s")
     if single is not None and not (engine == "stacked" and stacked is not None):
         options.append(single)
-    if any(b > 1 for b in planned):
-        batched = scheduled("batch", count, planned, workers)
-        if batched.batch > 1 or 1 not in planned:         # all chunks of one: that is the single engine
-            options.append(batched)
+    if batched is not None:
+        options.append(batched)
     if not options and not search:
         return None
     if not options:
