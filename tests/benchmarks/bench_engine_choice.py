@@ -61,6 +61,10 @@ def swap_test(n_half: int = 12) -> Circuit:
 SKIP_FACTOR = 4
 
 
+#: runs shorter than --short repeat until they add up to this many seconds (see :func:`timed`)
+SHORT_TOTAL_S = 4.0
+
+
 def cases(which: str):
     grid = lambda r, c, m, s=1: random_instance(grid_architecture(r, c, m), seed=s)  # noqa: E731
     out = [("grid20x10", grid(4, 5, 10), 1), ("grid20x10", grid(4, 5, 10), 1000),
@@ -84,9 +88,10 @@ def cases(which: str):
 
 def timed(runs: dict, repeats: int, short_s: float) -> dict:
     """name -> (median seconds, last result, every run's seconds) of each ``runs[name]()``: each runs once;
-    those whose first run took under ``short_s`` then run again, ``repeats`` times in all, and
-    millisecond runs until they add up to a second (at most 200; medians of five 2 ms runs differed by
-    1.6x). Repeats go in rounds, one run of each in turn, so the machine's slower and faster spells fall
+    those whose first run took under ``short_s`` then run again, ``repeats`` times in all, and short
+    runs until they add up to ``SHORT_TOTAL_S`` seconds (at most 200; medians of five 2 ms runs differed
+    by 1.6x, and a 0.3 s request on a fresh pool of two took 0.27-0.28 s in most runs and 0.5-0.8 s in
+    one run of three or four, whichever engine or order). Repeats go in rounds, one run of each in turn, so the machine's slower and faster spells fall
     on all of them alike (run one after the other, two engines doing the very same 0.3 s contraction
     differed by 1.8x)."""
     out, times = {}, {}
@@ -96,7 +101,7 @@ def timed(runs: dict, repeats: int, short_s: float) -> dict:
         times[name] = [time.perf_counter() - t]
 
     def more(ts):
-        return ts[0] < short_s and (len(ts) < repeats or (sum(ts) < 1.0 and len(ts) < 200))
+        return ts[0] < short_s and (len(ts) < repeats or (sum(ts) < SHORT_TOTAL_S and len(ts) < 200))
 
     while any(more(times[name]) for name in runs):
         for name, run in runs.items():
