@@ -253,7 +253,9 @@ class JobManager:
         threading.Thread(target=sweep, name="veramp-job-sweeper", daemon=True).start()
 
     def cancel(self, job_id: str) -> None:
-        """Mark the job for cancellation; a queued job never starts, a running one stops at its next task."""
+        """Mark the job for cancellation; a queued job never starts, a running one stops at its next
+        check (its worker processes are terminated; a job contracting in its own process stops at its
+        next task)."""
         with self.sessions() as s:
             s.execute(update(JobRow).where(JobRow.id == job_id).values(cancel_requested=1))
             s.commit()
