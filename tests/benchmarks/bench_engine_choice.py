@@ -261,7 +261,8 @@ def main() -> None:
             auto_s, auto, _ = rounds["auto"]
             auto_engine, auto_batch, reason = auto.engine, auto.batch, auto.reason
         fastest = min(times, key=times.get)
-        ref = max(values.values(), key=len)          # every bitstring's amplitude (a share-timed run has a prefix)
+        # every bitstring's amplitude (a share-timed run has a prefix; a run on a share of its tasks has none)
+        ref = max(values.values(), key=len) if values else np.zeros(0)
 
         def agrees(v):
             head = ref[:len(v)]
@@ -269,7 +270,7 @@ def main() -> None:
         row.update({f"{e}_s": float(f"{s:.4g}") for e, s in times.items()})
         row.update(auto_engine=auto_engine, auto_batch=auto_batch, auto_s=float(f"{auto_s:.4g}"), fastest=fastest,
                    ratio_auto_over_fastest=round(auto_s / times[fastest], 3), reason=reason,
-                   engines_agree=bool(all(agrees(v) for v in values.values())))
+                   engines_agree=bool(all(agrees(v) for v in values.values())) if len(values) > 1 else None)
         rows.append(row)
         print(json.dumps(row), flush=True)
     ratios = [r["ratio_auto_over_fastest"] for r in rows]
