@@ -13,8 +13,8 @@ scaled to all of them (linear in the count: one contraction per bitstring or per
 the row names the share. Any other network engine predicted over ``--max-forced`` seconds (the batch
 engine, or one bitstring) runs until a share of its tasks (runs of slices) has finished and is then
 cancelled, its time scaled to all tasks (``<engine>_timed_on_tasks``). Such a share-timed run stands
-for auto when auto picked that engine with the same chunks (``--reuse-forced``; the row says so). Before the first case a small
-request starts the worker processes' server, so the first engine timed does not pay it. A forced
+for auto when auto picked that engine with the same chunks (``--reuse-forced``; the row says so).
+Before the first case a small request starts the worker processes' server, so the first engine timed does not pay it. A forced
 engine that would run the very same contractions as the single engine (same chunks and plans: the batch
 or stacked engine for one bitstring) is not run; it gets the single engine's time, and the row says so.
 
@@ -91,8 +91,8 @@ def timed(runs: dict, repeats: int, short_s: float) -> dict:
     those whose first run took under ``short_s`` then run again, ``repeats`` times in all, and short
     runs until they add up to ``SHORT_TOTAL_S`` seconds (at most 200; medians of five 2 ms runs differed
     by 1.6x, and a 0.3 s request on a fresh pool of two took 0.27-0.28 s in most runs and 0.5-0.8 s in
-    one run of three or four, whichever engine or order). Repeats go in rounds, one run of each in turn, so the machine's slower and faster spells fall
-    on all of them alike (run one after the other, two engines doing the very same 0.3 s contraction
+    one run of three or four, whichever engine or order). Repeats go in rounds, one run of each in turn,
+    so the machine's slower and faster spells fall on all of them alike (run one after the other, two engines doing the very same 0.3 s contraction
     differed by 1.8x)."""
     out, times = {}, {}
     for name, run in runs.items():
@@ -219,7 +219,7 @@ def main() -> None:
         # seconds or more did (--reuse-forced)
         firsts = timed({e: (lambda e=e: amplitudes(circ, parts[e], engine=e, **common)) for e in ran
                         if e not in share}, 1, 0.0)
-        for e in share:
+        for e in [e for e in share if e in ran]:
             firsts[e] = task_share_seconds(circ, bits, e, share[e], args.workers, common)
             row[f"{e}_timed_on_tasks"] = "%d of %d" % firsts[e][3:5]
         quick = {e: (lambda e=e: amplitudes(circ, parts[e], engine=e, **common)) for e in ran
