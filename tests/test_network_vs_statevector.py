@@ -161,7 +161,8 @@ def test_diagonal_gates_on_wires_still_in_zero(rng, fast_planner):
 
     c = Circuit(7, [Gate((0, 1), zz(0.7)), Gate((2, 3, 4), diag(3)), Gate((1,), G.H), Gate((1, 2), diag(2)),
                     Gate((2, 5, 6), diag(3)), Gate((5,), G.rx(0.3)), Gate((0, 5, 6), diag(3)),
-                    Gate((3, 4), G.CX), Gate((0, 3, 4), diag(3)), Gate((4, 6), diag(2)), Gate((0, 1), zz(0.2)), Gate((6,), G.rx(1.1)),
+                    Gate((3, 4), G.CX), Gate((0, 3, 4), diag(3)), Gate((4, 6), diag(2)), Gate((0, 1), zz(0.2)),
+                    Gate((6,), G.rx(1.1)),
                     Gate((1, 3, 5), diag(3)), Gate((2, 3), haar_like(r))])
     s = build_structure(c)
     # three gates met |0> wires only (phases), four became one-qubit gates waiting on a wire, one a
