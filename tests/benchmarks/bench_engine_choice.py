@@ -93,8 +93,7 @@ def timed(runs: dict, repeats: int, short_s: float) -> dict:
     by 1.6x, and a 0.3 s request on a fresh pool of two took 0.27-0.28 s in most runs and 0.5-0.8 s in
     one run of three or four, whichever engine or order). Repeats go in rounds, one run of each in turn,
     so the machine's slower and faster spells fall on all of them alike (run one after the other, two
-    engines doing the very same 0.3 s contraction
-    differed by 1.8x)."""
+    engines doing the very same 0.3 s contraction differed by 1.8x)."""
     out, times = {}, {}
     for name, run in runs.items():
         t = time.perf_counter()
