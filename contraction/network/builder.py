@@ -248,8 +248,8 @@ def _product(circuit: Circuit, gate_ids) -> np.ndarray:
 
 
 def _phase(circuit: Circuit, gate_ids) -> complex:
-    """The product of the first diagonal entries of diagonal gates ``gate_ids`` (each on wires in |0>)."""
-    return complex(np.prod([circuit.gates[g].matrix[0, 0] for g in gate_ids])) if gate_ids else 1.0
+    """The product of diagonal gates ``gate_ids`` restricted to all their wires at 0 (each met wires in |0> only)."""
+    return complex(np.prod([_restricted_diagonal(circuit, g, ()) for g in gate_ids])) if gate_ids else 1.0
 
 
 def _embed(matrix: np.ndarray, acts_on: tuple[int, ...], order: tuple[int, ...]) -> np.ndarray:

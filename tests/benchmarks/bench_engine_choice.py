@@ -223,7 +223,7 @@ def main() -> None:
             firsts[e] = task_share_seconds(circ, bits, e, share[e], args.workers, common)
             row[f"{e}_timed_on_tasks"] = "%d of %d" % firsts[e][3:5]
         quick = {e: (lambda e=e: amplitudes(circ, parts[e], engine=e, **common)) for e in ran
-                 if firsts[e][0] < args.short}
+                 if firsts[e][0] < args.short and e not in share}      # a share of the tasks is timed once
         same = []
         if args.reuse_forced:                      # what auto would pick, and whether a forced run did just that
             picked = choose(circ, len(bits), engine="auto", dtype="complex128", rate=rate, store=store,
