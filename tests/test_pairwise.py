@@ -79,7 +79,8 @@ def test_a_copy_split_over_threads_equals_numpys(threads):
 @pytest.mark.parametrize("threads", [1, 2])
 def test_a_copy_from_far_apart_source_elements_goes_by_tiles_and_equals_numpys(threads, monkeypatch):
     # reference: numpy's own copy of the same transposed view; the destination's consecutive elements
-    # lie at least a page apart in the source, so the copy goes tile by tile (spied on)
+    # come from runs shorter than a cache line lying at least a page apart in the source, so the copy
+    # goes tile by tile (spied on)
     import contraction.execution.pairwise as pairwise
 
     tiled = []
@@ -87,18 +88,29 @@ def test_a_copy_from_far_apart_source_elements_goes_by_tiles_and_equals_numpys(t
     monkeypatch.setattr(pairwise, "_tiled_copy", lambda d, s, t: (tiled.append(d.shape), real(d, s, t)))
     monkeypatch.setattr(pairwise, "TILE_ELEMENTS", 64)
     rng = np.random.default_rng(7 + threads)
-    cases = [((2,) * 16, None), ((3, 5, 600, 7), (3, 1, 2, 0)), ((4, 300, 9), (1, 2, 0)), ((1, 513, 1, 16), (3, 2, 1, 0))]
+    cases = [((2,) * 16, None), ((3, 5, 600, 7), (3, 1, 2, 0)), ((4, 300, 9), (1, 2, 0)),
+             ((1, 513, 1, 300), (3, 2, 1, 0)),
+             # runs of two contiguous elements (32 bytes) whose next axis jumps 2^10 elements (16 KiB)
+             ((2,) * 16, (0, 14, 3, 1, 12, 2, 4, 13, 6, 7, 9, 11, 8, 10, 5, 15)),
+             ((2,) * 12 + (1,), (0, 3, 2, 4, 5, 6, 7, 8, 9, 10, 1, 11, 12))]
     for shape, perm in cases:
         x = rng.normal(size=shape) + 1j * rng.normal(size=shape)
         if perm is None:                                  # a scramble whose last axis is the first one
             rest = list(rng.permutation(range(1, len(shape))))
             perm = tuple(rest[:5] + [rest[5]] + rest[6:] + [0])
         moved = x.transpose(perm)
-        assert abs(moved.strides[-1]) >= pairwise.TILED_MIN_STRIDE_BYTES
+        assert pairwise._scattered(moved)
         dst = np.empty(moved.shape, moved.dtype)
         copy_into(dst, moved, threads, min_bytes=0)
         assert np.array_equal(dst, moved)
     assert len(tiled) == len(cases)
+    # a copy reading whole cache lines (runs of 2^5 complex elements, 512 bytes) goes plainly
+    x = rng.normal(size=(2,) * 14) + 0j
+    moved = x.transpose((8, 7, 6, 5, 4, 3, 2, 1, 0, 9, 10, 11, 12, 13))
+    assert not pairwise._scattered(moved)
+    dst = np.empty(moved.shape, moved.dtype)
+    copy_into(dst, moved, threads, min_bytes=0)
+    assert np.array_equal(dst, moved) and len(tiled) == len(cases)
 
 
 def test_blas_threads_follows_limits_set_after_its_first_call():
