@@ -211,3 +211,35 @@ def test_progress_line_shows_the_plan_search_then_the_tasks():
     assert "12 trials" in line and "3.2e+12" in line and "41/300 s" in line
     Job.phase, Job.done, Job.eta_seconds = "contracting", 2, 30.0
     assert ProgressBar.line(Job()) == "[" + "#" * 7 + "." * 23 + "] 2/8 tasks, ETA 30s"
+
+
+def test_a_plan_made_ahead_serves_amplitudes_on_two_workers(tmp_path, capsys, monkeypatch):
+    """``veramp plan`` plans for one worker's share of the memory cap, as ``veramp amplitudes`` runs
+    on the configured workers: the amplitudes then use the stored plan instead of searching one in
+    their own (much smaller) budget. The amplitude is checked against numpy's einsum applied gate by
+    gate (``conftest.einsum_state``: shares no code with the engine)."""
+    from contraction.circuits.loader import load_circuit
+    from contraction.planning.rates import MachineRate
+
+    from .conftest import einsum_state
+
+    data = tmp_path / "data"
+    data.mkdir()
+    (data / "calibration.json").write_text(json.dumps(MachineRate(1e10, 0.5, 1e-8, 2e-5, 2e-8, 1, 0.0).to_dict()))
+    monkeypatch.setenv("VERAMP_DATA_DIR", str(data))
+    monkeypatch.setenv("VERAMP_WORKERS", "2")
+    circ = tmp_path / "g.qasm"
+    assert main(["generate", "--grid", "4x4", "--cycles", "10", "--seed", "4", "--output", str(circ)]) == 0
+    cap = 64 * 2 ** 10                               # bytes: 4,096 complex128 elements, 2,048 per worker
+    assert main(["plan", str(circ), "--budget", "0.5", "--memory", str(cap)]) == 0
+    planned = json.loads(capsys.readouterr().out)
+    assert planned["workers"] == 2 and planned["memory_share_bytes"] == cap // 2
+    assert planned["stored"] is True and planned["slices"] > 1     # the cap is tight enough to need slices
+    bits = "1011001110001011"
+    assert main(["amplitudes", str(circ), "-b", bits, "--memory", str(cap), "--engine", "single",
+                 "--budget", "0.1", "--format", "json"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert doc["plan"]["stored"] is True and doc["plan"]["madds"] == planned["best_madds"]
+    psi = einsum_state(load_circuit(circ.read_text()))
+    got = complex(*doc["results"][0]["amplitude"])
+    assert abs(got - psi[int(bits, 2)]) < 1e-12

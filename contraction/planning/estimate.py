@@ -55,12 +55,14 @@ class Estimate:
 
 def estimate(circuit: Circuit, count: int = 1, *, dtype: str = "complex128", engine: str = "auto",
              rate: MachineRate, planner: PlannerOptions | None = None, plan_store: PlanStore | None = None,
-             memory_bytes: float = defaults.MEMORY_BYTES) -> Estimate:
+             memory_bytes: float = defaults.MEMORY_BYTES, workers: int = 1) -> Estimate:
     """The cost report for ``count`` distinct amplitudes of ``circuit``: the engine the
-    automatic choice (or ``engine``) would run, why, and what every option would take."""
+    automatic choice (or ``engine``) would run, why, and what every option would take, for a run on
+    ``workers`` local processes sharing ``memory_bytes`` (as :func:`~contraction.execution.amplitudes.amplitudes`
+    plans and predicts it)."""
     resolve_dtype(dtype)
     c = choose(circuit, count, engine=engine, dtype=dtype, rate=rate, store=plan_store, planner=planner,
-               memory_bytes=memory_bytes)
+               memory_bytes=memory_bytes, workers=workers)
     o, n = c.chosen, circuit.num_qubits
     common = dict(engine=c.engine, reason=c.reason, num_qubits=n, count=count, dtype=dtype,
                   madds=o.madds, flops=FLOPS_PER_MADD * o.madds, madds_per_bitstring=o.madds / max(1, count),

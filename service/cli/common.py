@@ -72,6 +72,13 @@ def memory_cap(args, settings) -> int:
     return parse_bytes(args.memory) if getattr(args, "memory", None) else settings.memory_bytes
 
 
+def local_workers(settings) -> int:
+    """Processes of this machine that contract side by side in a command's run, sharing its memory
+    cap: the configured workers, or 1 when a Dask cluster runs the slices (its workers do not share
+    this machine's cap)."""
+    return 1 if settings.dask_scheduler else max(1, settings.workers)
+
+
 def plan_store(settings) -> DirectoryPlanStore:
     """The plan directory of the settings; raises :class:`UsageError` when it cannot be used."""
     try:

@@ -7,19 +7,21 @@ import io
 import json
 import sys
 
+import numpy as np
+
 from contraction.execution.amplitudes import amplitudes
 from contraction.execution.blocks import block_amplitudes, marginal_probabilities
 from contraction.execution.calibration import load_or_measure
 from contraction.execution.dask_runner import DaskRunner
 from contraction.execution.slices import keep_freed_memory
 from contraction.network.builder import build_structure
-from contraction.planning.engine_choice import network_plan
+from contraction.planning.engine_choice import PLAN_SHARE_OF_CAP, network_plan
 from contraction.planning.estimate import estimate
 from contraction.planning.search import PlannerOptions
 
 from .common import (
-    ProgressBar, bitstrings_from_args, current_settings, fmt_complex, load_circuit_file, memory_cap, plan_store,
-    qubit_list, stored_rate)
+    ProgressBar, bitstrings_from_args, current_settings, fmt_complex, load_circuit_file, local_workers, memory_cap,
+    plan_store, qubit_list, stored_rate)
 
 
 def cmd_amplitudes(args) -> int:
@@ -53,7 +55,8 @@ def cmd_amplitudes(args) -> int:
                          "probability": r.probability} for r in run.results],
         }
         if run.plan is not None:
-            doc["plan"] = {"madds": run.plan.madds, "width": run.plan.width, "slices": run.plan.nslices}
+            doc["plan"] = {"madds": run.plan.madds, "width": run.plan.width, "slices": run.plan.nslices,
+                           "stored": run.plan_cached}
         print(json.dumps(doc))
     elif args.format == "csv":
         buf = io.StringIO()
@@ -130,7 +133,7 @@ def cmd_estimate(args) -> int:
     budget = args.budget if args.budget is not None else settings.plan_budget_seconds
     est = estimate(circuit, args.count, dtype=args.dtype, engine=args.engine, rate=rate,
                    planner=PlannerOptions(budget_seconds=budget, parallel=settings.plan_processes), plan_store=plan_store(settings),
-                   memory_bytes=memory_cap(args, settings))
+                   memory_bytes=memory_cap(args, settings), workers=local_workers(settings))
     doc = est.to_dict()
     if args.format == "json":
         print(json.dumps(doc))
@@ -149,18 +152,24 @@ def cmd_estimate(args) -> int:
 
 
 def cmd_plan(args) -> int:
-    """``veramp plan``: search a plan with the whole budget and keep it when it beats the stored one."""
+    """``veramp plan``: search a plan with the whole budget and keep it when it beats the stored one.
+    The plan fits one worker's share of the memory cap, as ``veramp amplitudes`` and ``estimate`` run
+    it (a plan for the whole cap would not serve them on two or more local workers)."""
     settings = current_settings()
     circuit = load_circuit_file(args.circuit)
     store = plan_store(settings)
     structure = build_structure(circuit)
-    before = store.get(structure.key)
+    workers = local_workers(settings)
+    share = memory_cap(args, settings) / workers
+    fit = share / np.dtype(args.dtype).itemsize * PLAN_SHARE_OF_CAP      # what network_plan lets a plan take
+    before = store.get(structure.key, fit)
     options = PlannerOptions(budget_seconds=args.budget, parallel=settings.plan_processes, whole_budget=True)
-    plan = network_plan(structure, None, options, memory_cap(args, settings), args.dtype).plan
+    plan = network_plan(structure, None, options, share, args.dtype).plan
     kept = store.put(plan)
-    best = store.get(structure.key)
+    best = store.get(structure.key, fit)
     print(json.dumps({"network_key": structure.key, "found_madds": plan.madds, "found_width": plan.width,
-                      "slices": plan.nslices, "previous_madds": before.madds if before else None,
+                      "slices": plan.nslices, "workers": workers, "memory_share_bytes": int(share),
+                      "previous_madds": before.madds if before else None,
                       "stored": kept, "best_madds": best.madds if best else None}))
     return 0
 

@@ -139,9 +139,11 @@ def build_parser() -> argparse.ArgumentParser:
     e.add_argument("--format", choices=["table", "json"], default="table")
     e.set_defaults(func="compute:cmd_estimate")
 
-    pl = sub.add_parser("plan", help="search a contraction plan ahead of time and store it")
+    pl = sub.add_parser("plan", help="search a contraction plan ahead of time and store it (for one local "
+                                     "worker's share of the memory cap, as the amplitudes run it)")
     _circuit(pl)
-    pl.add_argument("--budget", type=float, default=60.0, metavar="SECONDS")
+    pl.add_argument("--budget", type=float, default=60.0, metavar="SECONDS",
+                    help="seconds the search may take, all of them used (default 60)")
     _memory(pl)
     _dtype(pl)
     pl.set_defaults(func="compute:cmd_plan")

@@ -11,9 +11,9 @@ budget, two processes) and the baseline — quimb's ``full_simplify`` on the sam
 then cotengra's ``HyperOptimizer`` with slicing to the same target inside each trial, same budget,
 same two processes — side by side. Both slice the largest intermediate to a quarter of the cap (the
 peak of a pairwise contraction holds two inputs and the output).
-Part a: one amplitude in complex64 with the stored plan, the whole run within the cap: one process
-on the machine's BLAS threads (default) or ``--amp-workers`` processes on one thread each sharing
-it (the plan's target is then a quarter of a share); wall time and peak RSS of this process and of
+Part a: one amplitude in complex64 with the stored plan, the whole run within the cap:
+``--amp-workers`` processes on one thread each sharing it (default: one per core, as the command line
+runs; the plan's target is then a quarter of a share), or one process on the machine's BLAS threads; wall time and peak RSS of this process and of
 its workers (measured, not estimated), against the time at the matrix-multiply rate measured in the
 same run; at 12 cycles also its error against the complex128 amplitude in ``COMPLEX128_REFERENCE``.
 Part b: a batch of ``--batch`` uncorrelated bitstrings (|0...0> and random ones) sharing one
@@ -40,6 +40,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import os
 import sys
 import time
 
@@ -386,8 +387,9 @@ def main() -> None:
     ap.add_argument("--no-baseline", action="store_true", help="part p without the quimb + cotengra baseline")
     ap.add_argument("--save-plan", default=None, help="write part p's plan (JSON) to this file")
     ap.add_argument("--load-plan", default=None, help="part a with this stored plan instead of part p's")
-    ap.add_argument("--amp-workers", type=int, default=1,
-                    help="part a: contraction processes sharing the cap (1: one process, BLAS threads)")
+    ap.add_argument("--amp-workers", type=int, default=max(1, os.cpu_count() or 1),
+                    help="part a: contraction processes sharing the cap, one BLAS thread each (default: one per "
+                         "core, as the command line runs; 1: one process on the machine's BLAS threads)")
     ap.add_argument("--target-log2", type=float, default=None,
                     help="largest intermediate of the plan (default: a quarter of the cap per process of part a)")
     args = ap.parse_args()
