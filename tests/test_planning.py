@@ -503,3 +503,24 @@ def test_worker_processes_start_with_the_contraction_modules_loaded():
     with cf.ProcessPoolExecutor(1, mp_context=ctx) as pool:
         loaded = pool.submit(eval, f"[m in __import__('sys').modules for m in {names!r}]").result(timeout=120)
     assert loaded == [True] * len(names)
+
+
+def test_the_default_objective_counts_multiply_adds_alone_when_the_plan_must_be_sliced():
+    """"auto" searches a network that must be sliced to its target for multiply-adds alone ("flops"),
+    others for multiply-adds and memory writes ("combo"); an explicit objective is kept. The plan
+    records the objective used; the sliced plan's amplitude is checked against the einsum reference
+    (numpy, gate by gate: shares no code with the engine)."""
+    from .conftest import einsum_state
+
+    c = random_instance(grid_architecture(4, 4, 8), 3)
+    s = build_structure(c)
+    unsliced = find_plan(s, PlannerOptions(budget_seconds=0.5))
+    assert unsliced.options["minimize"] == "combo" and unsliced.nslices == 1
+    target = 2 ** (unsliced.width - 3)
+    sliced = find_plan(s, PlannerOptions(budget_seconds=0.5, max_elements=target))
+    assert sliced.options["minimize"] == "flops" and sliced.nslices > 1 and sliced.width <= unsliced.width - 3
+    kept = find_plan(s, PlannerOptions(budget_seconds=0.5, max_elements=target, minimize="combo"))
+    assert kept.options["minimize"] == "combo"
+    bits = "0110100111010010"
+    value = contract_scalar(sliced.tree(s), tensor_arrays(s, c, bits))
+    assert abs(value - einsum_state(c)[int(bits, 2)]) < 1e-12

@@ -20,7 +20,7 @@ import threading
 import time
 import weakref
 from collections import OrderedDict
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from typing import Callable, Iterator
 
 import numpy as np
@@ -174,7 +174,7 @@ class Plan:
 
 
 def retarget_plan(plan: Plan, structure: NetworkStructure, max_elements: float, seconds: float,
-                  minimize: str = "combo") -> Plan | None:
+                  minimize: str = "auto") -> Plan | None:
     """``plan``'s contraction order applied to ``structure`` — a network with the same tensors and
     indices whose sizes differ (another batch size) — and sliced anew to ``max_elements`` within
     ``seconds``. None when the order does not fit the network or the cap is not reached in time."""
@@ -186,6 +186,7 @@ def retarget_plan(plan: Plan, structure: NetworkStructure, max_elements: float, 
     except Exception:            # another network after all: cotengra raises many kinds of errors
         return None
     t0 = time.perf_counter()
+    minimize = resolved_objective(minimize, tree, max_elements)
     tree = slice_to_target(tree, max(2, int(max_elements)), minimize, t0 + 0.8 * seconds, t0 + seconds)
     if tree.max_size() > max_elements:
         return None
@@ -262,9 +263,9 @@ class PlannerOptions:
     budget_seconds: float = defaults.PLAN_BUDGET_SECONDS
     max_repeats: int = 10 ** 6            # the budget decides; this only caps tiny budgets in tests
     max_elements: float | None = None     # largest intermediate allowed (elements); None = no cap
-    # "combo" weighs memory writes with flops: on a 30-qubit 14-cycle network it gave 2x faster
-    # contractions than "flops" despite 3x more multiply-adds (writes dominate on these machines)
-    minimize: str = "combo"
+    # cotengra's objective; "auto" (see :func:`resolved_objective`): multiply-adds alone ("flops") for a
+    # network that must be sliced to the target, "combo" (multiply-adds and memory writes) otherwise
+    minimize: str = "auto"
     seed: int = 0
     parallel: bool | int = False          # explicit: never 'auto'; an int > 1 is a number of processes
     simplify: bool = True                 # structure-only simplification before the search
@@ -512,6 +513,20 @@ def _run_search(opt, inputs, output, sizes, deadline: float, pool, grace: float,
     return best, trials, kept_besides(opt, best)
 
 
+def resolved_objective(minimize: str, tree, target: float | None) -> str:
+    """The objective ``minimize`` stands for on a network whose greedy tree is ``tree``: itself unless
+    "auto", which is "flops" when ``tree``'s largest intermediate exceeds ``target`` (the plan will be
+    sliced) and "combo" otherwise. Sliced, "combo" searched far worse trees: 53 qubits, 12 cycles,
+    target 2^27, 60 s: 10^13.90 multiply-adds over 1,024 slices against 10^12.91 over 128 ("flops"; even
+    its memory writes were fewer, 6e11 against 9e11), and 10^14.77 over 8,192 slices in 300 s; on a
+    30-qubit 14-cycle network sliced to 2^24 and 2^20 (two 30 s plans each) "flops" plans ran all their
+    slices in 4.5-5.7 s against 4.8-6.5 s (measured, one BLAS thread, complex64). Unsliced, "combo"
+    is kept: it beat "flops" 2x in wall time on a 30-qubit 14-cycle network (an earlier measurement)."""
+    if minimize != "auto":
+        return minimize
+    return "flops" if target is not None and tree is not None and tree.max_size() > target else "combo"
+
+
 def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOptions()) -> Plan:
     """Search a contraction tree for ``structure`` within ``options``' budget (all stages together).
 
@@ -549,6 +564,7 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
     _notify(SearchProgress(0, None, 0.0, options.budget_seconds))
     try:
         if structure.num_tensors <= 2:
+            options = replace(options, minimize=resolved_objective(options.minimize, None, target))
             path = [(0, 1)] if structure.num_tensors == 2 else []
             tree = ctg.ContractionTree.from_path(structure.inputs, structure.output, structure.size_dict, path=path)
             reduced_tensors = structure.num_tensors
@@ -574,6 +590,7 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
             else:
                 greedy = ctg.RandomGreedyOptimizer(max_repeats=32 if len(inputs) < 300 else 8, seed=options.seed)
                 best = ctg.array_contract_tree(inputs, output, sizes, optimize=greedy)
+                options = replace(options, minimize=resolved_objective(options.minimize, best, target))
                 # a tree within the target is searched only as long as its greedy cost makes it worth;
                 # the search gets SEARCH_SHARE of what is left, refinement and slicing the rest
                 deadline = min(deadline, time.perf_counter() + _search_seconds(best, target, options))
@@ -584,6 +601,8 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
                                                         grace=0.5 * (deadline - search_deadline), t0=t0)
                     if found is not None and cost(found) < cost(best):
                         best = found
+
+            options = replace(options, minimize=resolved_objective(options.minimize, best, target))
 
             def on_network(found):
                 """A tree of the search on the whole network (unsliced)."""
