@@ -125,6 +125,28 @@ def diagonal_gates(circuit: Circuit) -> frozenset[int]:
     return circuit.diagonal_gates
 
 
+def _joined_by_next(circuit: Circuit, diagonal: frozenset[int]) -> frozenset[int]:
+    """Diagonal multi-qubit gates whose wires next meet, all of them and nothing else, one non-diagonal
+    gate (single-qubit gates aside): that gate will be multiplied into the same tensor, so the diagonal
+    starts a full tensor (taking the single-qubit gates waiting on its wires) rather than a diagonal one
+    beside tensors of its own for them. Layout only, given the diagonal gates."""
+    upcoming: dict[int, int] = {}                  # wire -> next multi-qubit gate on it
+    joined = set()
+    for gi in range(len(circuit.gates) - 1, -1, -1):
+        qs = circuit.gates[gi].qubits
+        if len(qs) < 2:
+            continue
+        if gi in diagonal:
+            nxt = {upcoming.get(q, -1) for q in qs}
+            if len(nxt) == 1:
+                (g2,) = nxt
+                if g2 >= 0 and g2 not in diagonal and set(circuit.gates[g2].qubits) == set(qs):
+                    joined.add(gi)
+        for q in qs:
+            upcoming[q] = gi
+    return frozenset(joined)
+
+
 def build_structure(circuit: Circuit, batch: int = 0, open_qubits: tuple[int, ...] = (),
                     diagonal: frozenset[int] | None = None) -> NetworkStructure:
     """The network of one amplitude of ``circuit`` (a scalar), of a batch of ``batch`` amplitudes
@@ -134,7 +156,10 @@ def build_structure(circuit: Circuit, batch: int = 0, open_qubits: tuple[int, ..
     Layout-only fusion rules: single-qubit gates wait on their wire and are multiplied into the
     next multi-qubit gate there (or into the projector); a multi-qubit gate whose qubit set equals
     that of the tensor last written on all its wires is multiplied into that tensor. Gates in
-    ``diagonal`` (default: :func:`diagonal_gates`) become diagonal tensors on the wires' indices.
+    ``diagonal`` (default: :func:`diagonal_gates`) become diagonal tensors on the wires' indices,
+    unless a full tensor on exactly their wires is there to take them; a non-diagonal gate on exactly
+    the wires of a diagonal tensor turns it into a full tensor and is multiplied into it (a two-qubit
+    gate written as several controlled gates, as OpenQASM programs do, is one tensor).
     """
     n = circuit.num_qubits
     diagonal = diagonal_gates(circuit) if diagonal is None else diagonal
@@ -150,15 +175,51 @@ def build_structure(circuit: Circuit, batch: int = 0, open_qubits: tuple[int, ..
         sources.append(("init", q, []))
     pending: list[list[int]] = [[] for _ in range(n)]
     tensor_qubits: dict[int, tuple[int, ...]] = {}
+
+    def waiting(qs) -> list:
+        """The single-qubit gates waiting on ``qs`` as steps of the next tensor there (taken off the wires)."""
+        steps = [("pre", qs, q, tuple(pending[q])) for q in qs if pending[q]]
+        for q in qs:
+            pending[q] = []
+        return steps
+
+    def last_on_all(qs) -> int:
+        """The tensor last written on every wire of ``qs`` and on no other wire, or -1."""
+        t = last[qs[0]]
+        if t < 0 or any(last[q] != t for q in qs):
+            return -1
+        touched = tensor_qubits.get(t, sources[t][1] if sources[t][0] == "diag" else ())
+        return t if set(touched) == set(qs) else -1
+
+    joined = _joined_by_next(circuit, diagonal)
     for gi, gate in enumerate(circuit.gates):
         qs = gate.qubits
         if len(qs) == 1:
             pending[qs[0]].append(gi)
             continue
-        if gi in diagonal:
+        t = last_on_all(qs)
+        if t >= 0 and sources[t][0] == "diag" and (gi in diagonal or len(sources[t][1]) < len(
+                circuit.gates[sources[t][2]].qubits)):
+            t = -1      # diagonal after diagonal stays diagonal; a restricted diagonal is not the whole gate
+        if t >= 0 and sources[t][0] == "diag":
+            # a diagonal tensor on exactly these wires becomes a full tensor the gate is multiplied into
+            dq = sources[t][1]
+            outs = [_symbol(counter + k) for k in range(len(dq))]
+            counter += len(dq)
+            inputs[t] = tuple(outs) + tuple(wire[q] for q in dq)
+            for q, o in zip(dq, outs):
+                wire[q] = o
+            tensor_qubits[t] = dq
+            sources[t] = ("gate", dq, [("gate", sources[t][2])])
+        if t >= 0:
+            # multiplied into the tensor last written on exactly these wires (a diagonal gate too: the
+            # tensor is full already)
+            sources[t][2].extend(waiting(qs) + [("gate", gi)])
+            continue
+        zero = [q for q in qs if last[q] == -1 and not pending[q]] if gi in diagonal else []
+        if gi in diagonal and (zero or gi not in joined):
             # wires still in |0> (no tensor and no single-qubit gate on them yet) hold the value 0: the
             # gate acts on the others as its restriction to 0 there, and they stay in |0>
-            zero = [q for q in qs if last[q] == -1 and not pending[q]]
             if zero:
                 qs = tuple(q for q in qs if q not in zero)
                 if not qs:                   # all in |0>: a phase, kept by the first wire's |0> vector
@@ -179,14 +240,7 @@ def build_structure(circuit: Circuit, batch: int = 0, open_qubits: tuple[int, ..
             inputs.append(tuple(wire[q] for q in qs))
             sources.append(("diag", qs, gi))     # qs: the gate's qubits not in |0>, in its order
             continue
-        steps = [("pre", qs, q, tuple(pending[q])) for q in qs if pending[q]]
-        for q in qs:
-            pending[q] = []
-        t = last[qs[0]]
-        if (t >= 0 and t in tensor_qubits and all(last[q] == t for q in qs)
-                and set(tensor_qubits[t]) == set(qs)):
-            sources[t][2].extend(steps + [("gate", gi)])
-            continue
+        steps = waiting(qs)
         outs = []
         for q in qs:
             outs.append(_symbol(counter))
