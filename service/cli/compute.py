@@ -9,6 +9,7 @@ import sys
 
 import numpy as np
 
+from contraction.errors import MemoryLimitError
 from contraction.execution.amplitudes import amplitudes
 from contraction.execution.blocks import block_amplitudes, marginal_probabilities
 from contraction.execution.calibration import load_or_measure
@@ -164,7 +165,13 @@ def cmd_plan(args) -> int:
     fit = share / np.dtype(args.dtype).itemsize * PLAN_SHARE_OF_CAP      # what network_plan lets a plan take
     before = store.get(structure.key, fit)
     options = PlannerOptions(budget_seconds=args.budget, parallel=settings.plan_processes, whole_budget=True)
-    plan = network_plan(structure, None, options, share, args.dtype).plan
+    try:
+        plan = network_plan(structure, None, options, share, args.dtype).plan
+    except MemoryLimitError as exc:
+        if workers == 1:
+            raise
+        raise MemoryLimitError(f"{exc} (the cap is shared by {workers} local workers: {share:.4g} bytes each; "
+                               f"VERAMP_WORKERS sets how many)") from None
     kept = store.put(plan)
     best = store.get(structure.key, fit)
     print(json.dumps({"network_key": structure.key, "found_madds": plan.madds, "found_width": plan.width,
