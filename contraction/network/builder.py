@@ -157,9 +157,9 @@ def build_structure(circuit: Circuit, batch: int = 0, open_qubits: tuple[int, ..
     next multi-qubit gate there (or into the projector); a multi-qubit gate whose qubit set equals
     that of the tensor last written on all its wires is multiplied into that tensor. Gates in
     ``diagonal`` (default: :func:`diagonal_gates`) become diagonal tensors on the wires' indices,
-    unless a full tensor on exactly their wires is there to take them; a non-diagonal gate on exactly
-    the wires of a diagonal tensor turns it into a full tensor and is multiplied into it (a two-qubit
-    gate written as several controlled gates, as OpenQASM programs do, is one tensor).
+    unless a full tensor on exactly their wires is there to take them or the next gate there is a
+    non-diagonal one on exactly their wires (:func:`_joined_by_next`): a two-qubit gate written as
+    several controlled gates, as OpenQASM programs do, is one tensor.
     """
     n = circuit.num_qubits
     diagonal = diagonal_gates(circuit) if diagonal is None else diagonal
@@ -184,12 +184,11 @@ def build_structure(circuit: Circuit, batch: int = 0, open_qubits: tuple[int, ..
         return steps
 
     def last_on_all(qs) -> int:
-        """The tensor last written on every wire of ``qs`` and on no other wire, or -1."""
+        """The full tensor last written on every wire of ``qs`` and on no other wire, or -1."""
         t = last[qs[0]]
         if t < 0 or any(last[q] != t for q in qs):
             return -1
-        touched = tensor_qubits.get(t, sources[t][1] if sources[t][0] == "diag" else ())
-        return t if set(touched) == set(qs) else -1
+        return t if set(tensor_qubits.get(t, ())) == set(qs) else -1
 
     joined = _joined_by_next(circuit, diagonal)
     for gi, gate in enumerate(circuit.gates):
@@ -198,19 +197,6 @@ def build_structure(circuit: Circuit, batch: int = 0, open_qubits: tuple[int, ..
             pending[qs[0]].append(gi)
             continue
         t = last_on_all(qs)
-        if t >= 0 and sources[t][0] == "diag" and (gi in diagonal or len(sources[t][1]) < len(
-                circuit.gates[sources[t][2]].qubits)):
-            t = -1      # diagonal after diagonal stays diagonal; a restricted diagonal is not the whole gate
-        if t >= 0 and sources[t][0] == "diag":
-            # a diagonal tensor on exactly these wires becomes a full tensor the gate is multiplied into
-            dq = sources[t][1]
-            outs = [_symbol(counter + k) for k in range(len(dq))]
-            counter += len(dq)
-            inputs[t] = tuple(outs) + tuple(wire[q] for q in dq)
-            for q, o in zip(dq, outs):
-                wire[q] = o
-            tensor_qubits[t] = dq
-            sources[t] = ("gate", dq, [("gate", sources[t][2])])
         if t >= 0:
             # multiplied into the tensor last written on exactly these wires (a diagonal gate too: the
             # tensor is full already)

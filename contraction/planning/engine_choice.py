@@ -94,6 +94,11 @@ def intermediate_target(options: PlannerOptions, cap_elements: float) -> float:
 PLAN_SHARE_OF_CAP = 15 / 16
 
 
+def plan_fit_elements(memory_bytes: float, dtype="complex128") -> float:
+    """Elements a plan's own arrays may hold at their peak under ``memory_bytes`` (``PLAN_SHARE_OF_CAP``)."""
+    return memory_bytes / np.dtype(dtype).itemsize * PLAN_SHARE_OF_CAP
+
+
 def network_plan(structure: NetworkStructure, store: PlanStore | None, options: PlannerOptions | None,
                  memory_bytes: float = defaults.MEMORY_BYTES, dtype="complex128") -> Contraction:
     """The :class:`Contraction` of ``structure`` with a peak within ``memory_bytes``.
@@ -103,7 +108,7 @@ def network_plan(structure: NetworkStructure, store: PlanStore | None, options: 
     within the cap is found: a plan over the cap is never returned.
     """
     cap_elements = memory_bytes / np.dtype(dtype).itemsize
-    fit_elements = cap_elements * PLAN_SHARE_OF_CAP          # what the plan's own arrays may take
+    fit_elements = plan_fit_elements(memory_bytes, dtype)      # what the plan's own arrays may take
     if store is not None:
         plan = store.get(structure.key, fit_elements)
         if plan is not None:

@@ -7,8 +7,6 @@ import io
 import json
 import sys
 
-import numpy as np
-
 from contraction.errors import MemoryLimitError
 from contraction.execution.amplitudes import amplitudes
 from contraction.execution.blocks import block_amplitudes, marginal_probabilities
@@ -16,7 +14,7 @@ from contraction.execution.calibration import load_or_measure
 from contraction.execution.dask_runner import DaskRunner
 from contraction.execution.slices import keep_freed_memory
 from contraction.network.builder import build_structure
-from contraction.planning.engine_choice import PLAN_SHARE_OF_CAP, network_plan
+from contraction.planning.engine_choice import network_plan, plan_fit_elements
 from contraction.planning.estimate import estimate
 from contraction.planning.search import PlannerOptions
 
@@ -162,7 +160,7 @@ def cmd_plan(args) -> int:
     structure = build_structure(circuit)
     workers = local_workers(settings)
     share = memory_cap(args, settings) / workers
-    fit = share / np.dtype(args.dtype).itemsize * PLAN_SHARE_OF_CAP      # what network_plan lets a plan take
+    fit = plan_fit_elements(share, args.dtype)              # what network_plan lets a plan take
     before = store.get(structure.key, fit)
     options = PlannerOptions(budget_seconds=args.budget, parallel=settings.plan_processes, whole_budget=True)
     try:

@@ -14,7 +14,8 @@ the row names the share. Any other network engine predicted over ``--max-forced`
 engine, or one bitstring) runs until a share of its tasks (runs of slices) has finished and is then
 cancelled, its time scaled to all tasks (``<engine>_timed_on_tasks``). Such a share-timed run stands
 for auto when auto picked that engine with the same chunks (``--reuse-forced``; the row says so).
-Before the first case a small request starts the worker processes' server, so the first engine timed does not pay it. A forced
+Before the first case a small request starts the worker processes' server, so the first engine timed
+does not pay it. A forced
 engine that would run the very same contractions as the single engine (same chunks and plans: the batch
 or stacked engine for one bitstring) is not run; it gets the single engine's time, and the row says so.
 

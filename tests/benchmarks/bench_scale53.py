@@ -12,8 +12,9 @@ then cotengra's ``HyperOptimizer`` with slicing to the same target inside each t
 same two processes — side by side. Both slice the largest intermediate to a quarter of the cap (the
 peak of a pairwise contraction holds two inputs and the output).
 Part a: one amplitude in complex64 with the stored plan, the whole run within the cap:
-``--amp-workers`` processes on one thread each sharing it (default: one per core, as the command line
-runs; the plan's target is then a quarter of a share), or one process on the machine's BLAS threads; wall time and peak RSS of this process and of
+``--amp-workers`` processes on one thread each sharing it (default: one per core, as the command
+line runs; the plan's target is then a quarter of a share), or one process on the machine's BLAS
+threads; wall time and peak RSS of this process and of
 its workers (measured, not estimated), against the time at the matrix-multiply rate measured in the
 same run; at 12 cycles also its error against the complex128 amplitude in ``COMPLEX128_REFERENCE``.
 Part b: a batch of ``--batch`` uncorrelated bitstrings (|0...0> and random ones) sharing one
