@@ -104,7 +104,7 @@ class AppState:
         from .db import SqlPlanStore
 
         c = choose(circuit, count, engine=engine, dtype=dtype, rate=self.rate(), store=SqlPlanStore(self.sessions),
-                   memory_bytes=self.settings.memory_bytes, search=False)
+                   memory_bytes=self.settings.run_memory_bytes, search=False)
         return c
 
     def rate_source(self) -> str:

@@ -182,7 +182,7 @@ class JobManager:
         return job
 
     def _submit(self, job_id: str) -> None:
-        fut = self.pool.submit(run_job, job_id, self.settings.sqlalchemy_url, self.settings.memory_bytes,
+        fut = self.pool.submit(run_job, job_id, self.settings.sqlalchemy_url, self.settings.run_memory_bytes,
                                self.settings.plan_budget_seconds, self.settings.dask_scheduler,
                                str(self.settings.calibration_path))
         with self._lock:

@@ -26,8 +26,9 @@ class Settings(BaseSettings):
     database_url: str | None = Field(None, description="SQLAlchemy URL; default SQLite in data_dir")
     host: str = Field("127.0.0.1", description="listen address of `veramp serve`")
     port: int = Field(8350, description="port of `veramp serve`")
-    memory_bytes: int = Field(defaults.MEMORY_BYTES, description="peak memory cap of one run (local worker processes that "
-                                                       "contract slices side by side share it)")
+    memory_bytes: int = Field(defaults.MEMORY_BYTES, description="peak memory cap of one command, or of the service's "
+                                                       "contractions on this machine: local worker processes and "
+                                                       "jobs that run side by side share it")
     workers: int = Field(max(1, (os.cpu_count() or 1)), description="worker processes for contractions (per "
                                                                       "server worker)")
     server_workers: int = Field(1, ge=1, le=64, description="uvicorn processes answering requests in `veramp serve`; "
@@ -47,6 +48,16 @@ class Settings(BaseSettings):
     tokens_file: Path | None = Field(None, description="file with one bearer token per line")
     dask_scheduler: str | None = Field(None, description="Dask scheduler address (tcp://host:port): slices and "
                                                          "batch chunks of jobs run there instead of locally")
+
+    @property
+    def run_memory_bytes(self) -> int:
+        """The cap one service run (a job, or a request answered at once) plans and contracts within.
+        Contracting locally, up to ``server_workers`` x ``workers`` jobs run side by side on this machine
+        and share ``memory_bytes`` equally; on a Dask cluster each task runs alone on a worker (one
+        thread) under the whole cap."""
+        if self.dask_scheduler:
+            return self.memory_bytes
+        return max(1, self.memory_bytes // (self.server_workers * max(1, self.workers)))
 
     @property
     def plan_dir(self) -> Path:

@@ -363,3 +363,26 @@ def test_an_inline_circuit_is_read_once_per_server(client, monkeypatch):
     r = client.post("/v1/amplitudes", json={"circuit": {"qasm": GHZ + "x q[0];\n"}, "bitstrings": ["111"]})
     assert r.status_code == 200 and r.json()["results"][0]["probability"] == pytest.approx(0.0, abs=1e-15)
     assert len(reads) == 2
+
+
+def test_jobs_side_by_side_share_the_memory_cap(tmp_path):
+    """Up to server_workers x workers jobs contract side by side on one machine; each plans within an
+    equal share of VERAMP_MEMORY_BYTES, so together they stay under it (with a Dask cluster each task
+    runs alone on a worker, under the whole cap). A 4x4 grid network's unsliced peak P is measured
+    first; under a cap of 1.5 P one job slot fits it whole, two slots each get 0.75 P."""
+    grid = random_instance(grid_architecture(4, 4, 8), seed=2)
+    body = {"circuit": {"qasm": write_qasm3(grid)}, "count": 1, "engine": "single"}
+    with TestClient(create_app(make_settings(tmp_path / "a"))) as c:
+        whole = c.post("/v1/estimates", json=body).json()
+    cap = int(1.5 * whole["peak_bytes"])
+    for workers, server_workers in ((1, 1), (2, 1), (2, 2)):
+        s = make_settings(tmp_path / f"w{workers}{server_workers}", memory_bytes=cap, workers=workers,
+                          server_workers=server_workers)
+        assert s.run_memory_bytes == cap // (workers * server_workers)
+        with TestClient(create_app(s)) as c:
+            est = c.post("/v1/estimates", json=body).json()
+        assert est["memory_cap_bytes"] == s.run_memory_bytes
+        assert est["peak_bytes"] <= s.run_memory_bytes
+        if workers * server_workers > 1:
+            assert est["peak_bytes"] < whole["peak_bytes"]
+    assert Settings(memory_bytes=cap, workers=4, dask_scheduler="tcp://127.0.0.1:1").run_memory_bytes == cap

@@ -23,7 +23,7 @@ def post_estimate(body: EstimateIn, state: AppState = Depends(get_state)) -> dic
     s = state.settings
     est = estimate(circuit, body.count, dtype=body.dtype, engine=body.engine, rate=state.rate(),
                    planner=PlannerOptions(budget_seconds=min(s.plan_budget_seconds, 2.0)),
-                   plan_store=SqlPlanStore(state.sessions), memory_bytes=s.memory_bytes)
+                   plan_store=SqlPlanStore(state.sessions), memory_bytes=s.run_memory_bytes)
     return {"circuit_id": circuit.circuit_id, **est.to_dict(), "rates": state.rate_source()}
 
 
@@ -88,7 +88,7 @@ def post_amplitudes(body: AmplitudesIn, response: Response, request: Request, st
         return job_out(job)
     items, stats = compute(state.sessions, circuit, bits, dtype=body.dtype, engine=body.engine,
                            planner=PlannerOptions(budget_seconds=s.plan_budget_seconds),
-                           memory_bytes=s.memory_bytes, have=have, rate=state.rate(), choice=choice)
+                           memory_bytes=s.run_memory_bytes, have=have, rate=state.rate(), choice=choice)
     state.metrics.cache_hits.inc(stats["cached"])
     state.metrics.cache_misses.inc(stats["computed"])
     state.metrics.madds.inc(stats["madds"])

@@ -18,7 +18,7 @@ ORDER = ("entry i holds the qubits' values read from the binary digits of i, the
 def _options(state: AppState) -> dict:
     s = state.settings
     return dict(planner=PlannerOptions(budget_seconds=s.plan_budget_seconds), plan_store=SqlPlanStore(state.sessions),
-                memory_bytes=s.memory_bytes, rate=state.rate())
+                memory_bytes=s.run_memory_bytes, rate=state.rate())
 
 
 @router.post("/blocks", response_model=BlockOut, responses={413: {"model": ErrorOut}, 422: {"model": ErrorOut}})

@@ -28,7 +28,7 @@ def _compute(body: PathIn, state: AppState):
         raise VerampError(f"theta values must be finite numbers of magnitude at most {MAX_THETA:g}")
     s = state.settings
     opts = dict(planner=PlannerOptions(budget_seconds=s.plan_budget_seconds), plan_store=SqlPlanStore(state.sessions),
-                memory_bytes=s.memory_bytes)
+                memory_bytes=s.run_memory_bytes)
     path = cayley_path(circuit, body.seed)
     probs, engine = path_probabilities(path, body.bitstring, body.thetas, **opts)
     recovery = None
