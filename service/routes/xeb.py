@@ -46,8 +46,8 @@ def _probabilities(state: AppState, body: XebIn):
             raise Conflict("these probabilities are not cached and would take a while: POST them to "
                            "/v1/amplitudes (a job) first, then ask again", limit="sync_threshold_seconds")
     items, _stats = compute(state.sessions, circuit, bits, dtype="complex128", engine="auto",
-                            planner=PlannerOptions(budget_seconds=s.plan_budget_seconds), memory_bytes=s.run_memory_bytes,
-                            rate=state.rate(), have=have, choice=choice)
+                            planner=PlannerOptions(budget_seconds=s.plan_budget_seconds),
+                            memory_bytes=s.run_memory_bytes, rate=state.rate(), have=have, choice=choice)
     return circuit, [i.probability for i in items]
 
 
