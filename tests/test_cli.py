@@ -213,6 +213,46 @@ def test_progress_line_shows_the_plan_search_then_the_tasks():
     assert ProgressBar.line(Job()) == "[" + "#" * 7 + "." * 23 + "] 2/8 tasks, ETA 30s"
 
 
+def test_progress_goes_to_a_log_as_plain_lines_and_short_stages_leave_nothing(monkeypatch):
+    """Off a terminal (a log file) a long stage writes a plain line every ``every`` seconds and its last
+    line; a short stage writes nothing; on a terminal a short stage's line is erased and a long one's
+    kept. The clock is a stand-in advanced by the test (this project's own behaviour, no outside source)."""
+    import io
+    from types import SimpleNamespace as NS
+
+    from service.cli import common
+
+    clock = [100.0]
+    monkeypatch.setattr(common.time, "monotonic", lambda: clock[0])
+
+    def run(terminal: bool, seconds_per_report: float) -> str:
+        buf = io.StringIO()
+        bar = common.ProgressBar(terminal, every=30.0, stream=buf)
+        for k in range(10):                                     # a search reporting ten times
+            bar.search(NS(trials=k, best_madds=2e12, seconds=k * seconds_per_report, budget_seconds=300.0,
+                          final=False))
+            clock[0] += seconds_per_report
+        bar.search(NS(trials=10, best_madds=1e12, seconds=10 * seconds_per_report, budget_seconds=300.0,
+                      final=True))
+        for done in range(5):                                   # then five tasks, quickly
+            bar(NS(done=done, total=4, eta_seconds=1.0))
+            clock[0] += 0.01
+        return buf.getvalue()
+
+    log = run(False, 10.0)
+    lines = log.splitlines()
+    assert lines == ["planning: 3 trials, best 2e+12 multiply-adds, 30/300 s",
+                     "planning: 6 trials, best 2e+12 multiply-adds, 60/300 s",
+                     "planning: 9 trials, best 2e+12 multiply-adds, 90/300 s",
+                     "planning: 10 trials, best 1e+12 multiply-adds, 100/300 s"]
+    assert "\r" not in log
+    assert run(False, 0.01) == ""
+    term_long = run(True, 10.0)
+    assert term_long.count("\n") == 1 and "10 trials, best 1e+12" in term_long.split("\n")[0].split("\r")[-1]
+    term_short = run(True, 0.01)
+    assert "\n" not in term_short and term_short.endswith("\r") and not term_short.split("\r")[-2].strip()
+
+
 def test_a_plan_made_ahead_serves_amplitudes_on_two_workers(tmp_path, capsys, monkeypatch):
     """``veramp plan`` plans for one worker's share of the memory cap, as ``veramp amplitudes`` runs
     on the configured workers: the amplitudes then use the stored plan instead of searching one in

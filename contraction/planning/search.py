@@ -286,12 +286,14 @@ class PlannerOptions:
 class SearchProgress:
     """Where a running search stands: trials finished, the best tree's multiply-adds so far (scored
     as the search scores them: after slicing to the target when it slices in its trials; None before
-    the first), seconds since the plan was asked for and the budget."""
+    the first), seconds since the plan was asked for and the budget; ``final`` on the report of the
+    plan found (its multiply-adds as sliced)."""
 
     trials: int
     best_madds: float | None
     seconds: float
     budget_seconds: float
+    final: bool = False
 
 
 SearchObserver = Callable[[SearchProgress], None]
@@ -676,7 +678,7 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
     record = _record(options, methods, trials, reduced_tensors, t0)
     record.update(notes)
     plan = plan_from_tree(tree, structure, record)
-    _notify(SearchProgress(trials, plan.madds, time.perf_counter() - t0, options.budget_seconds))
+    _notify(SearchProgress(trials, plan.madds, time.perf_counter() - t0, options.budget_seconds, final=True))
     return plan
 
 

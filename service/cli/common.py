@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import sys
+import time
 from pathlib import Path
 
 import numpy as np
@@ -87,28 +88,66 @@ def plan_store(settings) -> DirectoryPlanStore:
         raise UsageError(f"cannot use the plan directory {settings.plan_dir}: {exc.strerror}") from None
 
 
-class ProgressBar:
-    """A one-line progress bar on stderr (only when stderr is a terminal or forced)."""
+#: seconds between two progress lines when stderr is not a terminal (a log file or a pipe)
+LOG_EVERY_SECONDS = 30.0
 
-    def __init__(self, enabled: bool):
-        self.enabled = enabled
+
+def search_line(trials: int, best_madds: float | None, seconds: float, budget_seconds: float) -> str:
+    """The progress text of a plan search: trials, the best cost so far, seconds of the budget."""
+    best = "-" if best_madds is None else f"{best_madds:.3g}"
+    return f"planning: {trials} trials, best {best} multiply-adds, {seconds:.0f}/{budget_seconds:.0f} s"
+
+
+#: a stage (a plan search, or the tasks) shorter than this leaves no line on a terminal
+KEEP_AFTER_SECONDS = 1.0
+
+
+class ProgressBar:
+    """Progress on stderr of tasks (``__call__``) and of plan searches (:meth:`search`), stage by stage.
+    On a terminal one line redrawn in place, kept when the stage took a second or more (erased
+    otherwise); elsewhere (a log file, a pipe) a plain line each ``every`` seconds of a stage and its
+    last line when an earlier one was written: a long run is followed in its log, a short one writes
+    nothing."""
+
+    def __init__(self, terminal: bool, every: float = LOG_EVERY_SECONDS, stream=None):
+        self.terminal, self.every = terminal, every
+        self.stream = stream
+        self._began: float | None = None       # when the current stage began
+        self._since = 0.0                      # when its last line was written (or it began)
+        self._written = False                  # a line of the current stage was written (log mode)
+        self._width = 0                        # characters of the line on the terminal
 
     def __call__(self, p) -> None:
-        if not self.enabled:
-            return
-        sys.stderr.write("\r" + self.line(p) + " ")
-        if p.done >= p.total:
-            sys.stderr.write("\n")
-        sys.stderr.flush()
+        self._show(self.line(p), p.done >= p.total)
+
+    def search(self, p) -> None:
+        """An observer for :func:`contraction.planning.search.observe_searches`."""
+        self._show(search_line(p.trials, p.best_madds, p.seconds, p.budget_seconds), p.final)
+
+    def _show(self, text: str, last: bool) -> None:
+        out = self.stream or sys.stderr
+        now = time.monotonic()
+        if self._began is None:
+            self._began = self._since = now
+        if self.terminal:
+            keep = now - self._began >= KEEP_AFTER_SECONDS
+            shown = text if not last or keep else ""
+            out.write("\r" + shown.ljust(self._width) + ("\n" if last and keep else "\r" if last else " "))
+            self._width = 0 if last else len(text)
+        elif now - self._since >= self.every or (last and self._written):
+            out.write(text + "\n")
+            self._since, self._written = now, True
+        if last:
+            self._began, self._written = None, False
+        out.flush()
 
     @staticmethod
     def line(p) -> str:
         """The bar's text: the plan search's trials and best cost while planning, else tasks done and ETA."""
         search = getattr(p, "planning", None)
         if getattr(p, "phase", None) == "planning" and search:
-            best = "-" if search.get("best_madds") is None else f"{search['best_madds']:.3g}"
-            return (f"planning: {search['trials']} trials, best {best} multiply-adds, "
-                    f"{search['seconds']:.0f}/{search['budget_seconds']:.0f} s")
+            return search_line(search["trials"], search.get("best_madds"), search["seconds"],
+                               search["budget_seconds"])
         width = 30
         filled = int(width * p.done / max(1, p.total))
         eta = "?" if p.eta_seconds is None else f"{p.eta_seconds:.0f}s"

@@ -16,7 +16,7 @@ from contraction.execution.slices import keep_freed_memory
 from contraction.network.builder import build_structure
 from contraction.planning.engine_choice import network_plan, plan_fit_elements
 from contraction.planning.estimate import estimate
-from contraction.planning.search import PlannerOptions
+from contraction.planning.search import PlannerOptions, observe_searches
 
 from .common import (
     ProgressBar, bitstrings_from_args, current_settings, fmt_complex, load_circuit_file, local_workers, memory_cap,
@@ -33,13 +33,15 @@ def cmd_amplitudes(args) -> int:
     runner = None
     if settings.dask_scheduler:
         runner = DaskRunner(settings.dask_scheduler)
+    bar = ProgressBar(sys.stderr.isatty())
     try:
-        run = amplitudes(circuit, bitstrings_from_args(args), dtype=args.dtype, engine=args.engine,
-                         planner=PlannerOptions(budget_seconds=budget, parallel=settings.plan_processes), plan_store=plan_store(settings),
-                         memory_bytes=memory_cap(args, settings), workers=settings.workers,
-                         progress=ProgressBar(sys.stderr.isatty()), rate=stored_rate(settings),
-                         open_qubits=qubit_list(args.open, circuit.num_qubits) if args.open else (),
-                         runner=runner)
+        with observe_searches(bar.search):
+            run = amplitudes(circuit, bitstrings_from_args(args), dtype=args.dtype, engine=args.engine,
+                             planner=PlannerOptions(budget_seconds=budget, parallel=settings.plan_processes),
+                             plan_store=plan_store(settings), memory_bytes=memory_cap(args, settings),
+                             workers=settings.workers, progress=bar, rate=stored_rate(settings),
+                             open_qubits=qubit_list(args.open, circuit.num_qubits) if args.open else (),
+                             runner=runner)
     finally:
         if runner is not None:
             runner.close()
@@ -130,9 +132,11 @@ def cmd_estimate(args) -> int:
               f"{settings.calibration_path}", file=sys.stderr)
     rate = load_or_measure(settings.calibration_path)
     budget = args.budget if args.budget is not None else settings.plan_budget_seconds
-    est = estimate(circuit, args.count, dtype=args.dtype, engine=args.engine, rate=rate,
-                   planner=PlannerOptions(budget_seconds=budget, parallel=settings.plan_processes), plan_store=plan_store(settings),
-                   memory_bytes=memory_cap(args, settings), workers=local_workers(settings))
+    with observe_searches(ProgressBar(sys.stderr.isatty()).search):
+        est = estimate(circuit, args.count, dtype=args.dtype, engine=args.engine, rate=rate,
+                       planner=PlannerOptions(budget_seconds=budget, parallel=settings.plan_processes),
+                       plan_store=plan_store(settings), memory_bytes=memory_cap(args, settings),
+                       workers=local_workers(settings))
     doc = est.to_dict()
     if args.format == "json":
         print(json.dumps(doc))
@@ -164,7 +168,8 @@ def cmd_plan(args) -> int:
     before = store.get(structure.key, fit)
     options = PlannerOptions(budget_seconds=args.budget, parallel=settings.plan_processes, whole_budget=True)
     try:
-        plan = network_plan(structure, None, options, share, args.dtype).plan
+        with observe_searches(ProgressBar(sys.stderr.isatty()).search):
+            plan = network_plan(structure, None, options, share, args.dtype).plan
     except MemoryLimitError as exc:
         if workers == 1:
             raise
