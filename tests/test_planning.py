@@ -17,7 +17,7 @@ from contraction.execution.amplitudes import amplitudes
 from contraction.execution.executor import contract_scalar
 from contraction.execution.statevector import state_vector
 from contraction.network.builder import build_structure, tensor_arrays
-from contraction.planning.engine_choice import network_plan
+from contraction.planning.capped_plans import network_plan
 from contraction.planning.estimate import estimate, parse_bytes
 from contraction.planning.rates import MachineRate
 from contraction.planning.search import Plan, PlannerOptions, find_plan
@@ -474,7 +474,7 @@ def test_a_stored_plan_whose_real_peak_exceeds_the_cap_is_not_used():
     """A plan recorded with a peak below what the executor holds (as plans stored before copies were
     counted are) is checked again when read from the store: over the cap it is not used."""
     from contraction.errors import NoStoredPlan
-    from contraction.planning.engine_choice import PLAN_SHARE_OF_CAP
+    from contraction.planning.capped_plans import PLAN_SHARE_OF_CAP
     from contraction.planning.search import executor_peak_elements
 
     s = build_structure(random_instance(grid_architecture(4, 5, 10), 1, gates="discrete"))

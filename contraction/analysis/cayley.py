@@ -31,7 +31,7 @@ from contraction.execution.executor import combine_scaled
 from contraction.execution.slices import Task, make_runner
 from contraction.execution.statevector import state_vector
 from contraction.network.builder import build_structure, resolve_dtype, tensor_arrays
-from contraction.planning.engine_choice import network_plan
+from contraction.planning.capped_plans import network_plan
 from contraction.planning.search import PlannerOptions
 
 

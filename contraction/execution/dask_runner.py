@@ -17,7 +17,7 @@ from typing import Sequence
 from contraction.errors import MemoryLimitError
 from contraction.execution.executor import CancelCheck
 from contraction.execution.slices import SliceResults, Task, TaskDone, keep_freed_memory, run_task, wait_all
-from contraction.planning.engine_choice import Contraction
+from contraction.planning.capped_plans import Contraction
 from contraction.planning.slice_reuse import reuse_budget
 from contraction.planning.stacked_cost import stacked_cost
 

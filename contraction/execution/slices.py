@@ -24,7 +24,7 @@ from contraction.execution.executor import CancelCheck, contract_slice_scaled, s
 from contraction.execution.pairwise import program_for
 from contraction.execution.reuse import SliceContractor
 from contraction.execution.stacked import contract_stacked, row_maps
-from contraction.planning.engine_choice import Contraction
+from contraction.planning.capped_plans import Contraction
 from contraction.planning.slice_reuse import reuse_plan_for
 
 SliceResults = list[tuple[np.ndarray, float]]

@@ -1,4 +1,4 @@
 """Planning: contraction-order search under a memory cap, the plan store, machine rates, the engine
 choice, cost estimates and which intermediates to keep between slices. Nothing here contracts a network."""
 
-__all__ = ["engine_choice", "estimate", "rates", "search", "slice_reuse", "store"]
+__all__ = ["capped_plans", "engine_choice", "estimate", "rates", "search", "slice_reuse", "store"]

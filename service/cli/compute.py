@@ -14,7 +14,7 @@ from contraction.execution.calibration import load_or_measure
 from contraction.execution.dask_runner import DaskRunner
 from contraction.execution.slices import keep_freed_memory
 from contraction.network.builder import build_structure
-from contraction.planning.engine_choice import network_plan, plan_fit_elements
+from contraction.planning.capped_plans import network_plan, plan_fit_elements
 from contraction.planning.estimate import estimate
 from contraction.planning.search import PlannerOptions, observe_searches
 

@@ -30,7 +30,7 @@ from contraction.execution.dask_runner import DaskRunner
 from contraction.execution.executor import combine_scaled
 from contraction.execution.slices import ProcessRunner, Task, split_slices
 from contraction.network.builder import build_structure, tensor_arrays
-from contraction.planning.engine_choice import Contraction
+from contraction.planning.capped_plans import Contraction
 from contraction.planning.search import PlannerOptions, find_plan
 
 

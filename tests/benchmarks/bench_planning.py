@@ -17,7 +17,7 @@ from contraction.execution.amplitudes import amplitudes
 from contraction.execution.calibration import matmul_rate, measure
 from contraction.execution.executor import contract_scalar
 from contraction.network.builder import build_structure, tensor_arrays
-from contraction.planning.engine_choice import network_plan
+from contraction.planning.capped_plans import network_plan
 from contraction.planning.estimate import estimate
 from contraction.planning.search import PlannerOptions
 from contraction.planning.store import MemoryPlanStore
