@@ -436,6 +436,15 @@ def kept_besides(opt, best) -> list:
     return [tree for _, _, tree in getattr(opt, "kept", []) if tree is not best]
 
 
+#: subtree reconfigurations per slicing round inside a trial. Fewer make trials cheaper and more of them
+#: fit the budget: the 53-qubit 12-cycle network at 2^27, 90 s of search on two processes, best trial
+#: (log10 multiply-adds, sliced) with 64: 13.53, 13.66, 14.09 (65-78 trials); with 16: 13.29, 13.55,
+#: 12.98, 13.75 (100-156 trials); with 8: 13.70, 13.28, 13.31 (121-176 trials); with 4: 13.77 (70).
+#: Whole 300 s plans (find_plan, seeds 0-2, after refinement and fusion): with 64 10^13.047, 13.316,
+#: 12.983 (197-230 trials); with 16 10^13.101, 13.021, 13.054 (410-467 trials), measured the same day
+IN_TRIAL_RECONF_ITERATIONS = 16
+
+
 def _search(inputs, output, sizes, options: PlannerOptions, methods, deadline: float, target, width_log2: float,
             grace: float = 1.0, t0: float = 0.0):
     """The hyper-optimized search on (inputs, output, sizes) until ``deadline`` (see
@@ -448,7 +457,8 @@ def _search(inputs, output, sizes, options: PlannerOptions, methods, deadline: f
     # sliced afterwards.
     slicing_reconf = None
     if target is not None and width_log2 - math.log2(target) <= IN_TRIAL_SLICING_LOG2:
-        slicing_reconf = dict(target_size=target, allow_outer=False, reconf_opts=dict(maxiter=64))
+        slicing_reconf = dict(target_size=target, allow_outer=False,
+                              reconf_opts=dict(maxiter=IN_TRIAL_RECONF_ITERATIONS))
         if "kahypar" in methods:
             methods = ["kahypar"]
     with _worker_pool(options) as pool:
