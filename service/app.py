@@ -143,7 +143,7 @@ def create_app(settings: Settings | None = None, database_checked: bool = False)
 
     @app.exception_handler(VerampError)
     async def engine_error(_req, exc: VerampError):
-        return engine_error_response(exc)
+        return engine_error_response(exc, settings.run_share_note())
 
     @app.exception_handler(HTTPException)
     async def http_error(_req, exc: HTTPException):

@@ -6,7 +6,7 @@ from __future__ import annotations
 
 from fastapi.responses import JSONResponse
 
-from contraction.errors import Busy, VerampError
+from contraction.errors import Busy, MemoryLimitError, VerampError
 
 #: HTTP status of each error kind; every other kind of :class:`VerampError` is a 422
 STATUS_BY_KIND = {
@@ -24,9 +24,11 @@ def error_response(status: int, kind: str, message: str, headers: dict | None = 
     return JSONResponse(body, status_code=status, headers=headers)
 
 
-def engine_error_response(exc: VerampError) -> JSONResponse:
-    """The answer to any :class:`VerampError` raised while serving a request."""
+def engine_error_response(exc: VerampError, memory_note: str = "") -> JSONResponse:
+    """The answer to any :class:`VerampError` raised while serving a request; ``memory_note`` is added
+    to a refusal for memory (how the cap is shared)."""
     headers = {"Retry-After": str(exc.retry_after)} if isinstance(exc, Busy) else None
-    return error_response(STATUS_BY_KIND.get(exc.kind, 422), exc.kind, str(exc), headers,
+    message = str(exc) + (memory_note if isinstance(exc, MemoryLimitError) else "")
+    return error_response(STATUS_BY_KIND.get(exc.kind, 422), exc.kind, message, headers,
                           line=getattr(exc, "line", None), column=getattr(exc, "column", None),
                           limit=getattr(exc, "limit", None))

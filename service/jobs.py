@@ -16,7 +16,7 @@ import uuid
 
 from sqlalchemy import func, or_, select, update
 
-from contraction.errors import Busy, Cancelled, VerampError
+from contraction.errors import Busy, Cancelled, MemoryLimitError, VerampError
 from contraction.execution.slices import worker_context
 from contraction.planning.rates import read_rate
 from contraction.planning.search import PlannerOptions, SearchProgress, observe_searches
@@ -44,8 +44,9 @@ def _init_worker() -> None:
 
 
 def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_scheduler: str | None = None,
-            calibration_path: str | None = None) -> dict:
-    """Run one job to completion in a worker process; all state goes through the database."""
+            calibration_path: str | None = None, memory_note: str = "") -> dict:
+    """Run one job to completion in a worker process; all state goes through the database.
+    ``memory_note`` is added to a refusal for memory (how the cap is shared)."""
     from .compute import compute, load_circuit, versions
 
     sessions = session_factory(make_engine(db_url))
@@ -131,7 +132,7 @@ def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_s
     except Cancelled:
         status = "cancelled"
     except VerampError as exc:
-        status, error = "failed", str(exc)
+        status, error = "failed", str(exc) + (memory_note if isinstance(exc, MemoryLimitError) else "")
     except MemoryError:
         status, error = "failed", "out of memory"
     except Exception as exc:  # a bug: keep the service alive and say what happened
@@ -184,7 +185,7 @@ class JobManager:
     def _submit(self, job_id: str) -> None:
         fut = self.pool.submit(run_job, job_id, self.settings.sqlalchemy_url, self.settings.run_memory_bytes,
                                self.settings.plan_budget_seconds, self.settings.dask_scheduler,
-                               str(self.settings.calibration_path))
+                               str(self.settings.calibration_path), self.settings.run_share_note())
         with self._lock:
             self._active[job_id] = fut
         fut.add_done_callback(lambda f, j=job_id: self._done(j, f))

@@ -59,6 +59,14 @@ class Settings(BaseSettings):
             return self.memory_bytes
         return max(1, self.memory_bytes // (self.server_workers * max(1, self.workers)))
 
+    def run_share_note(self) -> str:
+        """Said after a refusal for memory when runs share the cap (empty when one run has it all)."""
+        slots = self.server_workers * max(1, self.workers)
+        if self.dask_scheduler or slots == 1:
+            return ""
+        return (f" (VERAMP_MEMORY_BYTES={self.memory_bytes} is shared by up to {slots} jobs running side by "
+                f"side: {self.run_memory_bytes} bytes each)")
+
     @property
     def plan_dir(self) -> Path:
         """Directory of the CLI's plan store."""

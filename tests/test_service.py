@@ -386,3 +386,9 @@ def test_jobs_side_by_side_share_the_memory_cap(tmp_path):
         if workers * server_workers > 1:
             assert est["peak_bytes"] < whole["peak_bytes"]
     assert Settings(memory_bytes=cap, workers=4, dask_scheduler="tcp://127.0.0.1:1").run_memory_bytes == cap
+    # a refusal for memory says how the cap is shared
+    s = make_settings(tmp_path / "tiny", memory_bytes=1000, workers=2)
+    with TestClient(create_app(s)) as c:
+        r = c.post("/v1/estimates", json=body)
+    assert r.status_code == 413 and r.json()["error"] == "memory_limit"
+    assert "VERAMP_MEMORY_BYTES=1000 is shared by up to 2 jobs running side by side: 500 bytes each" in r.json()["message"]
