@@ -391,4 +391,5 @@ def test_jobs_side_by_side_share_the_memory_cap(tmp_path):
     with TestClient(create_app(s)) as c:
         r = c.post("/v1/estimates", json=body)
     assert r.status_code == 413 and r.json()["error"] == "memory_limit"
-    assert "VERAMP_MEMORY_BYTES=1000 is shared by up to 2 jobs running side by side: 500 bytes each" in r.json()["message"]
+    assert ("VERAMP_MEMORY_BYTES=1000 is shared by up to 2 jobs running side by side: 500 bytes each"
+            in r.json()["message"])
