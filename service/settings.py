@@ -50,22 +50,23 @@ class Settings(BaseSettings):
                                                          "batch chunks of jobs run there instead of locally")
 
     @property
+    def job_slots(self) -> int:
+        """Jobs that may contract side by side on this machine: ``server_workers`` x ``workers``; 1 with a
+        Dask cluster, where each task runs alone on a worker (one thread)."""
+        return 1 if self.dask_scheduler else self.server_workers * max(1, self.workers)
+
+    @property
     def run_memory_bytes(self) -> int:
-        """The cap one service run (a job, or a request answered at once) plans and contracts within.
-        Contracting locally, up to ``server_workers`` x ``workers`` jobs run side by side on this machine
-        and share ``memory_bytes`` equally; on a Dask cluster each task runs alone on a worker (one
-        thread) under the whole cap."""
-        if self.dask_scheduler:
-            return self.memory_bytes
-        return max(1, self.memory_bytes // (self.server_workers * max(1, self.workers)))
+        """The cap one service run (a job, or a request answered at once) plans and contracts within: an
+        equal share of ``memory_bytes`` for each of the :attr:`job_slots`."""
+        return max(1, self.memory_bytes // self.job_slots)
 
     def run_share_note(self) -> str:
         """Said after a refusal for memory when runs share the cap (empty when one run has it all)."""
-        slots = self.server_workers * max(1, self.workers)
-        if self.dask_scheduler or slots == 1:
+        if self.job_slots == 1:
             return ""
-        return (f" (VERAMP_MEMORY_BYTES={self.memory_bytes} is shared by up to {slots} jobs running side by "
-                f"side: {self.run_memory_bytes} bytes each)")
+        return (f" (VERAMP_MEMORY_BYTES={self.memory_bytes} is shared by up to {self.job_slots} jobs running "
+                f"side by side: {self.run_memory_bytes} bytes each)")
 
     @property
     def plan_dir(self) -> Path:
