@@ -10,6 +10,7 @@ from __future__ import annotations
 import concurrent.futures as cf
 import json
 import logging
+import os
 import threading
 import time
 import uuid
@@ -37,10 +38,12 @@ STALE_SECONDS = 30.0
 SEARCH_REPORT_SECONDS = 2.0
 
 
-def _init_worker() -> None:
+def _init_worker(owner: int | None = None) -> None:
     from contraction.execution.slices import prepare_contraction_process
 
-    prepare_contraction_process()        # a job process contracts: one BLAS thread, freed memory kept
+    # a job process contracts: one BLAS thread, freed memory kept; it ends with the server process
+    # (a killed server's jobs are queued again on restart, and must not also go on running here)
+    prepare_contraction_process(owner)
 
 
 def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_scheduler: str | None = None,
@@ -160,8 +163,8 @@ class JobManager:
         self._active: dict[str, cf.Future] = {}
         self._closing = False                   # set by shutdown(): dying workers are not failures then
         self._stop = threading.Event()          # ends the sweeper
-        self.pool = cf.ProcessPoolExecutor(max_workers=max(1, settings.workers),
-                                           mp_context=worker_context(), initializer=_init_worker)
+        self.pool = cf.ProcessPoolExecutor(max_workers=max(1, settings.workers), mp_context=worker_context(),
+                                           initializer=_init_worker, initargs=(os.getpid(),))
 
     @property
     def depth(self) -> int:
@@ -207,7 +210,7 @@ class JobManager:
                 if getattr(self.pool, "_broken", False):
                     self.pool = cf.ProcessPoolExecutor(max_workers=max(1, self.settings.workers),
                                                        mp_context=worker_context(),
-                                                       initializer=_init_worker)
+                                                       initializer=_init_worker, initargs=(os.getpid(),))
             return
         if self.on_finish is not None and not fut.cancelled():
             try:

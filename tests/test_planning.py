@@ -8,6 +8,8 @@ one complex add = 2 adds: common practice); bytes = elements x itemsize (numpy d
 
 import dataclasses
 import json
+import math
+import time
 
 import pytest
 
@@ -101,6 +103,60 @@ def test_cancelling_a_pool_run_stops_the_tasks_its_workers_hold(circuit):
     while set(mp.active_children()) - before and time.perf_counter() < deadline:
         time.sleep(0.1)
     assert not set(mp.active_children()) - before
+
+
+OWNER_SCRIPT = """
+import concurrent.futures as cf, os, sys, time
+from contraction.execution.slices import prepare_contraction_process, worker_context
+
+def busy(path):
+    with open(path + ".tmp", "w") as fh:
+        fh.write(str(os.getpid()))
+    os.replace(path + ".tmp", path)
+    t = time.time()
+    while time.time() - t < 120:          # a long task, computing (not waiting on the pool)
+        sum(range(10000))
+
+if __name__ == "__main__":
+    pool = cf.ProcessPoolExecutor(1, mp_context=worker_context(), initializer=prepare_contraction_process,
+                                  initargs=(os.getpid(),))
+    pool.submit(busy, sys.argv[1]).result()
+"""
+
+
+def test_a_worker_ends_when_the_process_it_works_for_is_killed(tmp_path):
+    """A contraction worker whose owner is killed outright (SIGKILL: no clean-up of the owner runs)
+    ends within seconds instead of computing its task to the end (common practice for worker pools;
+    no outside source). The worker is alive while its owner is."""
+    import os
+    import signal
+    import subprocess
+    import sys
+
+    from contraction.execution.slices import _gone
+
+    script, pidfile = tmp_path / "owner.py", tmp_path / "worker.pid"
+    script.write_text(OWNER_SCRIPT)
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join(p for p in sys.path if p)}
+    owner = subprocess.Popen([sys.executable, str(script), str(pidfile)], env=env)
+    worker = None
+    try:
+        t0 = time.monotonic()
+        while not pidfile.exists() and time.monotonic() - t0 < 60 and owner.poll() is None:
+            time.sleep(0.1)
+        worker = int(pidfile.read_text())
+        time.sleep(1.5)
+        assert not _gone(worker)                       # working while its owner lives
+        owner.kill()
+        owner.wait()
+        t0 = time.monotonic()
+        while not _gone(worker) and time.monotonic() - t0 < 20:
+            time.sleep(0.2)
+        assert _gone(worker)
+    finally:
+        owner.kill()
+        if worker is not None and not _gone(worker):
+            os.kill(worker, signal.SIGKILL)
 
 
 def test_memory_cap_is_never_exceeded(circuit):
@@ -261,6 +317,44 @@ def test_a_failing_observer_does_not_stop_the_search():
     with observe_searches(broken):
         plan = find_plan(s, PlannerOptions(budget_seconds=0.5))
     assert plan.madds > 0
+
+
+@pytest.mark.skipif(not __import__("contraction.planning.search", fromlist=["x"]).kahypar_available(),
+                    reason="partition trees need kahypar")
+def test_trials_are_sliced_when_partition_trees_come_within_reach_of_the_target(monkeypatch):
+    """The greedy tree can be far wider than the search's trees (53 qubits, 14 cycles: 2^44 against
+    2^36 for partition trees); scoring trials unsliced there left plans 2.5-4.6x costlier after slicing.
+    When the greedy width is over 2^12 above the target, a few partition trees decide whether trials
+    are sliced to the target. Checked on a 5x6 grid, 14 cycles, against cotengra's own greedy tree (a
+    general-purpose reference library): the probe is never wider than it, and the search gets in-trial
+    slicing exactly when the probed width is within 2^12 of the target."""
+    from contraction.network.simplify import simplify_structure
+    from contraction.planning import search
+
+    structure = build_structure(random_instance(grid_architecture(5, 6, 14), 1, gates="discrete"))
+    red = simplify_structure(structure)
+    greedy = search.quick_tree(structure)
+    probed = search._probe_width(red.inputs, red.output, red.size_dict, time.perf_counter() + 10.0)
+    assert math.isfinite(probed) and probed <= math.log2(greedy.max_size())
+
+    seen = []
+    real = search._keeping_optimizer
+
+    def spy(**kw):
+        seen.append(kw["slicing_reconf_opts"])
+        return real(**{**kw, "max_repeats": 2})
+
+    monkeypatch.setattr(search, "_keeping_optimizer", spy)
+    target = 2 ** 10
+    far = math.log2(target) + search.IN_TRIAL_SLICING_LOG2 + 5          # the greedy width handed in
+    opts = PlannerOptions(budget_seconds=5.0, minimize="flops")
+    for probe, sliced in ((math.log2(target) + 4, True), (far, False)):
+        monkeypatch.setattr(search, "_probe_width", lambda *a, w=probe: w)
+        search._search(red.inputs, red.output, red.size_dict, opts, ["greedy", "kahypar"],
+                       time.perf_counter() + 2.0, target, far)
+        assert (seen[-1] is not None) == sliced
+        if sliced:
+            assert seen[-1]["target_size"] == target
 
 
 def test_a_plan_needing_astronomically_many_slices_is_refused_as_not_feasible():

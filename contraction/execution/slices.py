@@ -13,6 +13,9 @@ from __future__ import annotations
 import concurrent.futures as cf
 import ctypes
 import multiprocessing as mp
+import os
+import threading
+import time
 from dataclasses import dataclass
 from typing import Callable, Protocol, Sequence
 
@@ -115,17 +118,56 @@ def keep_freed_memory() -> None:
         pass
 
 
-def prepare_contraction_process() -> None:
+#: seconds between two checks by a worker process that the process it works for is still there
+OWNER_CHECK_SECONDS = 1.0
+
+
+def _gone(pid: int) -> bool:
+    """Whether process ``pid`` has ended (a zombie waiting to be reaped counts as ended)."""
+    try:
+        with open(f"/proc/{pid}/stat", "rb") as fh:
+            return fh.read().rsplit(b")", 1)[-1].split()[0] == b"Z"
+    except FileNotFoundError:
+        return True
+    except OSError:                          # no /proc here: ask the kernel whether the pid exists
+        try:
+            os.kill(pid, 0)
+        except ProcessLookupError:
+            return True
+        except PermissionError:
+            pass
+        return False
+
+
+def exit_with(owner: int) -> None:
+    """End this worker process, whatever it is computing, within :data:`OWNER_CHECK_SECONDS` of the
+    process ``owner`` it works for ending. A pool's workers otherwise outlive an owner that was killed:
+    a 53-qubit run stopped with SIGTERM left its two workers contracting at full speed on both cores
+    for over 20 minutes (their task was a quarter of the slices), and a service restarted after a
+    crash would run a requeued job beside the orphan still running it, over the memory cap."""
+
+    def watch() -> None:
+        while not _gone(owner):
+            time.sleep(OWNER_CHECK_SECONDS)
+        os._exit(70)                        # nothing of this process's work is wanted any more
+
+    threading.Thread(target=watch, name="veramp-owner-watch", daemon=True).start()
+
+
+def prepare_contraction_process(owner: int | None = None) -> None:
     """Set up a process whose work is contracting: one BLAS thread (processes, not threads, run side by
-    side) and freed memory kept for the next step (:func:`keep_freed_memory`)."""
+    side) and freed memory kept for the next step (:func:`keep_freed_memory`); with ``owner`` (the pid
+    of the process it works for), it ends when that process does (:func:`exit_with`)."""
     from threadpoolctl import threadpool_limits
 
     threadpool_limits(1)
     keep_freed_memory()
+    if owner is not None:
+        exit_with(owner)
 
 
-def _init_worker(tree) -> None:
-    prepare_contraction_process()
+def _init_worker(tree, owner: int | None = None) -> None:
+    prepare_contraction_process(owner)
     _worker_state["tree"] = tree
 
 
@@ -160,7 +202,7 @@ class ProcessRunner:
         ctx = worker_context()
         # the tree travels to each worker once (pickled between our own processes), not rebuilt there
         pool = cf.ProcessPoolExecutor(max_workers=self.workers, mp_context=ctx, initializer=_init_worker,
-                                      initargs=(contraction.tree,))
+                                      initargs=(contraction.tree, os.getpid()))
         try:
             wait_all(lambda t: pool.submit(_run_in_worker, t), tasks, done, cancelled,
                      lambda futures: [f.cancel() for f in futures])
