@@ -445,10 +445,39 @@ def kept_besides(opt, best) -> list:
 IN_TRIAL_RECONF_ITERATIONS = 16
 
 
+#: when the greedy tree is too wide for slicing inside trials, this share of the search time (at most
+#: ``PROBE_TRIALS`` trials) goes to partition trees that tell whether the search's trees are narrower.
+#: The 53-qubit 14-cycle network at 2^27 (300 s plans): its greedy tree is 2^44 wide, 2^17 above the
+#: target, partition trees 2^36; with trials scored unsliced and the best tree sliced afterwards,
+#: 10^13.106 and 10^13.387 multiply-adds (256 and 512 slices, overheads 2.5 and 4.6); with the probe
+#: turning in-trial slicing on, 10^12.733 (64 slices, overhead 1.02)
+PROBE_SHARE = 0.05
+PROBE_TRIALS = 8
+#: networks smaller than this are not probed (their searches are short and the greedy width is close)
+PROBE_MIN_TENSORS = 64
+
+
+def _probe_width(inputs, output, sizes, deadline: float) -> float:
+    """log2 of the narrowest of up to ``PROBE_TRIALS`` kahypar partition trees of the network built
+    before ``deadline`` in this process (17-19 s for eight at 53 qubits; a trial started before the
+    deadline runs to its end); infinity when none was built."""
+    import cotengra as ctg
+
+    opt = ctg.HyperOptimizer(methods=["kahypar"], minimize="size", max_repeats=PROBE_TRIALS,
+                             max_time=max(0.05, deadline - time.perf_counter()), parallel=False, progbar=False,
+                             on_trial_error="ignore", optlib="random")
+    try:
+        tree = opt.search(inputs, output, sizes)
+    except (ValueError, KeyError, RuntimeError):
+        return math.inf
+    return math.log2(max(2, tree.max_size()))
+
+
 def _search(inputs, output, sizes, options: PlannerOptions, methods, deadline: float, target, width_log2: float,
             grace: float = 1.0, t0: float = 0.0):
     """The hyper-optimized search on (inputs, output, sizes) until ``deadline`` (see
-    :func:`_run_search`). When the greedy baseline's width is within 2^12 of ``target``, every trial
+    :func:`_run_search`). When the greedy baseline's width (or, when that is far above ``target``, the
+    narrowest of a few partition trees: :func:`_probe_width`) is within 2^12 of ``target``, every trial
     is scored after slicing to it, so the tree is chosen for the cap, not sliced after the fact."""
     # slicing interleaved with a bounded subtree reconfiguration inside each trial: on the 53-qubit
     # 12-cycle network at a 2^28 target it reached 10^13.66 multiply-adds in 60 s against 10^13.91
@@ -456,6 +485,11 @@ def _search(inputs, output, sizes, options: PlannerOptions, methods, deadline: f
     # the target trials are scored unsliced (one trial sliced for 48 s there) and the best tree is
     # sliced afterwards.
     slicing_reconf = None
+    if (target is not None and width_log2 - math.log2(target) > IN_TRIAL_SLICING_LOG2 and "kahypar" in methods
+            and len(inputs) >= PROBE_MIN_TENSORS):
+        # the greedy tree is a poor guide to the widths the search reaches: a few partition trees tell
+        probe_end = time.perf_counter() + PROBE_SHARE * (deadline - time.perf_counter())
+        width_log2 = min(width_log2, _probe_width(inputs, output, sizes, probe_end))
     if target is not None and width_log2 - math.log2(target) <= IN_TRIAL_SLICING_LOG2:
         slicing_reconf = dict(target_size=target, allow_outer=False,
                               reconf_opts=dict(maxiter=IN_TRIAL_RECONF_ITERATIONS))
