@@ -345,6 +345,7 @@ def test_trials_are_sliced_when_partition_trees_come_within_reach_of_the_target(
         return real(**{**kw, "max_repeats": 2})
 
     monkeypatch.setattr(search, "_keeping_optimizer", spy)
+    monkeypatch.setattr(search, "PROBE_MIN_SECONDS", 0.0)            # the 2 s search below is probed too
     target = 2 ** 10
     far = math.log2(target) + search.IN_TRIAL_SLICING_LOG2 + 5          # the greedy width handed in
     opts = PlannerOptions(budget_seconds=5.0, minimize="flops")

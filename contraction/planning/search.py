@@ -450,22 +450,31 @@ IN_TRIAL_RECONF_ITERATIONS = 16
 #: The 53-qubit 14-cycle network at 2^27 (300 s plans): its greedy tree is 2^44 wide, 2^17 above the
 #: target, partition trees 2^36; with trials scored unsliced and the best tree sliced afterwards,
 #: 10^13.106 and 10^13.387 multiply-adds (256 and 512 slices, overheads 2.5 and 4.6); with the probe
-#: turning in-trial slicing on, 10^12.733 (64 slices, overhead 1.02)
+#: turning in-trial slicing on, 10^12.733 (64 slices, overhead 1.02) and 10^13.088 (256, 1.88). Those
+#: runs probed with reconfigured trees (2^36, 17-19 s for eight); plain partition trees, used now, give
+#: 2^37 there: the same decision at a bounded cost per trial
 PROBE_SHARE = 0.05
 PROBE_TRIALS = 8
 #: networks smaller than this are not probed (their searches are short and the greedy width is close)
 PROBE_MIN_TENSORS = 64
+#: nor searches whose probe share is shorter than this (seconds): a trial that starts before the
+#: probe's end runs to its own (1.7-2 s at 53 qubits, up to 6 s on a 32-qubit quantum-volume network
+#: of 466 tensors), and it must stay well inside the search's time
+PROBE_MIN_SECONDS = 10.0
 
 
 def _probe_width(inputs, output, sizes, deadline: float) -> float:
     """log2 of the narrowest of up to ``PROBE_TRIALS`` kahypar partition trees of the network built
-    before ``deadline`` in this process (17-19 s for eight at 53 qubits; a trial started before the
-    deadline runs to its end); infinity when none was built."""
+    before ``deadline`` in this process (a trial started before the deadline runs to its end; 15 s
+    windows took 13.6-16.4 s at 53 qubits, giving 2^38 at 12 cycles and 2^37 at 14, and 21 s on a 32-qubit
+    quantum-volume network); infinity when none was built."""
     import cotengra as ctg
 
+    # plain partition trees (no reconfiguration): a trial is then a few kahypar calls, bounded on any network
     opt = ctg.HyperOptimizer(methods=["kahypar"], minimize="size", max_repeats=PROBE_TRIALS,
                              max_time=max(0.05, deadline - time.perf_counter()), parallel=False, progbar=False,
-                             on_trial_error="ignore", optlib="random")
+                             on_trial_error="ignore", optlib="random", reconf_opts=None, slicing_opts=None,
+                             slicing_reconf_opts=None, simulated_annealing_opts=None)
     try:
         tree = opt.search(inputs, output, sizes)
     except (ValueError, KeyError, RuntimeError):
@@ -485,11 +494,11 @@ def _search(inputs, output, sizes, options: PlannerOptions, methods, deadline: f
     # the target trials are scored unsliced (one trial sliced for 48 s there) and the best tree is
     # sliced afterwards.
     slicing_reconf = None
+    probe = PROBE_SHARE * (deadline - time.perf_counter())
     if (target is not None and width_log2 - math.log2(target) > IN_TRIAL_SLICING_LOG2 and "kahypar" in methods
-            and len(inputs) >= PROBE_MIN_TENSORS):
+            and len(inputs) >= PROBE_MIN_TENSORS and probe >= PROBE_MIN_SECONDS):
         # the greedy tree is a poor guide to the widths the search reaches: a few partition trees tell
-        probe_end = time.perf_counter() + PROBE_SHARE * (deadline - time.perf_counter())
-        width_log2 = min(width_log2, _probe_width(inputs, output, sizes, probe_end))
+        width_log2 = min(width_log2, _probe_width(inputs, output, sizes, time.perf_counter() + probe))
     if target is not None and width_log2 - math.log2(target) <= IN_TRIAL_SLICING_LOG2:
         slicing_reconf = dict(target_size=target, allow_outer=False,
                               reconf_opts=dict(maxiter=IN_TRIAL_RECONF_ITERATIONS))
