@@ -101,7 +101,7 @@ def run_job(job_id: str, db_url: str, memory_bytes: float, budget: float, dask_s
     def on_search(p: SearchProgress) -> None:
         # every report of a search's start and end, at most one every SEARCH_REPORT_SECONDS in between
         now = time.monotonic()
-        if p.trials and 0 < p.seconds < p.budget_seconds and now - last_search[0] < SEARCH_REPORT_SECONDS:
+        if p.trials and not p.final and now - last_search[0] < SEARCH_REPORT_SECONDS:
             return
         last_search[0] = now
         doc = {"trials": p.trials, "best_madds": p.best_madds, "seconds": round(p.seconds, 2),

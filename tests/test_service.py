@@ -369,7 +369,8 @@ def test_jobs_side_by_side_share_the_memory_cap(tmp_path):
     """Up to server_workers x workers jobs contract side by side on one machine; each plans within an
     equal share of VERAMP_MEMORY_BYTES, so together they stay under it (with a Dask cluster each task
     runs alone on a worker, under the whole cap). A 4x4 grid network's unsliced peak P is measured
-    first; under a cap of 1.5 P one job slot fits it whole, two slots each get 0.75 P."""
+    first; under a cap of 1.5 P one job slot fits it whole, two slots each get 0.75 P. (The sharing rule
+    is this project's own; no outside source.)"""
     grid = random_instance(grid_architecture(4, 4, 8), seed=2)
     body = {"circuit": {"qasm": write_qasm3(grid)}, "count": 1, "engine": "single"}
     with TestClient(create_app(make_settings(tmp_path / "a"))) as c:
