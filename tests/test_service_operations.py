@@ -315,6 +315,9 @@ def test_two_server_workers_share_the_queue(tmp_path):
             rows = httpx.get(f"{base}/v1/jobs/{job}/results", timeout=30).json()["results"]
             for row in rows:
                 assert abs(complex(*row["amplitude"]) - psi[int(row["bitstring"], 2)]) < 1e-10
+    except Exception:
+        print((data / "server.log").read_text(errors="replace")[-20000:])   # what the server said
+        raise
     finally:
         os.killpg(proc.pid, signal.SIGTERM)
         proc.wait(timeout=30)

@@ -7,6 +7,7 @@ import signal
 import subprocess
 import sys
 import time
+from pathlib import Path
 
 import httpx
 import pytest
@@ -23,9 +24,11 @@ from .test_service import RATE
 def start(data_dir, port, *extra: str):
     env = {**os.environ, "VERAMP_WORKERS": "1", "VERAMP_PLAN_BUDGET_SECONDS": "0.5",
            "VERAMP_SYNC_THRESHOLD_SECONDS": "0"}
-    proc = subprocess.Popen([sys.executable, "-m", "service.cli", "serve", "--port", str(port),
-                             "--data-dir", str(data_dir), *extra], env=env, start_new_session=True,
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    # the server's own messages go to server.log beside its data (read by a test that fails)
+    with open(Path(data_dir) / "server.log", "ab") as log:
+        proc = subprocess.Popen([sys.executable, "-m", "service.cli", "serve", "--port", str(port),
+                                 "--data-dir", str(data_dir), *extra], env=env, start_new_session=True,
+                                stdout=log, stderr=log)
     for _ in range(200):
         try:
             if httpx.get(f"http://127.0.0.1:{port}/v1/health", timeout=0.5).status_code == 200:

@@ -15,6 +15,12 @@ from ..settings import Settings
 from .common import UsageError
 
 
+#: seconds a uvicorn worker process may take to answer its supervisor's health check before it is
+#: killed with the connections it holds (uvicorn's default is 5 s; a loaded 2-core machine planning in
+#: request threads must not lose requests to it)
+WORKER_HEALTHCHECK_SECONDS = 30
+
+
 def cmd_serve(args) -> int:
     """``veramp serve``: check the database, warn or refuse when exposed without tokens, then serve."""
     overrides = {}
@@ -46,7 +52,8 @@ def cmd_serve(args) -> int:
         for name, value in overrides.items():
             os.environ[f"VERAMP_{name.upper()}"] = str(value)
         uvicorn.run("service.app:app_from_environment", factory=True, workers=server_workers, host=host, port=port,
-                    log_level="warning", timeout_graceful_shutdown=5)
+                    log_level="warning", timeout_graceful_shutdown=5,
+                    timeout_worker_healthcheck=WORKER_HEALTHCHECK_SECONDS)
         return 0
     uvicorn.run(create_app(settings, database_checked=True), host=host, port=port, log_level="warning",
                 timeout_graceful_shutdown=5)
