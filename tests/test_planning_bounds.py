@@ -134,3 +134,50 @@ def test_a_plan_searched_ahead_of_time_uses_the_whole_budget(search_deadline):
     seen.clear()
     search.find_plan(s, PlannerOptions(budget_seconds=100.0, expected_runs=10 ** 6))
     assert seen["seconds"] > 0.9 * search.SEARCH_SHARE * 100.0 - 1.0
+
+
+def test_a_pool_gives_way_to_one_worker_with_the_whole_cap_when_that_is_predicted_faster():
+    # the project's own rule (no outside source): a pool splits the memory cap, so a stored plan that
+    # fits the whole cap but not a share would be sliced further at any cost; the choice compares the
+    # pool with one worker holding the whole cap, from stored plans only, and takes the faster
+    from dataclasses import replace
+
+    from contraction.circuits.random_instances import grid_architecture, random_instance
+    from contraction.execution import amplitudes as amp
+    from contraction.planning.engine_choice import choose
+    from contraction.planning.store import MemoryPlanStore
+
+    c = random_instance(grid_architecture(4, 5, 10), 1, gates="haar")
+    plan = find_plan(build_structure(c), PlannerOptions(budget_seconds=1.0, seed=0))
+    store = MemoryPlanStore()
+    store.put(plan)
+    cap = plan.peak_bytes("complex128") * 1.1
+    kw = dict(engine="single", dtype="complex128", rate=None, memory_bytes=cap, open_qubits=(), bitstrings=None)
+    alone = choose(c, 1, store=store, search=False, workers=1, **{k: v for k, v in kw.items() if k != "open_qubits"})
+    assert alone.chosen.plan.nslices == plan.nslices               # the stored plan, as it is
+    slow_pool = replace(alone, chosen=replace(alone.chosen, seconds=alone.chosen.seconds * 1e6))
+    fast_pool = replace(alone, chosen=replace(alone.chosen, seconds=alone.chosen.seconds / 2))
+    picked = amp._one_worker(c, slow_pool, store=store, **kw)
+    assert picked is not None and picked.chosen.seconds == alone.chosen.seconds
+    assert amp._one_worker(c, fast_pool, store=store, **kw) is None
+    assert amp._one_worker(c, slow_pool, store=None, **kw) is None      # nothing stored to compare with
+    # through amplitudes(): a pool whose choice is predicted slower runs on one worker, with the values
+    # of the numpy state vector (the reference)
+    psi = state_vector(c)
+    seen = []
+    original = amp.choose
+
+    def pooled_is_slow(*a, **k):
+        ch = original(*a, **k)
+        return replace(ch, chosen=replace(ch.chosen, seconds=ch.chosen.seconds * 1e6)) if k.get("workers", 1) > 1 else ch
+
+    amp.choose, saved = pooled_is_slow, amp.choose
+    try:
+        run = amplitudes(c, ["0" * 20, "1" * 20], dtype="complex128", engine="single", plan_store=store,
+                         memory_bytes=cap, workers=2, planner=PlannerOptions(budget_seconds=0.5, seed=0),
+                         on_choice=seen.append)
+    finally:
+        amp.choose = saved
+    assert "one worker with the whole memory cap" in run.reason and seen[0] is not None
+    for r in run.results:
+        assert abs(r.amplitude - psi[int(r.bitstring, 2)]) < 1e-10

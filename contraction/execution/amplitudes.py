@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import logging
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Callable, Iterable, Sequence
 
 import numpy as np
@@ -23,6 +23,7 @@ import numpy as np
 from contraction import defaults
 from contraction.circuits.bitstrings import bit_table, check_bitstrings
 from contraction.circuits.model import Circuit
+from contraction.errors import VerampError
 from contraction.execution.executor import CancelCheck, Progress, ProgressCallback, combine_scaled
 from contraction.execution.slices import ProcessRunner, Runner, Task, make_runner, split_slices
 from contraction.execution.stacked import batch_inputs
@@ -105,6 +106,16 @@ def amplitudes(circuit: Circuit, bitstrings: Iterable[str], *, dtype: str = "com
         choice = choose(circuit, len(groups), engine=engine, dtype=dtype, rate=rate, store=plan_store,
                         planner=planner, memory_bytes=memory_bytes, open_qubits=open_qubits, workers=local,
                         bitstrings=None if open_qubits else list(groups))
+    if runner is None and local > 1 and choice.engine != "statevector" and \
+            choice.chosen.seconds >= FEWER_WORKERS_MIN_SECONDS:
+        alone = _one_worker(circuit, choice, engine=engine, dtype=dtype, rate=rate, store=plan_store,
+                            memory_bytes=memory_bytes, open_qubits=open_qubits,
+                            bitstrings=None if open_qubits else list(groups))
+        if alone is not None:
+            choice = replace(alone, reason=f"{alone.reason}; one worker with the whole memory cap predicted "
+                                           f"{alone.chosen.seconds:.3g} s against {choice.chosen.seconds:.3g} s "
+                                           f"for {local} workers sharing it")
+            workers = local = 1
     if on_choice is not None:
         on_choice(choice)
     found: dict[str, complex] = {}
@@ -134,6 +145,29 @@ def amplitudes(circuit: Circuit, bitstrings: Iterable[str], *, dtype: str = "com
     return AmplitudeRun([Amplitude(b, found[b]) for b in bits], choice.engine, choice.reason, dtype,
                         time.perf_counter() - t0, o.plan, o.plan_cached, o.batch, max(1, o.chunks), o.madds,
                         o.seconds, choice.predictions())
+
+
+#: a pool's choice is compared with one worker holding the whole cap only when predicted at this many
+#: seconds or more (the comparison reads the stored plans again: not worth it for short requests)
+FEWER_WORKERS_MIN_SECONDS = 1.0
+
+
+def _one_worker(circuit: Circuit, pooled: Choice, **kw) -> Choice | None:
+    """The choice for one worker with the whole memory cap, from stored plans only (nothing searched),
+    when it is predicted faster than ``pooled`` (made for a pool sharing the cap); else None.
+
+    A pool splits the cap, and a stored plan that fits the whole cap but not a share is sliced further
+    at whatever cost: a 53-qubit 14-cycle plan of 64 slices (predicted 1,866 s on one worker) became
+    16,777,216 slices for two workers (predicted 1.9e7 s), and ran."""
+    if kw.get("store") is None:
+        return None
+    try:
+        alone = choose(circuit, pooled.count, search=False, workers=1, **kw)
+    except VerampError:
+        return None
+    if alone is None or alone.chosen.seconds >= pooled.chosen.seconds:
+        return None
+    return alone
 
 
 def _groups(unique: list[str], open_qubits: tuple[int, ...]) -> dict[str, list[str]]:
