@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import inspect
 import json
 import logging
 import os
@@ -51,9 +52,11 @@ def cmd_serve(args) -> int:
         # overrides there; jobs are claimed atomically in the shared database
         for name, value in overrides.items():
             os.environ[f"VERAMP_{name.upper()}"] = str(value)
+        # older uvicorn releases neither check their workers' health nor take the setting
+        health = {"timeout_worker_healthcheck": WORKER_HEALTHCHECK_SECONDS} \
+            if "timeout_worker_healthcheck" in inspect.signature(uvicorn.Config).parameters else {}
         uvicorn.run("service.app:app_from_environment", factory=True, workers=server_workers, host=host, port=port,
-                    log_level="warning", timeout_graceful_shutdown=5,
-                    timeout_worker_healthcheck=WORKER_HEALTHCHECK_SECONDS)
+                    log_level="warning", timeout_graceful_shutdown=5, **health)
         return 0
     uvicorn.run(create_app(settings, database_checked=True), host=host, port=port, log_level="warning",
                 timeout_graceful_shutdown=5)
