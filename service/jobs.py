@@ -163,8 +163,12 @@ class JobManager:
         self._active: dict[str, cf.Future] = {}
         self._closing = False                   # set by shutdown(): dying workers are not failures then
         self._stop = threading.Event()          # ends the sweeper
-        self.pool = cf.ProcessPoolExecutor(max_workers=max(1, settings.workers), mp_context=worker_context(),
-                                           initializer=_init_worker, initargs=(os.getpid(),))
+        self.pool = self._new_pool()
+
+    def _new_pool(self) -> cf.ProcessPoolExecutor:
+        """Job processes that end with this one (a broken pool is replaced by a new one)."""
+        return cf.ProcessPoolExecutor(max_workers=max(1, self.settings.workers), mp_context=worker_context(),
+                                      initializer=_init_worker, initargs=(os.getpid(),))
 
     @property
     def depth(self) -> int:
@@ -208,9 +212,7 @@ class JobManager:
                 s.commit()
             with self._lock:
                 if getattr(self.pool, "_broken", False):
-                    self.pool = cf.ProcessPoolExecutor(max_workers=max(1, self.settings.workers),
-                                                       mp_context=worker_context(),
-                                                       initializer=_init_worker, initargs=(os.getpid(),))
+                    self.pool = self._new_pool()
             return
         if self.on_finish is not None and not fut.cancelled():
             try:

@@ -102,15 +102,15 @@ def amplitudes(circuit: Circuit, bitstrings: Iterable[str], *, dtype: str = "com
     groups = _groups(unique, open_qubits)
     # local processes contracting side by side share the memory cap (a Dask runner's do not)
     local = runner.workers if isinstance(runner, ProcessRunner) else (workers if runner is None else 1)
+    distinct = None if open_qubits else list(groups)    # the bitstrings the stacked engine's cost reads
     if choice is None or choice.count != len(groups):
         choice = choose(circuit, len(groups), engine=engine, dtype=dtype, rate=rate, store=plan_store,
                         planner=planner, memory_bytes=memory_bytes, open_qubits=open_qubits, workers=local,
-                        bitstrings=None if open_qubits else list(groups))
+                        bitstrings=distinct)
     if runner is None and local > 1 and choice.engine != "statevector" and \
             choice.chosen.seconds >= FEWER_WORKERS_MIN_SECONDS:
         alone = _one_worker(circuit, choice, engine=engine, dtype=dtype, rate=rate, store=plan_store,
-                            memory_bytes=memory_bytes, open_qubits=open_qubits,
-                            bitstrings=None if open_qubits else list(groups))
+                            memory_bytes=memory_bytes, open_qubits=open_qubits, bitstrings=distinct)
         if alone is not None:
             choice = replace(alone, reason=f"{alone.reason}; one worker with the whole memory cap predicted "
                                            f"{alone.chosen.seconds:.3g} s against {choice.chosen.seconds:.3g} s "
