@@ -9,11 +9,14 @@ Prints one JSON line per part; every ratio is against a baseline measured in thi
 Part p: veramp's ``find_plan`` (structure-only simplification, slicing inside every trial, whole
 budget, two processes) and the baseline — quimb's ``full_simplify`` on the same network's arrays,
 then cotengra's ``HyperOptimizer`` with slicing to the same target inside each trial, same budget,
-same two processes — side by side. Both slice the largest intermediate to a quarter of the cap (the
-peak of a pairwise contraction holds two inputs and the output).
+same two processes — side by side. Both slice the largest intermediate to an eighth of the cap per
+process of part a: the executor holds a step's output and a rearranged copy of each operand besides the
+live intermediates, so a plan aimed at a quarter peaks at the whole cap plus the inputs, over the share
+a run may use — ``amplitudes()`` then searches a plan of its own instead (a 14-cycle plan aimed at
+2^28 elements under a 2^30 cap so ran over 62 minutes, against ~16 minutes a slice at a time).
 Part a: one amplitude in complex64 with the stored plan, the whole run within the cap:
 ``--amp-workers`` processes on one thread each sharing it (default: one per core, as the command
-line runs; the plan's target is then a quarter of a share), or one process on the machine's BLAS
+line runs; the plan's target is then an eighth of a share), or one process on the machine's BLAS
 threads; wall time and peak RSS of this process and of
 its workers (measured, not estimated), against the time at the matrix-multiply rate measured in the
 same run; at 12 cycles also its error against the complex128 amplitude in ``COMPLEX128_REFERENCE``.
@@ -160,6 +163,12 @@ def part_amplitude(cycles: int, plan, cap_log2: int, workers: int = 1) -> dict:
     out.update(seconds=round(dt, 1), workers=workers, peak_rss_self_bytes=memory.self_bytes,
                peak_rss_workers_bytes=memory.descendants_bytes, cap_bytes=2 ** cap_log2 * 8,
                slices=plan.nslices, plan_peak_bytes=plan.peak_bytes("complex64"),
+               # the plan the run used: the stored one, or one ``amplitudes()`` chose instead (a
+               # stored plan whose executor peak exceeds a worker's share is not run as it is)
+               plan_run={"stored": run.plan is not None and run.plan.plan_hash == plan.plan_hash,
+                         "slices": run.plan.nslices if run.plan else None,
+                         "log10_madds": round(math.log10(run.plan.madds), 3) if run.plan else None,
+                         "reason": run.reason},
                amplitude=[run.results[0].amplitude.real, run.results[0].amplitude.imag],
                madds_per_s=plan.madds / dt, fraction_of_matmul=round(plan.madds / dt / rate, 3),
                goal={"seconds": 600, "peak_rss_bytes": 8 * 2 ** 30})
@@ -392,14 +401,14 @@ def main() -> None:
                     help="part a: contraction processes sharing the cap, one BLAS thread each (default: one per "
                          "core, as the command line runs; 1: one process on the machine's BLAS threads)")
     ap.add_argument("--target-log2", type=float, default=None,
-                    help="largest intermediate of the plan (default: a quarter of the cap per process of part a)")
+                    help="largest intermediate of the plan (default: an eighth of the cap per process of part a)")
     args = ap.parse_args()
     plan = None
     if args.load_plan:
         from contraction.planning.search import Plan
 
         plan = Plan.from_json(open(args.load_plan).read())
-    target_log2 = args.target_log2 or args.cap_log2 - 2 - math.log2(args.amp_workers)
+    target_log2 = args.target_log2 or args.cap_log2 - 3 - math.log2(args.amp_workers)
     if "p" in args.parts or (("a" in args.parts or "b" in args.parts) and plan is None):
         doc, plan = part_plan(args.cycles, args.budget, args.cap_log2, baseline=not args.no_baseline,
                               target_log2=target_log2)
