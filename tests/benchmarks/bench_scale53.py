@@ -13,7 +13,8 @@ same two processes — side by side. Both slice the largest intermediate to an e
 process of part a: the executor holds a step's output and a rearranged copy of each operand besides the
 live intermediates, so a plan aimed at a quarter peaks at the whole cap plus the inputs, over the share
 a run may use — ``amplitudes()`` then searches a plan of its own instead (a 14-cycle plan aimed at
-2^28 elements under a 2^30 cap so ran over 62 minutes, against ~16 minutes a slice at a time).
+2^28 elements under a 2^30 cap was replaced so and the run stopped after 62 minutes; the stored plan's
+32 slices take ~16 minutes).
 Part a: one amplitude in complex64 with the stored plan, the whole run within the cap:
 ``--amp-workers`` processes on one thread each sharing it (default: one per core, as the command
 line runs; the plan's target is then an eighth of a share), or one process on the machine's BLAS
@@ -156,6 +157,7 @@ def part_amplitude(cycles: int, plan, cap_log2: int, workers: int = 1) -> dict:
                          planner=None, memory_bytes=2 ** cap_log2 * 8, workers=workers,
                          progress=progress_to_stderr)
     dt = time.perf_counter() - t
+    used = run.plan or plan                    # the plan whose multiply-adds the run did
     # the ceiling: the better of two measurements around the run (the first may overlap the exit of
     # part p's planning processes: one run measured 10.3 G/s there against 26.4 G/s in another)
     rate = max(rate, matmul_rate(dtype=np.complex64))
@@ -170,7 +172,7 @@ def part_amplitude(cycles: int, plan, cap_log2: int, workers: int = 1) -> dict:
                          "log10_madds": round(math.log10(run.plan.madds), 3) if run.plan else None,
                          "reason": run.reason},
                amplitude=[run.results[0].amplitude.real, run.results[0].amplitude.imag],
-               madds_per_s=plan.madds / dt, fraction_of_matmul=round(plan.madds / dt / rate, 3),
+               madds_per_s=used.madds / dt, fraction_of_matmul=round(used.madds / dt / rate, 3),
                goal={"seconds": 600, "peak_rss_bytes": 8 * 2 ** 30})
     if cycles in COMPLEX128_REFERENCE:
         ref = COMPLEX128_REFERENCE[cycles]
