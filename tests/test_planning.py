@@ -169,6 +169,31 @@ def test_memory_cap_is_never_exceeded(circuit):
     assert plan.peak_bytes("complex128") <= 24_000
 
 
+def test_a_plan_over_the_cap_is_sliced_further_not_searched_again(circuit, monkeypatch):
+    # reference: numpy's state vector of the same circuit. The first search is aimed at half the cap
+    # (not a quarter), so its plan peaks over the cap with its copies counted; the retry must slice that
+    # plan further (same order, more sliced indices) instead of a second search with no budget left
+    import contraction.planning.capped_plans as capped
+
+    s = build_structure(circuit)
+    memory = 24_000
+    searches = []
+    real = capped.find_plan
+    monkeypatch.setattr(capped, "intermediate_target", lambda options, cap: cap / 2)
+    monkeypatch.setattr(capped, "find_plan", lambda st, o: searches.append(o.max_elements) or real(st, o))
+    first = real(s, PlannerOptions(budget_seconds=0.2, max_repeats=2, max_elements=memory / 16 / 2))
+    assert first.peak_bytes("complex128") > memory * capped.PLAN_SHARE_OF_CAP   # the case under test
+    plan = capped.network_plan(s, None, PlannerOptions(budget_seconds=0.2, max_repeats=2), memory_bytes=memory).plan
+    assert len(searches) == 1
+    assert plan.options.get("sliced_further") is True
+    assert plan.peak_bytes("complex128") <= memory * capped.PLAN_SHARE_OF_CAP
+    psi = state_vector(circuit)
+    tree = plan.tree(s)
+    for k in (0, 5, 1234):
+        bits = format(k, "016b")
+        assert abs(contract_scalar(tree, tensor_arrays(s, circuit, bits)) - psi[k]) < 1e-12
+
+
 def test_plan_store_hits_across_instances_and_bitstrings(tmp_path, rng):
     arch = grid_architecture(3, 4, 8)
     store = DirectoryPlanStore(tmp_path / "plans")

@@ -193,6 +193,18 @@ def retarget_plan(plan: Plan, structure: NetworkStructure, max_elements: float, 
     return plan_from_tree(tree, structure, {"minimize": minimize, "order_of": plan.network_key})
 
 
+def sliced_further(plan: Plan, structure: NetworkStructure, max_elements: float, seconds: float) -> Plan | None:
+    """``plan``'s tree — its order and sliced indices kept — sliced further until its largest intermediate
+    fits ``max_elements``, within ``seconds``. None when that is not reached in time."""
+    t0 = time.perf_counter()
+    tree = plan.tree(structure)                     # shared (cached): slice_to_target works on a copy
+    minimize = resolved_objective(str(plan.options.get("minimize", "auto")), tree, max_elements)
+    tree = slice_to_target(tree, max(2, int(max_elements)), minimize, t0 + 0.8 * seconds, t0 + seconds)
+    if tree.max_size() > max_elements:
+        return None
+    return plan_from_tree(tree, structure, {**plan.options, "minimize": minimize, "sliced_further": True})
+
+
 def _checksum(doc: dict) -> str:
     body = {k: v for k, v in doc.items() if k != "checksum"}
     blob = json.dumps(body, sort_keys=True, separators=(",", ":")).encode()
