@@ -172,7 +172,7 @@ def test_memory_cap_is_never_exceeded(circuit):
 def test_a_plan_over_the_cap_is_sliced_further_not_searched_again(circuit, monkeypatch):
     # reference: numpy's state vector of the same circuit. The first search is aimed at half the cap
     # (not a quarter), so its plan peaks over the cap with its copies counted; the retry must slice that
-    # plan further (same order, more sliced indices) instead of a second search with no budget left
+    # plan further (more sliced indices) instead of a second search with no budget left
     import contraction.planning.capped_plans as capped
 
     s = build_structure(circuit)

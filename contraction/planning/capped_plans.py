@@ -81,7 +81,7 @@ def network_plan(structure: NetworkStructure, store: PlanStore | None, options: 
     if options is None:
         raise NoStoredPlan(structure.key)
     # when the peak still overshoots the cap (live inputs and rearranged copies add up), aim lower, a few
-    # times, before giving up: the plan found sliced further, its order kept, or — when that cannot reach
+    # times, before giving up: the plan found sliced further (its tree and slices kept), or — when that cannot reach
     # the lower target — a new search with what is left of the budget. A new search right after the first
     # has next to nothing left: on a 30-qubit 14-cycle network, target 2^19, a search of 0 s gave 10^12.65
     # multiply-adds against 10^10.71 for a 10 s one (measured)

@@ -194,8 +194,9 @@ def retarget_plan(plan: Plan, structure: NetworkStructure, max_elements: float, 
 
 
 def sliced_further(plan: Plan, structure: NetworkStructure, max_elements: float, seconds: float) -> Plan | None:
-    """``plan``'s tree — its order and sliced indices kept — sliced further until its largest intermediate
-    fits ``max_elements``, within ``seconds``. None when that is not reached in time."""
+    """``plan``'s tree, its sliced indices kept, sliced further until its largest intermediate fits
+    ``max_elements`` within ``seconds`` (subtrees reconfigured between rounds while time is left, as
+    :func:`slicing.slice_to_target` does). None when that is not reached in time."""
     t0 = time.perf_counter()
     tree = plan.tree(structure)                     # shared (cached): slice_to_target works on a copy
     minimize = resolved_objective(str(plan.options.get("minimize", "auto")), tree, max_elements)
