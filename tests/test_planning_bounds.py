@@ -136,7 +136,7 @@ def test_a_plan_searched_ahead_of_time_uses_the_whole_budget(search_deadline):
     assert seen["seconds"] > 0.9 * search.SEARCH_SHARE * 100.0 - 1.0
 
 
-def test_a_pool_gives_way_to_one_worker_with_the_whole_cap_when_that_is_predicted_faster():
+def test_a_pool_gives_way_to_one_worker_with_the_whole_cap_when_that_is_predicted_faster(monkeypatch):
     # the project's own rule (no outside source): a pool splits the memory cap, so a stored plan that
     # fits the whole cap but not a share would be sliced further at any cost; the choice compares the
     # pool with one worker holding the whole cap, from stored plans only, and takes the faster
@@ -173,13 +173,10 @@ def test_a_pool_gives_way_to_one_worker_with_the_whole_cap_when_that_is_predicte
             return replace(ch, chosen=replace(ch.chosen, seconds=ch.chosen.seconds * 1e6))
         return ch
 
-    amp.choose = pooled_is_slow
-    try:
-        run = amplitudes(c, ["0" * 20, "1" * 20], dtype="complex128", engine="single", plan_store=store,
-                         memory_bytes=cap, workers=2, planner=PlannerOptions(budget_seconds=0.5, seed=0),
-                         on_choice=seen.append)
-    finally:
-        amp.choose = original
+    monkeypatch.setattr(amp, "choose", pooled_is_slow)
+    run = amplitudes(c, ["0" * 20, "1" * 20], dtype="complex128", engine="single", plan_store=store,
+                     memory_bytes=cap, workers=2, planner=PlannerOptions(budget_seconds=0.5, seed=0),
+                     on_choice=seen.append)
     assert "one worker with the whole memory cap" in run.reason and seen[0].reason == run.reason
     for r in run.results:
         assert abs(r.amplitude - psi[int(r.bitstring, 2)]) < 1e-10

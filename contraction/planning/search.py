@@ -185,25 +185,28 @@ def retarget_plan(plan: Plan, structure: NetworkStructure, max_elements: float, 
                                              ssa_path=[list(p) for p in plan.ssa_path], check=True)
     except Exception:            # another network after all: cotengra raises many kinds of errors
         return None
-    t0 = time.perf_counter()
-    minimize = resolved_objective(minimize, tree, max_elements)
-    tree = slice_to_target(tree, max(2, int(max_elements)), minimize, t0 + 0.8 * seconds, t0 + seconds)
-    if tree.max_size() > max_elements:
-        return None
-    return plan_from_tree(tree, structure, {"minimize": minimize, "order_of": plan.network_key})
+    return _sliced_plan(tree, structure, max_elements, seconds, minimize, {"order_of": plan.network_key})
 
 
 def sliced_further(plan: Plan, structure: NetworkStructure, max_elements: float, seconds: float) -> Plan | None:
     """``plan``'s tree, its sliced indices kept, sliced further until its largest intermediate fits
     ``max_elements`` within ``seconds`` (subtrees reconfigured between rounds while time is left, as
     :func:`slicing.slice_to_target` does). None when that is not reached in time."""
-    t0 = time.perf_counter()
     tree = plan.tree(structure)                     # shared (cached): slice_to_target works on a copy
-    minimize = resolved_objective(str(plan.options.get("minimize", "auto")), tree, max_elements)
+    return _sliced_plan(tree, structure, max_elements, seconds, str(plan.options.get("minimize", "auto")),
+                        {**plan.options, "sliced_further": True})
+
+
+def _sliced_plan(tree, structure: NetworkStructure, max_elements: float, seconds: float, minimize: str,
+                 options: dict) -> Plan | None:
+    """The plan of ``tree`` sliced until its largest intermediate fits ``max_elements`` within ``seconds``
+    (``options`` recorded with the objective used); None when that is not reached in time."""
+    t0 = time.perf_counter()
+    minimize = resolved_objective(minimize, tree, max_elements)
     tree = slice_to_target(tree, max(2, int(max_elements)), minimize, t0 + 0.8 * seconds, t0 + seconds)
     if tree.max_size() > max_elements:
         return None
-    return plan_from_tree(tree, structure, {**plan.options, "minimize": minimize, "sliced_further": True})
+    return plan_from_tree(tree, structure, {**options, "minimize": minimize})
 
 
 def _checksum(doc: dict) -> str:
