@@ -23,7 +23,7 @@ from sqlalchemy.orm import Session, sessionmaker
 from contraction.circuits.json_document import from_document, to_document
 from contraction.circuits.model import Circuit
 from contraction.execution.amplitudes import amplitudes
-from contraction.planning.search import PlannerOptions
+from contraction.planning.options import PlannerOptions
 
 from .db import CircuitRow, ResultRow, SqlPlanStore
 

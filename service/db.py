@@ -17,7 +17,7 @@ from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import DeclarativeBase, Mapped, Session, mapped_column, sessionmaker
 
 from contraction.errors import PlanError
-from contraction.planning.search import Plan
+from contraction.planning.plan import Plan
 from contraction.planning.store import best_fitting, target_key
 
 

@@ -19,8 +19,9 @@ from sqlalchemy import func, or_, select, update
 
 from contraction.errors import Busy, Cancelled, MemoryLimitError, VerampError
 from contraction.execution.slices import worker_context
+from contraction.planning.options import PlannerOptions
+from contraction.planning.progress import SearchProgress, observe_searches
 from contraction.planning.rates import read_rate
-from contraction.planning.search import PlannerOptions, SearchProgress, observe_searches
 
 from .db import JobRow, make_engine, session_factory
 from .schemas import JobOut

@@ -16,7 +16,7 @@ import pytest
 # suite plans in the calling process (tests of the process pool set it themselves)
 os.environ.setdefault("VERAMP_PLAN_PROCESSES", "1")
 
-from contraction.planning.search import PlannerOptions
+from contraction.planning.options import PlannerOptions
 
 #: a small planning budget keeps the suite fast; the networks in tests are small
 FAST_PLANNER = PlannerOptions(budget_seconds=0.5, max_repeats=8)

@@ -19,7 +19,8 @@ from contraction.execution.pairwise import program_for
 from contraction.execution.reuse import SliceContractor
 from contraction.execution.statevector import state_vector
 from contraction.network.builder import build_structure, tensor_arrays
-from contraction.planning.search import PlannerOptions, find_plan
+from contraction.planning.options import PlannerOptions
+from contraction.planning.search import find_plan
 from contraction.planning.slice_reuse import reuse_plan
 
 from .conftest import random_bitstrings
@@ -98,7 +99,7 @@ def test_a_plans_peak_covers_what_the_executor_holds(rows, cols, cycles, cap):
     """The peak a plan records (and the memory cap is checked against) counts what the executor holds
     at once — inputs, live intermediates, a step's output and its rearranged copies — so it is never
     below the arena's busiest step nor below cotengra's own peak of the live intermediates."""
-    from contraction.planning.search import executor_peak_elements, plan_from_tree
+    from contraction.planning.plan import executor_peak_elements, plan_from_tree
 
     circuit = random_instance(grid_architecture(rows, cols, cycles), 3, gates="discrete")
     s = build_structure(circuit)

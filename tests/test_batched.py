@@ -19,7 +19,7 @@ from contraction.execution.blocks import block_amplitudes, light_cone, marginal_
 from contraction.execution.statevector import state_vector
 from contraction.network.builder import build_structure
 from contraction.planning.engine_choice import Option, batch_candidates, choose, chunk_schedule, scheduled
-from contraction.planning.search import PlannerOptions
+from contraction.planning.options import PlannerOptions
 from contraction.planning.store import MemoryPlanStore
 
 from .conftest import FAST_PLANNER, einsum_state, random_bitstrings
@@ -203,7 +203,8 @@ def test_in_place_state_vector_update_matches_copying_update(small):
 def test_slicing_never_cuts_an_output_index(small, rng):
     """Slices are summed, so a sliced batch index would add different bitstrings' amplitudes; a
     tight memory target must slice inner indices only (and the result stays exact)."""
-    from contraction.planning.search import PlannerOptions, find_plan
+    from contraction.planning.options import PlannerOptions
+    from contraction.planning.search import find_plan
 
     s = build_structure(small, batch=8, open_qubits=(4,))
     plan = find_plan(s, PlannerOptions(budget_seconds=0.3, max_repeats=4, max_elements=2 ** 6))
@@ -223,7 +224,10 @@ def test_slicing_never_cuts_an_output_index(small, rng):
 
 def test_unreachable_memory_target_is_an_error_not_a_hang(small):
     from contraction.errors import MemoryLimitError
-    from contraction.planning.search import PlannerOptions, find_plan
+    from contraction.planning.options import PlannerOptions
+
+    # the output alone holds 8 x 2 = 16 elements, so a target of 8 cannot be met without slicing it
+    from contraction.planning.search import find_plan
 
     # the output alone holds 8 x 2 = 16 elements, so a target of 8 cannot be met without slicing it
     s = build_structure(small, batch=8, open_qubits=(4,))
@@ -257,7 +261,8 @@ def test_a_batch_size_order_serves_another_batch_size(small, rng):
     amplitudes. Reference: the numpy state vector (a general-purpose reference library)."""
     from contraction.execution.executor import contract_array
     from contraction.network.builder import tensor_arrays
-    from contraction.planning.search import find_plan, retarget_plan
+    from contraction.planning.plan import retarget_plan
+    from contraction.planning.search import find_plan
 
     donor = find_plan(build_structure(small, batch=4), PlannerOptions(budget_seconds=0.3, max_repeats=4))
     s = build_structure(small, batch=32)

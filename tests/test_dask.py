@@ -15,7 +15,7 @@ from contraction.errors import Cancelled, MemoryLimitError  # noqa: E402
 from contraction.execution.amplitudes import amplitudes  # noqa: E402
 from contraction.execution.dask_runner import DaskRunner  # noqa: E402
 from contraction.execution.statevector import state_vector  # noqa: E402
-from contraction.planning.search import PlannerOptions  # noqa: E402
+from contraction.planning.options import PlannerOptions  # noqa: E402
 
 from .conftest import random_bitstrings  # noqa: E402
 

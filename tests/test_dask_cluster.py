@@ -18,7 +18,7 @@ distributed = pytest.importorskip("distributed")
 from contraction.circuits.random_instances import grid_architecture, random_instance  # noqa: E402
 from contraction.execution.amplitudes import amplitudes  # noqa: E402
 from contraction.execution.dask_runner import DaskRunner  # noqa: E402
-from contraction.planning.search import PlannerOptions  # noqa: E402
+from contraction.planning.options import PlannerOptions  # noqa: E402
 from contraction.planning.store import MemoryPlanStore  # noqa: E402
 
 from .conftest import einsum_state  # noqa: E402

@@ -15,7 +15,9 @@ from contraction.execution.reuse import SliceContractor
 from contraction.execution.statevector import state_vector
 from contraction.network.builder import build_structure, tensor_arrays
 from contraction.planning.fusion import fuse_absorptions
-from contraction.planning.search import PlannerOptions, find_plan, plan_from_tree
+from contraction.planning.options import PlannerOptions
+from contraction.planning.plan import plan_from_tree
+from contraction.planning.search import find_plan
 
 
 def _tree(rows, cols, cycles, seed, cap=None):

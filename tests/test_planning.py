@@ -21,8 +21,10 @@ from contraction.execution.statevector import state_vector
 from contraction.network.builder import build_structure, tensor_arrays
 from contraction.planning.capped_plans import network_plan
 from contraction.planning.estimate import estimate, parse_bytes
+from contraction.planning.options import PlannerOptions
+from contraction.planning.plan import Plan
 from contraction.planning.rates import MachineRate
-from contraction.planning.search import Plan, PlannerOptions, find_plan
+from contraction.planning.search import find_plan
 from contraction.planning.store import DirectoryPlanStore, MemoryPlanStore
 
 from .conftest import random_bitstrings
@@ -313,7 +315,7 @@ def test_a_request_builds_the_contraction_tree_once(monkeypatch, fast_planner):
 def test_search_progress_is_reported_while_a_plan_is_searched(parallel):
     # Reports come at the start, about once a second, and at the end; the last one carries the
     # returned plan's cost; trial counts never go down (what a progress display needs: common practice).
-    from contraction.planning.search import observe_searches
+    from contraction.planning.progress import observe_searches
 
     s = build_structure(random_instance(grid_architecture(4, 5, 12), 1, gates="discrete"))
     seen = []
@@ -333,7 +335,7 @@ def test_search_progress_is_reported_while_a_plan_is_searched(parallel):
 
 def test_a_failing_observer_does_not_stop_the_search():
     # a display that breaks must not cost the plan (common practice for callbacks; no outside source)
-    from contraction.planning.search import observe_searches
+    from contraction.planning.progress import observe_searches
 
     def broken(_):
         raise RuntimeError("display gone")
@@ -354,11 +356,11 @@ def test_trials_are_sliced_when_partition_trees_come_within_reach_of_the_target(
     general-purpose reference library): the probe is never wider than it, and the search gets in-trial
     slicing exactly when the probed width is within 2^12 of the target."""
     from contraction.network.simplify import simplify_structure
-    from contraction.planning import search
+    from contraction.planning import options, search
 
     structure = build_structure(random_instance(grid_architecture(5, 6, 14), 1, gates="discrete"))
     red = simplify_structure(structure)
-    greedy = search.quick_tree(structure)
+    greedy = options.quick_tree(structure)
     probed = search._probe_width(red.inputs, red.output, red.size_dict, time.perf_counter() + 10.0)
     assert math.isfinite(probed) and probed <= math.log2(greedy.max_size())
 
@@ -595,7 +597,7 @@ def test_a_stored_plan_whose_real_peak_exceeds_the_cap_is_not_used():
     counted are) is checked again when read from the store: over the cap it is not used."""
     from contraction.errors import NoStoredPlan
     from contraction.planning.capped_plans import PLAN_SHARE_OF_CAP
-    from contraction.planning.search import executor_peak_elements
+    from contraction.planning.plan import executor_peak_elements
 
     s = build_structure(random_instance(grid_architecture(4, 5, 10), 1, gates="discrete"))
     plan = find_plan(s, PlannerOptions(budget_seconds=1.0, max_elements=2 ** 10, parallel=False))

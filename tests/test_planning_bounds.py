@@ -15,8 +15,9 @@ from contraction.execution.statevector import state_vector
 from contraction.network.builder import build_structure
 from contraction.network.simplify import simplify_structure
 from contraction.planning.estimate import estimate
+from contraction.planning.options import PlannerOptions
 from contraction.planning.rates import NOMINAL_RATE
-from contraction.planning.search import PlannerOptions, find_plan
+from contraction.planning.search import find_plan
 
 
 @pytest.mark.slow
@@ -100,21 +101,21 @@ def test_a_search_takes_only_the_time_its_greedy_tree_is_worth(search_deadline):
     SEARCH_PAYBACK_MADDS_PER_SECOND seconds, however large the budget (a 20-qubit batch of 4 spent 4.1 s
     planning a 0.02 s contraction under a 5 s budget); one that must be sliced gets the budget."""
     from contraction.circuits.random_instances import grid_architecture, random_instance
-    from contraction.planning import search
+    from contraction.planning import options, search
 
     circ = random_instance(grid_architecture(4, 5, 10), 1, gates="discrete")
     s = build_structure(circ, batch=4)
     seen = search_deadline
-    tree = search.quick_tree(s)
-    worth = search.search_seconds_worth(tree, None)
+    tree = options.quick_tree(s)
+    worth = options.search_seconds_worth(tree, None)
     assert 0 < worth < 100                               # greedy cost above the floor, far below the budget
     # a plan that will run once per bitstring of a large request is worth as many times the search
-    assert search.search_seconds_worth(tree, None, runs=2000) == pytest.approx(2000 * worth)
+    assert options.search_seconds_worth(tree, None, runs=2000) == pytest.approx(2000 * worth)
     search.find_plan(s, PlannerOptions(budget_seconds=1000.0, simplify=True))
     assert "seconds" in seen and seen["seconds"] <= 0.9 * 2 * worth + 0.5   # find_plan's greedy has more repeats
-    assert search.planning_seconds(s, PlannerOptions(budget_seconds=1000.0)) < 2 * worth + 1.0
+    assert options.planning_seconds(s, PlannerOptions(budget_seconds=1000.0)) < 2 * worth + 1.0
     # a target the greedy tree does not fit: the search is worth the whole budget
-    assert search.search_seconds_worth(tree, tree.max_size() / 4) == float("inf")
+    assert options.search_seconds_worth(tree, tree.max_size() / 4) == float("inf")
     seen.clear()
     search.find_plan(s, PlannerOptions(budget_seconds=20.0, max_elements=tree.max_size() / 4))
     assert seen["seconds"] > 0.9 * search.SEARCH_SHARE * 20.0 - 1.0
@@ -124,13 +125,13 @@ def test_a_plan_searched_ahead_of_time_uses_the_whole_budget(search_deadline):
     """``veramp plan`` (``whole_budget``) searches for the budget it was given, however cheap the greedy
     tree, above the floor below which no search pays; so does a plan a request will run a million times."""
     from contraction.circuits.random_instances import grid_architecture, random_instance
-    from contraction.planning import search
+    from contraction.planning import options, search
 
     s = build_structure(random_instance(grid_architecture(4, 5, 10), 1, gates="discrete"), batch=4)
     seen = search_deadline
     search.find_plan(s, PlannerOptions(budget_seconds=100.0, whole_budget=True))
     assert seen["seconds"] > 0.9 * search.SEARCH_SHARE * 100.0 - 1.0
-    assert search.planning_seconds(s, PlannerOptions(budget_seconds=100.0, whole_budget=True)) == 100.0
+    assert options.planning_seconds(s, PlannerOptions(budget_seconds=100.0, whole_budget=True)) == 100.0
     seen.clear()
     search.find_plan(s, PlannerOptions(budget_seconds=100.0, expected_runs=10 ** 6))
     assert seen["seconds"] > 0.9 * search.SEARCH_SHARE * 100.0 - 1.0

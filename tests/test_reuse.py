@@ -15,7 +15,8 @@ from contraction.execution.executor import contract_array
 from contraction.execution.reuse import SliceContractor
 from contraction.execution.statevector import state_vector
 from contraction.network.builder import build_structure, tensor_arrays
-from contraction.planning.search import PlannerOptions, find_plan
+from contraction.planning.options import PlannerOptions
+from contraction.planning.search import find_plan
 from contraction.planning.slice_reuse import reuse_plan
 
 from .conftest import einsum_state, random_bitstrings

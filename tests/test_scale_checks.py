@@ -16,7 +16,8 @@ from contraction.circuits.random_instances import grid_architecture, random_inst
 from contraction.execution.amplitudes import amplitudes
 from contraction.execution.executor import contract_scalar
 from contraction.network.builder import build_structure, tensor_arrays
-from contraction.planning.search import PlannerOptions, find_plan
+from contraction.planning.options import PlannerOptions
+from contraction.planning.search import find_plan
 
 from .conftest import einsum_state
 

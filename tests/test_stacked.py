@@ -25,7 +25,8 @@ from contraction.execution.stacked import (batch_inputs, contract_stacked, row_m
                                            stacked_program)
 from contraction.network.builder import build_structure
 from contraction.planning.engine_choice import STACKED_MARGIN, STACKED_MIN_SECONDS, choose
-from contraction.planning.search import PlannerOptions, find_plan
+from contraction.planning.options import PlannerOptions
+from contraction.planning.search import find_plan
 from contraction.planning.stacked_cost import projected_qubits, stacked_cost
 from contraction.planning.store import MemoryPlanStore
 

@@ -32,7 +32,7 @@ from contraction.execution.slices import Task, make_runner
 from contraction.execution.statevector import state_vector
 from contraction.network.builder import build_structure, resolve_dtype, tensor_arrays
 from contraction.planning.capped_plans import network_plan
-from contraction.planning.search import PlannerOptions
+from contraction.planning.options import PlannerOptions
 
 
 def cayley(h: np.ndarray, theta: float = 1.0) -> np.ndarray:

@@ -30,8 +30,9 @@ from contraction.execution.stacked import batch_inputs
 from contraction.execution.statevector import state_vector
 from contraction.network.builder import resolve_dtype, tensor_arrays
 from contraction.planning.engine_choice import Choice, Option, choose, tasks_per_chunk
+from contraction.planning.options import PlannerOptions
+from contraction.planning.plan import Plan
 from contraction.planning.rates import MachineRate
-from contraction.planning.search import Plan, PlannerOptions
 from contraction.planning.slice_reuse import reuse_budget
 from contraction.planning.stacked_cost import projected_qubits
 from contraction.planning.store import PlanStore

@@ -28,8 +28,9 @@ from contraction.execution.statevector import state_vector
 from contraction.network.builder import NetworkStructure, _symbol, build_structure, resolve_dtype, tensor_arrays
 from contraction.planning.capped_plans import network_plan
 from contraction.planning.engine_choice import network_seconds, statevector_option
+from contraction.planning.options import PlannerOptions
+from contraction.planning.plan import Plan
 from contraction.planning.rates import NOMINAL_RATE, MachineRate
-from contraction.planning.search import Plan, PlannerOptions
 from contraction.planning.store import PlanStore
 
 

@@ -31,8 +31,8 @@ from contraction.execution.amplitudes import amplitudes
 from contraction.execution.pairwise import blas_threads
 from contraction.execution.statevector import apply_gate_in_place
 from contraction.network.builder import build_structure
+from contraction.planning.options import PlannerOptions
 from contraction.planning.rates import MachineRate, read_rate
-from contraction.planning.search import PlannerOptions
 from contraction.planning.store import MemoryPlanStore
 
 

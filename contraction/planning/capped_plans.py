@@ -16,7 +16,9 @@ import numpy as np
 from contraction import defaults
 from contraction.errors import MemoryLimitError, NoStoredPlan, PlanError
 from contraction.network.builder import NetworkStructure
-from contraction.planning.search import Plan, PlannerOptions, executor_peak_elements, find_plan, sliced_further
+from contraction.planning.options import PlannerOptions
+from contraction.planning.plan import Plan, executor_peak_elements, sliced_further
+from contraction.planning.search import find_plan
 from contraction.planning.store import PlanStore
 
 log = logging.getLogger(__name__)

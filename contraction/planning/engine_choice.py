@@ -32,9 +32,10 @@ from contraction.circuits.bitstrings import bit_table
 from contraction.circuits.model import Circuit
 from contraction.errors import MemoryLimitError, NoStoredPlan, VerampError
 from contraction.network.builder import NetworkStructure, build_structure
-from contraction.planning.rates import NOMINAL_RATE, MachineRate
 from contraction.planning.capped_plans import PLAN_SHARE_OF_CAP, Contraction, intermediate_target, network_plan
-from contraction.planning.search import Plan, PlannerOptions, planning_seconds, retarget_plan
+from contraction.planning.options import PlannerOptions, planning_seconds
+from contraction.planning.plan import Plan, retarget_plan
+from contraction.planning.rates import NOMINAL_RATE, MachineRate
 from contraction.planning.slice_reuse import reuse_budget, reuse_plan_for
 from contraction.planning.stacked_cost import projected_qubits, stacked_chunks
 from contraction.planning.store import PlanStore

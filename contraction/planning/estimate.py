@@ -16,8 +16,8 @@ from contraction.circuits.model import Circuit
 from contraction.errors import VerampError
 from contraction.network.builder import resolve_dtype
 from contraction.planning.engine_choice import choose
+from contraction.planning.options import PlannerOptions
 from contraction.planning.rates import MachineRate
-from contraction.planning.search import PlannerOptions
 from contraction.planning.store import PlanStore
 
 FLOPS_PER_MADD = 8

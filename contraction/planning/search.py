@@ -1,41 +1,30 @@
-"""Contraction plans: finding them (cotengra) and the plan as plain data.
+"""Finding a contraction plan (cotengra): :func:`find_plan`.
 
-A :class:`Plan` is a JSON-serialisable record of a contraction order for one network structure:
-the SSA path, the sliced indices (in canonical numbering), cost figures and the options used.
-Finding a plan (:func:`find_plan`) is separate from running it (:mod:`contraction.execution.executor`), and
-cost queries on a plan are cheap: they read stored numbers.
+Searching is separate from running (:mod:`contraction.execution.executor`) and from the plan itself, which
+is plain data (:mod:`contraction.planning.plan`); the options and how long a search is worth are in
+:mod:`contraction.planning.options`, progress reports in :mod:`contraction.planning.progress`.
 """
 
 from __future__ import annotations
 
 import concurrent.futures as cf
 import contextlib
-import contextvars
-import hashlib
-import json
-import logging
 import math
 import random
 import threading
 import time
-import weakref
-from collections import OrderedDict
-from dataclasses import asdict, dataclass, field, replace
-from typing import Callable, Iterator
+from dataclasses import replace
+from typing import Iterator
 
-import numpy as np
-
-from contraction import defaults
-from contraction.errors import MemoryLimitError, PlanError
+from contraction.errors import MemoryLimitError
 from contraction.network.builder import NetworkStructure
 from contraction.network.simplify import simplify_structure
 from contraction.planning.fusion import fuse_absorptions
+from contraction.planning.options import PlannerOptions, resolved_objective, search_seconds, target_elements
+from contraction.planning.plan import Plan, plan_from_tree
+from contraction.planning.progress import OBSERVE_EVERY_SECONDS, SearchProgress, notify, observed, report_search
 from contraction.planning.slicing import (IN_TRIAL_SLICING_LOG2, RESLICE_MIN_SECONDS, best_resliced, excess, refined,
                                           resliced, slice_to_target)
-
-log = logging.getLogger(__name__)
-
-PLAN_FORMAT = "veramp-plan-v1"
 
 
 def kahypar_available() -> bool:
@@ -45,366 +34,6 @@ def kahypar_available() -> bool:
     except ImportError:
         return False
     return True
-
-
-#: trees kept by :meth:`Plan.tree`, most recently used last (common practice size for a small cache)
-TREES_KEPT = 8
-_trees: "OrderedDict[tuple, object]" = OrderedDict()
-_trees_lock = threading.Lock()
-
-
-@dataclass(frozen=True)
-class Plan:
-    """A contraction plan as plain data: the path, the sliced indices (canonical numbers) and its costs; valid for
-    every network with ``network_key``."""
-
-    network_key: str
-    ssa_path: tuple[tuple[int, ...], ...]
-    sliced: tuple[int, ...]          # canonical index numbers
-    madds: float                     # complex multiply-adds, all slices
-    madds_unsliced: float            # the same tree without slicing
-    width: float                     # log2 of the largest intermediate (per slice)
-    peak_elements: float             # peak concurrent elements of one slice
-    nslices: int
-    options: dict = field(default_factory=dict)
-    writes: float = 0.0              # elements written by all pairwise contractions, all slices
-
-    # ---- cheap cost queries
-    @property
-    def flops(self) -> float:
-        """Real floating-point operations: 8 per complex multiply-add."""
-        return 8.0 * self.madds
-
-    @property
-    def slicing_overhead(self) -> float:
-        """Multiply-adds of all slices over those of the unsliced contraction (≥ 1)."""
-        return self.madds / self.madds_unsliced if self.madds_unsliced else 1.0
-
-    def peak_bytes(self, dtype="complex128") -> int:
-        """Peak bytes of all live tensors of one slice in ``dtype``."""
-        return int(self.peak_elements * np.dtype(dtype).itemsize)
-
-    # ---- plain data
-    def to_dict(self) -> dict:
-        """The plan as a JSON-ready dict with its format tag and checksum."""
-        doc = asdict(self)
-        doc["format"] = PLAN_FORMAT
-        doc["ssa_path"] = [list(p) for p in self.ssa_path]
-        doc["sliced"] = list(self.sliced)
-        doc["checksum"] = _checksum(doc)
-        return doc
-
-    def to_json(self) -> str:
-        """The plan as JSON text (sorted keys)."""
-        return json.dumps(self.to_dict(), sort_keys=True)
-
-    @property
-    def plan_hash(self) -> str:
-        """Checksum of the plan's content (identifies a plan in provenance and stores)."""
-        return _checksum(self.to_dict())
-
-    @classmethod
-    def from_dict(cls, doc: dict) -> "Plan":
-        """Load a stored plan; raises :class:`PlanError` if it is malformed or tampered with."""
-        if not isinstance(doc, dict) or doc.get("format") != PLAN_FORMAT:
-            raise PlanError("stored plan has an unknown format")
-        if doc.get("checksum") != _checksum(doc):
-            raise PlanError("stored plan fails its checksum (corrupted or tampered)")
-        try:
-            return cls(
-                network_key=str(doc["network_key"]),
-                ssa_path=tuple(tuple(int(i) for i in p) for p in doc["ssa_path"]),
-                sliced=tuple(int(i) for i in doc["sliced"]),
-                madds=float(doc["madds"]), madds_unsliced=float(doc["madds_unsliced"]),
-                width=float(doc["width"]), peak_elements=float(doc["peak_elements"]),
-                nslices=int(doc["nslices"]), options=dict(doc.get("options") or {}),
-                writes=float(doc.get("writes", 0.0)),
-            )
-        except (KeyError, TypeError, ValueError) as exc:
-            raise PlanError(f"stored plan is malformed: {exc}") from None
-
-    @classmethod
-    def from_json(cls, text: str) -> "Plan":
-        """A plan from :meth:`to_json` text; raises :class:`PlanError` on invalid JSON, a wrong format or a bad
-        checksum."""
-        try:
-            return cls.from_dict(json.loads(text))
-        except json.JSONDecodeError as exc:
-            raise PlanError(f"stored plan is not valid JSON: {exc}") from None
-
-    # ---- back to a cotengra tree
-    def tree(self, structure: NetworkStructure):
-        """Rebuild the (sliced) contraction tree; checks that the plan fits ``structure``. The last few
-        trees built are kept (callers only read them), so a plan used request after request is built
-        and checked once, and its step program compiled once (:func:`contraction.execution.pairwise.program_for`)."""
-        if structure.key != self.network_key:
-            raise PlanError("plan belongs to another network structure")
-        key = (self.network_key, self.ssa_path, self.sliced, self.madds)
-        with _trees_lock:
-            tree = _trees.get(key)
-            if tree is not None:
-                _trees.move_to_end(key)
-                return tree
-        tree = self._build_tree(structure)
-        with _trees_lock:
-            _trees[key] = tree
-            while len(_trees) > TREES_KEPT:
-                _trees.popitem(last=False)
-        return tree
-
-    def _build_tree(self, structure: NetworkStructure):
-        import cotengra as ctg
-
-        try:
-            tree = ctg.ContractionTree.from_path(structure.inputs, structure.output, structure.size_dict,
-                                                 ssa_path=[list(p) for p in self.ssa_path], check=True)
-            labels = structure.labels
-            outer = set(structure.output)
-            for c in self.sliced:
-                if labels[c] in outer:
-                    raise PlanError("stored plan slices an output index (its slices cannot be summed)")
-                tree.remove_ind_(labels[c])
-        except PlanError:
-            raise
-        except Exception as exc:  # a malformed path makes cotengra raise many kinds of errors
-            raise PlanError(f"stored plan does not fit the network: {exc}") from None
-        if structure.num_tensors > 1 and not math.isclose(tree.contraction_cost(), self.madds, rel_tol=1e-9):
-            raise PlanError("stored plan's cost does not match its tree (corrupted)")
-        return tree
-
-
-def retarget_plan(plan: Plan, structure: NetworkStructure, max_elements: float, seconds: float,
-                  minimize: str = "auto") -> Plan | None:
-    """``plan``'s contraction order applied to ``structure`` — a network with the same tensors and
-    indices whose sizes differ (another batch size) — and sliced anew to ``max_elements`` within
-    ``seconds``. None when the order does not fit the network or the cap is not reached in time."""
-    import cotengra as ctg
-
-    try:
-        tree = ctg.ContractionTree.from_path(structure.inputs, structure.output, structure.size_dict,
-                                             ssa_path=[list(p) for p in plan.ssa_path], check=True)
-    except Exception:            # another network after all: cotengra raises many kinds of errors
-        return None
-    return _sliced_plan(tree, structure, max_elements, seconds, minimize, {"order_of": plan.network_key})
-
-
-def sliced_further(plan: Plan, structure: NetworkStructure, max_elements: float, seconds: float) -> Plan | None:
-    """``plan``'s tree, its sliced indices kept, sliced further until its largest intermediate fits
-    ``max_elements`` within ``seconds`` (subtrees reconfigured between rounds while time is left, as
-    :func:`slicing.slice_to_target` does). None when that is not reached in time."""
-    tree = plan.tree(structure)                     # shared (cached): slice_to_target works on a copy
-    return _sliced_plan(tree, structure, max_elements, seconds, str(plan.options.get("minimize", "auto")),
-                        {**plan.options, "sliced_further": True})
-
-
-def _sliced_plan(tree, structure: NetworkStructure, max_elements: float, seconds: float, minimize: str,
-                 options: dict) -> Plan | None:
-    """The plan of ``tree`` sliced until its largest intermediate fits ``max_elements`` within ``seconds``
-    (``options`` recorded with the objective used); None when that is not reached in time."""
-    t0 = time.perf_counter()
-    minimize = resolved_objective(minimize, tree, max_elements)
-    tree = slice_to_target(tree, max(2, int(max_elements)), minimize, t0 + 0.8 * seconds, t0 + seconds)
-    if tree.max_size() > max_elements:
-        return None
-    return plan_from_tree(tree, structure, {**options, "minimize": minimize})
-
-
-def _checksum(doc: dict) -> str:
-    body = {k: v for k, v in doc.items() if k != "checksum"}
-    blob = json.dumps(body, sort_keys=True, separators=(",", ":")).encode()
-    return hashlib.sha256(blob).hexdigest()
-
-
-_peaks: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
-
-
-def executor_peak_elements(tree) -> float:
-    """:func:`_executor_peak` of ``tree``, worked out once per tree object (a stored plan's tree is kept
-    between requests, and its peak is checked on every read; worked out again if the tree was changed
-    in place since, as slicing does)."""
-    shape = (tree.nslices, float(tree.contraction_cost()) if tree.N > 1 else 0.0)
-    kept = _peaks.get(tree)
-    if kept is None or kept[0] != shape:
-        kept = _peaks[tree] = (shape, _executor_peak(tree))
-    return kept[1]
-
-
-def _executor_peak(tree) -> float:
-    """Elements held at once while one slice of ``tree`` is contracted, as the executor runs it: the
-    input tensors throughout, the live intermediates, and at each step its output plus a rearranged
-    copy of each operand (at most; cotengra's peak counts no copies). On three 53-qubit plans this
-    equalled the executor's arena to within the inputs (3.0, 6.0 and 8.0 GiB against cotengra's 2.0,
-    4.0 and 6.0): an 8 GiB cap passed by the latter peaked at 8.71 GB resident."""
-    if tree.N < 2:
-        return float(tree.peak_size()) if tree.N else 0.0
-    size = tree.get_size
-    live = float(sum(size(tree.input_to_node(i)) for i in range(tree.N)))
-    peak = live
-    for p, l, r in tree.traverse():
-        sl, sr, so = size(l), size(r), size(p)
-        peak = max(peak, live + so + sl + sr)
-        live += so - (0 if tree.is_leaf(l) else sl) - (0 if tree.is_leaf(r) else sr)
-    return max(peak, float(tree.peak_size()))
-
-
-def plan_from_tree(tree, structure: NetworkStructure, options: dict) -> Plan:
-    """The :class:`Plan` of a cotengra tree for ``structure`` (costs measured on the tree, sliced and unsliced)."""
-    canon = structure.canonical
-    sliced = tuple(canon[ix] for ix in tree.sliced_inds)
-    if tree.sliced_inds:
-        unsliced = tree.copy()
-        unsliced.unslice_all_()
-        madds_unsliced = float(unsliced.contraction_cost())
-    else:
-        madds_unsliced = float(tree.contraction_cost())
-    return Plan(
-        network_key=structure.key,
-        ssa_path=tuple(tuple(int(i) for i in p) for p in tree.get_ssa_path()),
-        sliced=sliced,
-        madds=float(tree.contraction_cost()),
-        madds_unsliced=madds_unsliced,
-        width=float(tree.contraction_width()) if structure.num_tensors > 1 else 0.0,
-        peak_elements=executor_peak_elements(tree),
-        nslices=int(tree.nslices),
-        options=options,
-        writes=float(tree.total_write()),
-    )
-
-
-@dataclass(frozen=True)
-class PlannerOptions:
-    """How hard to search: a time budget (seconds, all stages together), a repeat cap, a memory target
-    per slice (elements of the largest intermediate) and the processes used for trials."""
-
-    budget_seconds: float = defaults.PLAN_BUDGET_SECONDS
-    max_repeats: int = 10 ** 6            # the budget decides; this only caps tiny budgets in tests
-    max_elements: float | None = None     # largest intermediate allowed (elements); None = no cap
-    # cotengra's objective; "auto" (see :func:`resolved_objective`): multiply-adds alone ("flops") for a
-    # network that must be sliced to the target, "combo" (multiply-adds and memory writes) otherwise
-    minimize: str = "auto"
-    seed: int = 0
-    parallel: bool | int = False          # explicit: never 'auto'; an int > 1 is a number of processes
-    simplify: bool = True                 # structure-only simplification before the search
-    fuse: bool = True                     # group small tensors absorbed into large intermediates (fusion)
-    # search for the whole budget even where the greedy tree is worth less (``veramp plan``: a plan
-    # searched ahead of time for an architecture); otherwise see :func:`search_seconds_worth`
-    whole_budget: bool = False
-    # contractions the plan will run in the request asking for it (a single amplitude's plan runs once
-    # per bitstring): the search is worth that many times as much
-    expected_runs: float = 1.0
-
-    def to_dict(self) -> dict:
-        """The options as a JSON-ready dict (kept with each plan)."""
-        return asdict(self)
-
-
-@dataclass(frozen=True)
-class SearchProgress:
-    """Where a running search stands: trials finished, the best tree's multiply-adds so far (scored
-    as the search scores them: after slicing to the target when it slices in its trials; None before
-    the first), seconds since the plan was asked for and the budget; ``final`` on the report of the
-    plan found (its multiply-adds as sliced)."""
-
-    trials: int
-    best_madds: float | None
-    seconds: float
-    budget_seconds: float
-    final: bool = False
-
-
-SearchObserver = Callable[[SearchProgress], None]
-_observer: contextvars.ContextVar[SearchObserver | None] = contextvars.ContextVar("veramp_search_observer",
-                                                                                  default=None)
-#: seconds between two reports to a search observer
-OBSERVE_EVERY_SECONDS = 1.0
-
-
-@contextlib.contextmanager
-def observe_searches(observer: SearchObserver) -> Iterator[None]:
-    """Report the progress of every :func:`find_plan` run in this context (thread or task) to
-    ``observer``: once when a search starts, about every second while it runs, once when it ends."""
-    token = _observer.set(observer)
-    try:
-        yield
-    finally:
-        _observer.reset(token)
-
-
-def _notify(progress: SearchProgress) -> None:
-    observer = _observer.get()
-    if observer is None:
-        return
-    try:
-        observer(progress)
-    except Exception:                        # an observer's failure must not end the search
-        log.warning("search observer failed", exc_info=True)
-
-
-def _report(opt, t0: float, budget: float) -> None:
-    best = getattr(opt, "best", None) or {}
-    flops = best.get("flops") if isinstance(best, dict) else None
-    madds = float(flops) if isinstance(flops, (int, float)) and math.isfinite(flops) else None
-    _notify(SearchProgress(len(getattr(opt, "scores", ())), madds, time.perf_counter() - t0, budget))
-
-
-#: a greedy tree cheaper than this (complex multiply-adds; ~0.05 s on the machines this is built on) is
-#: not searched further: a search cannot save more time than the contraction takes (common practice)
-SEARCH_WORTHWHILE_MADDS = 1e8
-#: a tree that fits the memory target is searched for at most one second per this many multiply-adds
-#: of its greedy tree: about twenty times the greedy contraction's own time at the 5e9 multiply-adds/s a
-#: contraction reaches on these machines (common practice: a stored plan serves every later instance,
-#: so a search may cost a few runs' worth, not more). A 20-qubit 10-cycle batch of 4 (greedy 1.2e8)
-#: took 4.1 s of planning for a 0.02 s contraction before this rule.
-SEARCH_PAYBACK_MADDS_PER_SECOND = 2.5e8
-
-
-def search_seconds_worth(tree, target, runs: float = 1.0) -> float:
-    """Seconds a search for a better tree than ``tree`` (a greedy one) is worth when the plan will run
-    ``runs`` times in the request that asks for it: none below :data:`SEARCH_WORTHWHILE_MADDS` for one
-    contraction, above it in proportion to the multiply-adds of all ``runs``; unbounded (the budget
-    decides) when the tree does not fit the memory target and must be sliced."""
-    if target is not None and tree.max_size() > target:
-        return math.inf
-    madds = float(tree.contraction_cost())
-    return 0.0 if madds < SEARCH_WORTHWHILE_MADDS else madds * max(1.0, runs) / SEARCH_PAYBACK_MADDS_PER_SECOND
-
-
-def _search_seconds(tree, target, options: "PlannerOptions") -> float:
-    """Seconds of search ``options`` allow past the greedy ``tree``: what it is worth, or the whole budget
-    with ``whole_budget`` (a greedy tree below the floor is never searched)."""
-    worth = search_seconds_worth(tree, target, options.expected_runs)
-    return math.inf if options.whole_budget and worth > 0 else worth
-
-
-def quick_tree(structure: NetworkStructure, seed: int = 0):
-    """A quick greedy tree of the simplified network (a few greedy trials; milliseconds up to a few
-    hundred tensors), or None for a network of at most two tensors."""
-    import cotengra as ctg
-
-    if structure.num_tensors <= 2:
-        return None
-    red = simplify_structure(structure)
-    if len(red.inputs) <= 2:
-        return None
-    return ctg.array_contract_tree(red.inputs, red.output, red.size_dict,
-                                   optimize=ctg.RandomGreedyOptimizer(max_repeats=4, seed=seed))
-
-
-def _target(options: "PlannerOptions") -> int | None:
-    """The largest intermediate (elements) ``options`` ask for, or None for no cap."""
-    return None if options.max_elements is None else max(2, int(options.max_elements))
-
-
-def planning_seconds(structure: NetworkStructure, options: "PlannerOptions") -> float:
-    """Predicted seconds :func:`find_plan` takes on ``structure``: the quick greedy pass, then the search
-    its greedy tree is worth (:func:`search_seconds_worth`), at most the budget."""
-    t0 = time.perf_counter()
-    tree = quick_tree(structure, options.seed)
-    greedy = 2.0 * (time.perf_counter() - t0)
-    if tree is None:
-        return greedy
-    target = _target(options)
-    return min(options.budget_seconds, greedy + _search_seconds(tree, target, options))
 
 
 #: a tree needing more than 2^48 slices is not sliced at all: it is not feasible on any machine this
@@ -551,7 +180,7 @@ def _run_search(opt, inputs, output, sizes, deadline: float, pool, grace: float,
     # one call for the whole budget: splitting it into rounds lost most trials in flight when a round
     # ended (12 trials in 90 s against 34 in 60 s on the 53-qubit network)
     opt.max_time = max(0.05, deadline - time.perf_counter())
-    if pool is None and _observer.get() is None:
+    if pool is None and not observed():
         try:
             best = opt.search(inputs, output, sizes)
         except (ValueError, KeyError, RuntimeError):      # no trial finished in time
@@ -574,7 +203,7 @@ def _run_search(opt, inputs, output, sizes, deadline: float, pool, grace: float,
         left = end - time.perf_counter()
         # past the end a serial search is waited for (it stops after its current trial)
         worker.join(OBSERVE_EVERY_SECONDS if left <= 0 else min(OBSERVE_EVERY_SECONDS, left))
-        _report(opt, t0, budget)
+        report_search(opt, t0, budget)
     if worker.is_alive() and pool is not None:
         for proc in list((getattr(pool, "_processes", None) or {}).values()):
             proc.terminate()
@@ -582,20 +211,6 @@ def _run_search(opt, inputs, output, sizes, deadline: float, pool, grace: float,
     best = done.get("tree") or (opt.best or {}).get("tree")
     trials = len(opt.scores)
     return best, trials, kept_besides(opt, best)
-
-
-def resolved_objective(minimize: str, tree, target: float | None) -> str:
-    """The objective ``minimize`` stands for on a network whose greedy tree is ``tree``: itself unless
-    "auto", which is "flops" when ``tree``'s largest intermediate exceeds ``target`` (the plan will be
-    sliced) and "combo" otherwise. Sliced, "combo" searched far worse trees: 53 qubits, 12 cycles,
-    target 2^27, 60 s: 10^13.90 multiply-adds over 1,024 slices against 10^12.91 over 128 ("flops"; even
-    its memory writes were fewer, 6e11 against 9e11), and 10^14.77 over 8,192 slices in 300 s; on a
-    30-qubit 14-cycle network sliced to 2^24 and 2^20 (two 30 s plans each) "flops" plans ran all their
-    slices in 4.5-5.7 s against 4.8-6.5 s (measured, one BLAS thread, complex64). Unsliced, "combo"
-    is kept: it beat "flops" 2x in wall time on a 30-qubit 14-cycle network (an earlier measurement)."""
-    if minimize != "auto":
-        return minimize
-    return "flops" if target is not None and tree is not None and tree.max_size() > target else "combo"
 
 
 def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOptions()) -> Plan:
@@ -627,12 +242,12 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
     slack = 0.05 * max(0.0, options.budget_seconds)
     hard_deadline = deadline + slack + min(1.0, slack)
     methods = ["greedy", "kahypar"] if kahypar_available() else ["greedy", "labels"]
-    target = _target(options)
+    target = target_elements(options)
     state = random.getstate()
     random.seed(options.seed)
     trials = 0
     notes: dict = {}                      # what the final stages did, kept in the plan's options
-    _notify(SearchProgress(0, None, 0.0, options.budget_seconds))
+    notify(SearchProgress(0, None, 0.0, options.budget_seconds))
     try:
         if structure.num_tensors <= 2:
             options = replace(options, minimize=resolved_objective(options.minimize, None, target))
@@ -664,7 +279,7 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
                 options = replace(options, minimize=resolved_objective(options.minimize, best, target))
                 # a tree within the target is searched only as long as its greedy cost makes it worth;
                 # the search gets SEARCH_SHARE of what is left, refinement and slicing the rest
-                deadline = min(deadline, time.perf_counter() + _search_seconds(best, target, options))
+                deadline = min(deadline, time.perf_counter() + search_seconds(best, target, options))
                 search_deadline = time.perf_counter() + SEARCH_SHARE * (deadline - time.perf_counter())
                 if len(inputs) > 8 and search_deadline - time.perf_counter() > 0.1:
                     found, trials, candidates = _search(inputs, output, sizes, options, methods, search_deadline,
@@ -747,7 +362,7 @@ def find_plan(structure: NetworkStructure, options: PlannerOptions = PlannerOpti
     record = _record(options, methods, trials, reduced_tensors, t0)
     record.update(notes)
     plan = plan_from_tree(tree, structure, record)
-    _notify(SearchProgress(trials, plan.madds, time.perf_counter() - t0, options.budget_seconds, final=True))
+    notify(SearchProgress(trials, plan.madds, time.perf_counter() - t0, options.budget_seconds, final=True))
     return plan
 
 

@@ -20,7 +20,7 @@ from pathlib import Path
 from typing import Iterable, Protocol
 
 from contraction.errors import PlanError
-from contraction.planning.search import Plan
+from contraction.planning.plan import Plan
 
 log = logging.getLogger(__name__)
 

@@ -12,7 +12,7 @@ from contraction.analysis.rational_fit import (
 from contraction.analysis.xeb import estimate_xeb, fit_depth, mixture_ks
 from contraction.circuits.bitstrings import check_bitstrings, read_bitstrings
 from contraction.execution.amplitudes import amplitudes
-from contraction.planning.search import PlannerOptions
+from contraction.planning.options import PlannerOptions
 
 from ..plots import depth_fit_plot, path_plot, porter_thomas_plot, study_plot
 from .common import UsageError, current_settings, load_circuit_file, memory_cap, plan_store, read_text, theta_list

@@ -121,7 +121,7 @@ class ProgressBar:
         self._show(self.line(p), p.done >= p.total)
 
     def search(self, p) -> None:
-        """An observer for :func:`contraction.planning.search.observe_searches`."""
+        """An observer for :func:`contraction.planning.progress.observe_searches`."""
         self._show(search_line(p.trials, p.best_madds, p.seconds, p.budget_seconds), p.final)
 
     def _show(self, text: str, last: bool) -> None:

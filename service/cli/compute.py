@@ -16,7 +16,8 @@ from contraction.execution.slices import keep_freed_memory
 from contraction.network.builder import build_structure
 from contraction.planning.capped_plans import network_plan, plan_fit_elements
 from contraction.planning.estimate import estimate
-from contraction.planning.search import PlannerOptions, observe_searches
+from contraction.planning.options import PlannerOptions
+from contraction.planning.progress import observe_searches
 
 from .common import (
     ProgressBar, bitstrings_from_args, current_settings, fmt_complex, load_circuit_file, local_workers, memory_cap,

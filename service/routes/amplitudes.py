@@ -5,7 +5,7 @@ from fastapi import APIRouter, Depends, Request, Response
 from contraction.circuits.bitstrings import check_bitstrings
 from contraction.errors import LimitError
 from contraction.planning.estimate import estimate
-from contraction.planning.search import PlannerOptions
+from contraction.planning.options import PlannerOptions
 
 from ..compute import compute, versions
 from ..db import SqlPlanStore

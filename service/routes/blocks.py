@@ -3,7 +3,7 @@
 from fastapi import APIRouter, Depends
 
 from contraction.execution.blocks import block_amplitudes, marginal_probabilities
-from contraction.planning.search import PlannerOptions
+from contraction.planning.options import PlannerOptions
 
 from ..db import SqlPlanStore
 from ..deps import AppState, get_state, resolve_circuit

@@ -8,7 +8,7 @@ from fastapi import APIRouter, Depends, Query, Response
 from contraction.analysis.cayley import cayley_path, path_probabilities
 from contraction.analysis.rational_fit import recover_path
 from contraction.errors import VerampError
-from contraction.planning.search import PlannerOptions
+from contraction.planning.options import PlannerOptions
 
 from ..db import SqlPlanStore
 from ..deps import AppState, get_state, resolve_circuit

@@ -14,7 +14,7 @@ from pydantic import BaseModel, Field
 from contraction.analysis.xeb import estimate_xeb
 from contraction.circuits.bitstrings import check_bitstrings
 from contraction.errors import Conflict, LimitError, VerampError
-from contraction.planning.search import PlannerOptions
+from contraction.planning.options import PlannerOptions
 
 from ..compute import cached_results, compute
 from ..deps import AppState, get_state, resolve_circuit

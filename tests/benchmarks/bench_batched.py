@@ -27,7 +27,7 @@ from contraction.execution.executor import contract_array
 from contraction.execution.statevector import apply_gate_in_place
 from contraction.network.builder import fused_gates, tensor_arrays
 from contraction.planning.engine_choice import choose
-from contraction.planning.search import PlannerOptions
+from contraction.planning.options import PlannerOptions
 from contraction.planning.store import MemoryPlanStore
 
 

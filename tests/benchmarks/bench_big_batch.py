@@ -25,7 +25,7 @@ import numpy as np
 
 from contraction.circuits.random_instances import grid_architecture, random_instance
 from contraction.execution.amplitudes import amplitudes
-from contraction.planning.search import PlannerOptions
+from contraction.planning.options import PlannerOptions
 from contraction.planning.store import MemoryPlanStore
 
 from rss import PeakRss

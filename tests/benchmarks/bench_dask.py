@@ -31,7 +31,8 @@ from contraction.execution.executor import combine_scaled
 from contraction.execution.slices import ProcessRunner, Task, split_slices
 from contraction.network.builder import build_structure, tensor_arrays
 from contraction.planning.capped_plans import Contraction
-from contraction.planning.search import PlannerOptions, find_plan
+from contraction.planning.options import PlannerOptions
+from contraction.planning.search import find_plan
 
 
 def timed_run(runner, plan, structure, arrays, pieces: int) -> tuple[float, complex]:

@@ -25,7 +25,8 @@ from contraction.circuits.random_instances import grid_architecture, haar_unitar
 from contraction.circuits.textbook import qft
 from contraction.execution.executor import contract_scalar
 from contraction.network.builder import build_structure, diagonal_gates, tensor_arrays
-from contraction.planning.search import PlannerOptions, find_plan
+from contraction.planning.options import PlannerOptions
+from contraction.planning.search import find_plan
 
 
 def cz_grid(rows: int, cols: int, cycles: int, seed: int = 0) -> Circuit:

@@ -44,7 +44,7 @@ from contraction.execution.amplitudes import amplitudes
 from contraction.execution.calibration import load_or_measure
 from contraction.execution.slices import ProcessRunner
 from contraction.planning.engine_choice import choose
-from contraction.planning.search import PlannerOptions
+from contraction.planning.options import PlannerOptions
 from contraction.planning.store import MemoryPlanStore
 
 

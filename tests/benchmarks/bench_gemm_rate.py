@@ -28,7 +28,8 @@ from contraction.execution.executor import contract_slice_scaled
 from contraction.execution.reuse import SliceContractor
 from contraction.execution.slices import keep_freed_memory
 from contraction.network.builder import build_structure, tensor_arrays
-from contraction.planning.search import PlannerOptions, find_plan
+from contraction.planning.options import PlannerOptions
+from contraction.planning.search import find_plan
 from contraction.planning.slice_reuse import reuse_plan
 
 #: width (log2 elements of the largest intermediate) -> (rows, cols, cycles, removed qubits)

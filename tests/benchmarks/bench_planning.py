@@ -19,7 +19,7 @@ from contraction.execution.executor import contract_scalar
 from contraction.network.builder import build_structure, tensor_arrays
 from contraction.planning.capped_plans import network_plan
 from contraction.planning.estimate import estimate
-from contraction.planning.search import PlannerOptions
+from contraction.planning.options import PlannerOptions
 from contraction.planning.store import MemoryPlanStore
 
 

@@ -72,7 +72,8 @@ def part_plan(cycles: int, budget: float, cap_log2: int, baseline: bool = True,
     import quimb.tensor as qtn
 
     from contraction.network.builder import build_structure, tensor_arrays
-    from contraction.planning.search import PlannerOptions, find_plan
+    from contraction.planning.options import PlannerOptions
+    from contraction.planning.search import find_plan
 
     circ = w53(cycles)
     s = build_structure(circ)
@@ -267,7 +268,8 @@ def part_batch(cycles: int, budget: float, cap_log2: int, target_log2: float, si
     from contraction.execution.executor import contract_array
     from contraction.execution.slices import keep_freed_memory
     from contraction.network.builder import build_structure, tensor_arrays
-    from contraction.planning.search import PlannerOptions, find_plan
+    from contraction.planning.options import PlannerOptions
+    from contraction.planning.search import find_plan
 
     circ = w53(cycles)
     sb = build_structure(circ, batch=batch)
@@ -309,7 +311,8 @@ def part_checks(cycles: int, check_cycles: int, cap_log2: int, budget: float) ->
     from contraction.execution.slices import keep_freed_memory
     from contraction.execution.statevector import state_vector
     from contraction.network.builder import build_structure, tensor_arrays
-    from contraction.planning.search import PlannerOptions, find_plan
+    from contraction.planning.options import PlannerOptions
+    from contraction.planning.search import find_plan
 
     keep_freed_memory()
     rng = np.random.default_rng(7)
@@ -359,7 +362,7 @@ def part_estimate(budget: float) -> dict:
     from contraction.errors import MemoryLimitError
     from contraction.execution.calibration import measure
     from contraction.planning.estimate import estimate
-    from contraction.planning.search import PlannerOptions
+    from contraction.planning.options import PlannerOptions
 
     rate = measure()
     rows = []
@@ -407,7 +410,7 @@ def main() -> None:
     args = ap.parse_args()
     plan = None
     if args.load_plan:
-        from contraction.planning.search import Plan
+        from contraction.planning.plan import Plan
 
         plan = Plan.from_json(open(args.load_plan).read())
     target_log2 = args.target_log2 or args.cap_log2 - 3 - math.log2(args.amp_workers)
