@@ -196,6 +196,47 @@ def test_a_plan_over_the_cap_is_sliced_further_not_searched_again(circuit, monke
         assert abs(contract_scalar(tree, tensor_arrays(s, circuit, bits)) - psi[k]) < 1e-12
 
 
+def test_a_stored_plan_over_a_smaller_cap_is_sliced_further_when_the_search_does_no_better(circuit, monkeypatch):
+    # reference: numpy's state vector of the same circuit. A plan stored for a larger cap (here: no cap)
+    # does not fit the request's; its order and slices are kept and sliced further, and that plan is
+    # used when the request's own search finds nothing within the cap, or nothing cheaper
+    import contraction.planning.capped_plans as capped
+
+    s = build_structure(circuit)
+    stored = find_plan(s, PlannerOptions(budget_seconds=0.5, max_repeats=8))
+    store = MemoryPlanStore()
+    store.put(stored)
+    memory = stored.peak_bytes("complex128") / 8
+    assert store.get(s.key, capped.plan_fit_elements(memory)) is None            # the case under test
+
+    def no_plan(*args):
+        raise MemoryLimitError("no plan found within the cap (stand-in search)")
+
+    monkeypatch.setattr(capped, "_searched_plan", no_plan)
+    c = capped.network_plan(s, store, PlannerOptions(budget_seconds=0.5, max_repeats=2), memory_bytes=memory)
+    plan = c.plan
+    assert not c.from_store and plan.options["stored_plan_hash"] == stored.plan_hash
+    assert plan.options["sliced_further"] is True and plan.options["stored_madds"] == stored.madds
+    assert set(stored.sliced) < set(plan.sliced)
+    assert plan.peak_bytes("complex128") <= memory * capped.PLAN_SHARE_OF_CAP
+    assert "sliced further" in capped.sliced_further_note(plan)
+    assert store.get(s.key, capped.plan_fit_elements(memory)) == plan             # kept for the next request
+    psi = state_vector(circuit)
+    tree = plan.tree(s)
+    for k in (0, 7, 4321):
+        assert abs(contract_scalar(tree, tensor_arrays(s, circuit, format(k, "016b"))) - psi[k]) < 1e-12
+
+    # a searched plan cheaper than the stored plan sliced further wins over it
+    searched = find_plan(s, PlannerOptions(budget_seconds=0.5, max_repeats=2, max_elements=2 ** 8))
+    real = capped._stored_sliced_further
+    monkeypatch.setattr(capped, "_searched_plan", lambda *args: searched)
+    monkeypatch.setattr(capped, "_stored_sliced_further",
+                        lambda *a: dataclasses.replace(real(*a), madds=2 * searched.madds))
+    store = MemoryPlanStore()
+    store.put(stored)
+    assert searched.peak_bytes("complex128") <= memory * capped.PLAN_SHARE_OF_CAP
+    assert capped.network_plan(s, store, PlannerOptions(budget_seconds=0.5), memory_bytes=memory).plan == searched
+
 def test_plan_store_hits_across_instances_and_bitstrings(tmp_path, rng):
     arch = grid_architecture(3, 4, 8)
     store = DirectoryPlanStore(tmp_path / "plans")

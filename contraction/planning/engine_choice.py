@@ -32,7 +32,8 @@ from contraction.circuits.bitstrings import bit_table
 from contraction.circuits.model import Circuit
 from contraction.errors import MemoryLimitError, NoStoredPlan, VerampError
 from contraction.network.builder import NetworkStructure, build_structure
-from contraction.planning.capped_plans import PLAN_SHARE_OF_CAP, Contraction, intermediate_target, network_plan
+from contraction.planning.capped_plans import (PLAN_SHARE_OF_CAP, Contraction, intermediate_target, network_plan,
+                                               sliced_further_note)
 from contraction.planning.options import PlannerOptions, planning_seconds
 from contraction.planning.plan import Plan, retarget_plan
 from contraction.planning.rates import NOMINAL_RATE, MachineRate
@@ -427,4 +428,7 @@ def choose(circuit: Circuit, count: int, *, engine: str = "auto", dtype: str = "
         if not sv_fits:
             reason += f"; a state vector needs {sv.peak_bytes:.3g} bytes, over the cap"
         reason += "".join("; " + x for x in notes)
+    resliced = sliced_further_note(best.plan) if best.plan is not None else None
+    if resliced:
+        reason += "; " + resliced
     return Choice(best.engine, reason, best, options, planned, count=count)
