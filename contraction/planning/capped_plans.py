@@ -69,8 +69,8 @@ def network_plan(structure: NetworkStructure, store: PlanStore | None, options: 
 
     A stored plan is used when one fits the cap and passes validation against the network;
     otherwise a new plan is searched and stored — or the cheapest stored plan over the cap sliced further,
-    when that costs no more than the plan searched (:func:`sliced_further_note` says so). Raises :class:`MemoryLimitError` when no plan
-    within the cap is found: a plan over the cap is never returned.
+    when that costs no more than the plan searched (:func:`sliced_further_note` says so). Raises
+    :class:`MemoryLimitError` when no plan within the cap is found: a plan over the cap is never returned.
     """
     cap_elements = memory_bytes / np.dtype(dtype).itemsize
     fit_elements = plan_fit_elements(memory_bytes, dtype)      # what the plan's own arrays may take
@@ -82,7 +82,7 @@ def network_plan(structure: NetworkStructure, store: PlanStore | None, options: 
                 # a plan stored before its peak counted rearranged copies records less than it holds
                 if executor_peak_elements(tree) <= fit_elements:
                     return Contraction(structure, plan, tree, True)
-                log.warning("stored plan needs more than the memory cap with its copies counted, planning anew")
+                log.warning("stored plan needs more than the memory cap with its copies counted, planning again")
             except PlanError as exc:
                 log.warning("stored plan rejected, planning again: %s", exc)
     if options is None:
