@@ -7,10 +7,14 @@ run of consecutive slices keeping intermediates between them (complex64).
 All on one BLAS thread (a contraction worker's setting), one slice per case, run as a worker runs
 its slices (one contractor made first, its set-up reported apart): the first run apart (fresh
 memory) and the median of the runs after it (at least one; ``--repeats`` in all, two for slices over
-10 s); ``seconds_with_a_new_contractor`` is the same slice with a contractor made for it alone. Plans are searched in this run with the
-service's default objective ("combo": multiply-adds and memory writes).
+10 s); ``seconds_with_a_new_contractor`` is the same slice with a contractor made for it alone. Plans are
+searched in this run with the service's default objective ("auto": multiply-adds alone for a network
+that must be sliced, as all three are) unless ``--minimize`` names another (e.g. "combo": multiply-adds
+and memory writes); ``objective`` says which, and ``seconds_all_slices`` is a slice's time times the
+slices (complex64), so that plans of different objectives compare by the time they take, not only by
+their rate.
 
-    python tests/benchmarks/bench_gemm_rate.py [--budget 30] [--repeats 3] [--cases 20,24,27]
+    python tests/benchmarks/bench_gemm_rate.py [--budget 30] [--repeats 3] [--cases 20,24,27] [--minimize auto]
 """
 
 from __future__ import annotations
@@ -50,15 +54,16 @@ def timed(fn, repeats: int):
     return float(np.median(times[1:])), times[0], value
 
 
-def case(width: int, budget: float, repeats: int, run_slices: int) -> dict:
+def case(width: int, budget: float, repeats: int, run_slices: int, minimize: str = "auto") -> dict:
     rows, cols, cycles, removed = CASES[width]
     circ = random_instance(grid_architecture(rows, cols, cycles, removed=removed), 1, gates="discrete")
     s = build_structure(circ)
-    plan = find_plan(s, PlannerOptions(budget_seconds=budget, max_elements=2 ** width, parallel=2))
+    plan = find_plan(s, PlannerOptions(budget_seconds=budget, max_elements=2 ** width, parallel=2, minimize=minimize))
     tree = plan.tree(s)
     per_slice = plan.madds / plan.nslices
     bits = "0" * circ.num_qubits
-    row = {"qubits": circ.num_qubits, "cycles": cycles, "width_log2": plan.width, "slices": plan.nslices,
+    row = {"qubits": circ.num_qubits, "cycles": cycles, "objective": plan.options.get("minimize"),
+           "width_log2": plan.width, "slices": plan.nslices, "log10_madds": round(float(np.log10(plan.madds)), 3),
            "madds_per_slice": per_slice, "writes_per_slice": plan.writes / plan.nslices}
     values = {}
     with threadpool_limits(1):
@@ -103,6 +108,7 @@ def case(width: int, budget: float, repeats: int, run_slices: int) -> dict:
                     "madds_run_share": round(sc.madds_done / (k * per_slice), 3),
                     "plan_madds_per_s": k * per_slice / run_s}
     ref = values["complex128"]
+    row["seconds_all_slices"] = round(row["complex64"]["seconds"] * plan.nslices, 1)
     row["complex64_relative_error"] = abs(values["complex64"] - ref) / abs(ref)
     return row
 
@@ -113,9 +119,10 @@ def main() -> None:
     ap.add_argument("--repeats", type=int, default=3)
     ap.add_argument("--run-slices", type=int, default=8, help="consecutive slices run with reuse (complex64)")
     ap.add_argument("--cases", default="20,24,27", help="widths (log2) to run, from 20, 24, 27")
+    ap.add_argument("--minimize", default="auto", help="the planner's objective (auto, flops, combo, ...)")
     args = ap.parse_args()
     keep_freed_memory()
-    rows = [case(int(w), args.budget, args.repeats, args.run_slices) for w in args.cases.split(",")]
+    rows = [case(int(w), args.budget, args.repeats, args.run_slices, args.minimize) for w in args.cases.split(",")]
     print(json.dumps({"bench": "gemm_rate", "goal_fraction_of_matmul": 0.6, "cases": rows}), flush=True)
 
 
