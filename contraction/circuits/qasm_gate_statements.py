@@ -262,23 +262,22 @@ class GateStatements:
         if name == "gphase":
             return np.array([[np.exp(1j * params[0])]])
         if name in G.BODY_DEFINED:
-            return _body_matrix(name)
+            return _body_matrix(name, type(self))
         return G.LIBRARY[name].factory(*params)
 
 
 _BODY_CACHE: dict[str, np.ndarray] = {}
 
 
-def _body_matrix(name: str) -> np.ndarray:
-    """The matrix of a library gate defined by an OpenQASM body, read once (by the reader itself)."""
-    from contraction.circuits.qasm_reader import QasmReader    # imported here: the reader imports this module
-
+def _body_matrix(name: str, reader) -> np.ndarray:
+    """The matrix of a library gate defined by an OpenQASM body, read once by ``reader`` (the reader class
+    this is mixed into: importing it here would close an import circle)."""
     if name not in _BODY_CACHE:
         args, body = G.BODY_DEFINED[name]
         text = f'OPENQASM 2.0; include "qelib1.inc"; qreg q[{len(args.split(","))}]; ' \
                f"gate {name}_ {args} {{ {body} }} {name}_ " + ",".join(
                    f"q[{i}]" for i in range(len(args.split(",")))) + ";"
-        circ = QasmReader(text, f"<{name}>").read()
+        circ = reader(text, f"<{name}>").read()
         m = compose(circ.num_qubits, circ.gates, circ.global_phase)
         m.setflags(write=False)
         _BODY_CACHE[name] = m
