@@ -42,7 +42,6 @@ class Sink:
 
     gates: list
     phase: float = 0.0
-    top: bool = False
 
 
 class GateStatements:

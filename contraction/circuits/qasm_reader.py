@@ -67,7 +67,7 @@ class QasmReader(GateStatements, FlowStatements, ExpressionParser):
         self.consts: dict[str, float] = dict(CONSTANTS)
         self.measured: set[int] = set()
         self.touched: set[int] = set()
-        self.sink = Sink([], top=True)
+        self.sink = Sink([])
         self.aliases: dict[str, list[int]] = {}       # 'let' names -> qubits
         self.reread_tokens = 0                        # tokens re-read by loops and subroutine calls
         # name -> (parameters, first token of the body, first token after it)

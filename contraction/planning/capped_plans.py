@@ -144,13 +144,12 @@ def _stored_sliced_further(structure: NetworkStructure, store: PlanStore, fit_el
     stored = store.get(structure.key)
     if stored is None:
         return None
-    try:
-        stored.tree(structure)
-    except PlanError:
-        return None
     until = time.perf_counter() + seconds
     for _ in range(PEAK_RETRIES + 1):
-        plan = sliced_further(stored, structure, target, max(RESLICE_SECONDS, until - time.perf_counter()))
+        try:                                    # the stored plan's tree is built (and validated) once, then kept
+            plan = sliced_further(stored, structure, target, max(RESLICE_SECONDS, until - time.perf_counter()))
+        except PlanError:
+            return None
         if plan is None:
             return None
         if plan.peak_elements <= fit_elements:
